@@ -1,0 +1,3 @@
+from explorer.cli import main
+
+raise SystemExit(main())
