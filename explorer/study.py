@@ -1,0 +1,548 @@
+"""TOML study files → validated, frozen study objects.
+
+The schema is the guaranteed subset of interface.md plus loopscout's extensions
+(docs/study-file.md): polynomial ``num``/``den`` input, targets given as overshoot
+and settling time (converted by :func:`explorer.specs.targets_from_requirements`),
+and extra ``[search]`` keys. This is a boundary: every bad input raises
+:class:`explorer.errors.StudyFileError` with the dotted key path and a one-line
+message in the form "`targets.phase_margin` must be in (0, 90) deg, got 120".
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import os
+import tomllib
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from explorer import specs
+from explorer.errors import StudyFileError
+from explorer.loop import Rational
+
+__all__ = [
+    "Targets",
+    "SearchOptions",
+    "NamedCompensator",
+    "Study",
+    "LIMIT_KEYS",
+    "load_study",
+    "parse_study",
+]
+
+#: METRICS key → kind of bound: "upper" (value must not exceed) or "lower".
+LIMIT_KEYS: dict[str, str] = {
+    "sensitivity_peak": "upper",
+    "complementary_peak": "upper",
+    "hf_gain": "upper",
+    "overshoot_pct": "upper",
+    "settling_time_s": "upper",
+    "rise_time_s": "upper",
+    "peak_control": "upper",
+    "iae_load": "upper",
+    "gain_margin_db": "lower",
+    "phase_margin_deg": "lower",
+    "delay_margin_s": "lower",
+}
+
+# Allowed range of each limit value: (low, low_inclusive, high, high_inclusive, unit).
+_LIMIT_RANGES: dict[str, tuple[float, bool, float, bool, str]] = {
+    "sensitivity_peak": (1.0, True, math.inf, False, ""),
+    "complementary_peak": (0.0, False, math.inf, False, ""),
+    "hf_gain": (0.0, True, math.inf, False, ""),
+    "overshoot_pct": (0.0, True, math.inf, False, " %"),
+    "settling_time_s": (0.0, False, math.inf, False, " s"),
+    "rise_time_s": (0.0, False, math.inf, False, " s"),
+    "peak_control": (0.0, False, math.inf, False, ""),
+    "iae_load": (0.0, False, math.inf, False, ""),
+    "gain_margin_db": (0.0, True, math.inf, False, " dB"),
+    "phase_margin_deg": (0.0, True, 180.0, False, " deg"),
+    "delay_margin_s": (0.0, True, math.inf, False, " s"),
+}
+
+MAX_SEARCH_ORDER = 6
+_TOP_KEYS = ("name", "plant", "targets", "limits", "search", "compensator")
+_ROOT_FORM = ("gain", "zeros", "poles")
+_POLY_FORM = ("num", "den")
+_PLANT_KEYS = (*_ROOT_FORM, *_POLY_FORM, "delay")
+_COMP_KEYS = ("name", *_ROOT_FORM, *_POLY_FORM)
+_TARGET_KEYS = (
+    "crossover",
+    "phase_margin",
+    "integrators",
+    "overshoot",
+    "settling_time",
+    "settling_band",
+    "pm_rule",
+)
+_SEARCH_KEYS = ("max_order", "trials", "seed", "cancel_lightly_damped")
+
+
+# -- value objects ----------------------------------------------------------------------
+@dataclass(frozen=True, kw_only=True)
+class Targets:
+    """Loop targets. ``crossover_rad_s``: a number, a ``(low, high)`` range, or None
+    (free). ``phase_margin_deg``: None when absent. ``derived_from`` holds the
+    explanation lines when the targets were converted from overshoot/settling."""
+
+    crossover_rad_s: float | tuple[float, float] | None
+    phase_margin_deg: float | None
+    integrators: int
+    derived_from: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True, kw_only=True)
+class SearchOptions:
+    """Options of the exploration (``[search]``)."""
+
+    max_order: int = 3
+    trials: int = 100  # per structure
+    seed: int | None = None
+    cancel_lightly_damped: bool = False
+
+
+@dataclass(frozen=True, kw_only=True)
+class NamedCompensator:
+    """A fixed design from a ``[[compensator]]`` entry."""
+
+    name: str
+    compensator: Rational
+
+
+@dataclass(frozen=True, kw_only=True)
+class Study:
+    """A validated study. ``source`` is the file name as given (for messages)."""
+
+    name: str
+    source: str
+    plant: Rational
+    targets: Targets
+    limits: dict[str, float]
+    search: SearchOptions
+    compensators: tuple[NamedCompensator, ...]
+
+
+# -- entry points ---------------------------------------------------------------------------
+def load_study(path: str | os.PathLike[str]) -> Study:
+    """Read and validate a TOML study file. Raises :class:`StudyFileError`."""
+    source = os.fspath(path)
+    try:
+        with open(source, "rb") as fh:
+            data = tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise StudyFileError("", f"{source}: TOML syntax error: {_one_line(str(exc))}") from None
+    except UnicodeDecodeError as exc:
+        raise StudyFileError("", f"{source}: not UTF-8 text ({exc.reason})") from None
+    except IsADirectoryError:
+        raise StudyFileError("", f"cannot read study file {source}: it is a directory") from None
+    except OSError as exc:
+        reason = exc.strerror or type(exc).__name__
+        raise StudyFileError("", f"cannot read study file {source}: {reason}") from None
+    return parse_study(data, source=source)
+
+
+def parse_study(data: dict[str, Any], source: str = "<study>") -> Study:
+    """Validate an already-parsed TOML document (a dict) into a :class:`Study`."""
+    if not isinstance(data, Mapping):
+        raise StudyFileError("", f"a study must be a table of keys, got {_describe(data)}")
+    _check_keys(data, _TOP_KEYS, "")
+    name = _opt_string(data, "name", "")
+    if name is None:
+        stem = Path(source).stem if source and not source.startswith("<") else ""
+        name = stem or "study"
+
+    plant_tab = _table(data, "plant", "", required=True)
+    plant = _rational(plant_tab, "plant", allow_delay=True)
+    if not plant.is_proper:
+        where = "plant.num" if "num" in plant_tab else "plant.zeros"
+        raise StudyFileError(
+            where,
+            f"make the plant improper: {len(plant.zeros)} zeros but {len(plant.poles)} poles "
+            "(a plant needs at least as many poles as zeros)",
+        )
+
+    targets = _targets(_table(data, "targets", "", required=True))
+    limits = _limits(_table(data, "limits", "", required=False))
+    search = _search(_table(data, "search", "", required=False))
+    compensators = _compensators(data.get("compensator"))
+    return Study(
+        name=name,
+        source=source,
+        plant=plant,
+        targets=targets,
+        limits=limits,
+        search=search,
+        compensators=compensators,
+    )
+
+
+# -- sections ---------------------------------------------------------------------------------
+def _targets(tab: Mapping[str, Any]) -> Targets:
+    _check_keys(tab, _TARGET_KEYS, "targets")
+    if "integrators" not in tab:
+        raise StudyFileError("targets.integrators", "is required (free integrators of the loop)")
+    integrators = _int(tab["integrators"], "targets.integrators", low=0)
+
+    has_os = "overshoot" in tab
+    if has_os and "phase_margin" in tab:
+        raise StudyFileError(
+            "targets.overshoot",
+            "and `targets.phase_margin` are both given (ambiguous); give one of them",
+        )
+    if "settling_time" in tab and "crossover" in tab:
+        raise StudyFileError(
+            "targets.settling_time",
+            "and `targets.crossover` are both given (ambiguous); give one of them",
+        )
+    if not has_os:
+        for key in ("settling_time", "settling_band", "pm_rule"):
+            if key in tab:
+                raise StudyFileError(f"targets.{key}", "is only used with `targets.overshoot`")
+    if "settling_band" in tab and "settling_time" not in tab:
+        raise StudyFileError("targets.settling_band", "is only used with `targets.settling_time`")
+
+    crossover = _crossover(tab["crossover"]) if "crossover" in tab else None
+
+    if not has_os:
+        pm = None
+        if "phase_margin" in tab:
+            pm = _number(tab["phase_margin"], "targets.phase_margin", low=0.0, high=90.0,
+                         low_incl=False, high_incl=False, unit=" deg")
+        return Targets(crossover_rad_s=crossover, phase_margin_deg=pm, integrators=integrators)
+
+    overshoot = _number(tab["overshoot"], "targets.overshoot", low=0.0, high=100.0,
+                        low_incl=True, high_incl=False, unit=" %")
+    settling = None
+    if "settling_time" in tab:
+        settling = _number(tab["settling_time"], "targets.settling_time", low=0.0,
+                           low_incl=False, unit=" s")
+    band = 0.02
+    if "settling_band" in tab:
+        band = _number(tab["settling_band"], "targets.settling_band")
+        if band not in specs.SETTLING_CONSTANTS:
+            raise StudyFileError("targets.settling_band",
+                                 f"must be 0.02 or 0.05 (2 % or 5 % band), got {_fmt(band)}")
+    rule = "exact"
+    if "pm_rule" in tab:
+        rule_v = tab["pm_rule"]
+        if not isinstance(rule_v, str) or rule_v not in specs.PM_RULES:
+            raise StudyFileError(
+                "targets.pm_rule",
+                f"must be one of {', '.join(repr(r) for r in specs.PM_RULES)}, "
+                f"got {_describe(rule_v)}",
+            )
+        rule = rule_v
+    conv = specs.targets_from_requirements(overshoot, settling, band=band, rule=rule)
+    if settling is not None:
+        crossover = conv.crossover_rad_s
+    return Targets(
+        crossover_rad_s=crossover,
+        phase_margin_deg=conv.phase_margin_deg,
+        integrators=integrators,
+        derived_from=conv.explanation,
+    )
+
+
+def _crossover(value: Any) -> float | tuple[float, float]:
+    key = "targets.crossover"
+    if isinstance(value, list):
+        if len(value) != 2:
+            raise StudyFileError(key, f"range must be [low, high], got {len(value)} values")
+        low = _number(value[0], f"{key}[0]", low=0.0, low_incl=False, unit=" rad/s")
+        high = _number(value[1], f"{key}[1]", low=0.0, low_incl=False, unit=" rad/s")
+        if not low < high:
+            raise StudyFileError(key, f"range must have low < high, got [{_fmt(low)}, {_fmt(high)}]")
+        return (low, high)
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return _number(value, key, low=0.0, low_incl=False, unit=" rad/s")
+    raise StudyFileError(key, f"must be a number or a [low, high] range in rad/s, "
+                              f"got {_describe(value)}")
+
+
+def _limits(tab: Mapping[str, Any]) -> dict[str, float]:
+    _check_keys(tab, tuple(LIMIT_KEYS), "limits")
+    out: dict[str, float] = {}
+    for key, value in tab.items():
+        low, low_incl, high, high_incl, unit = _LIMIT_RANGES[key]
+        out[key] = _number(value, f"limits.{key}", low=low, high=high,
+                           low_incl=low_incl, high_incl=high_incl, unit=unit)
+    return out
+
+
+def _search(tab: Mapping[str, Any]) -> SearchOptions:
+    _check_keys(tab, _SEARCH_KEYS, "search")
+    kw: dict[str, Any] = {}
+    if "max_order" in tab:
+        kw["max_order"] = _int(tab["max_order"], "search.max_order", low=0,
+                               high=MAX_SEARCH_ORDER)
+    if "trials" in tab:
+        kw["trials"] = _int(tab["trials"], "search.trials", low=1)
+    if "seed" in tab:
+        kw["seed"] = _int(tab["seed"], "search.seed", low=0)
+    if "cancel_lightly_damped" in tab:
+        v = tab["cancel_lightly_damped"]
+        if not isinstance(v, bool):
+            raise StudyFileError("search.cancel_lightly_damped",
+                                 f"must be true or false, got {_describe(v)}")
+        kw["cancel_lightly_damped"] = v
+    return SearchOptions(**kw)
+
+
+def _compensators(value: Any) -> tuple[NamedCompensator, ...]:
+    if value is None:
+        return ()
+    if not isinstance(value, list):
+        raise StudyFileError("compensator", "must be written as [[compensator]] tables, "
+                                            f"got {_describe(value)}")
+    out: list[NamedCompensator] = []
+    seen: dict[str, int] = {}
+    for i, entry in enumerate(value):
+        where = f"compensator[{i}]"
+        if not isinstance(entry, Mapping):
+            raise StudyFileError(where, f"must be a table, got {_describe(entry)}")
+        _check_keys(entry, _COMP_KEYS, where)
+        name = _opt_string(entry, "name", where)
+        if name is None:
+            name = f"C{i + 1}"
+        if not name.strip():
+            raise StudyFileError(f"{where}.name", "must not be empty")
+        if name in seen:
+            raise StudyFileError(
+                f"{where}.name", f"duplicate name {name!r} (also compensator[{seen[name]}])"
+            )
+        seen[name] = i
+        out.append(NamedCompensator(name=name, compensator=_rational(entry, where)))
+    return tuple(out)
+
+
+# -- rational factors -------------------------------------------------------------------------
+def _rational(tab: Mapping[str, Any], where: str, *, allow_delay: bool = False) -> Rational:
+    root_keys = [k for k in _ROOT_FORM if k in tab]
+    poly_keys = [k for k in _POLY_FORM if k in tab]
+    if root_keys and poly_keys:
+        raise StudyFileError(
+            f"{where}.{poly_keys[0]}",
+            f"cannot be combined with `{where}.{root_keys[0]}`: give gain/zeros/poles "
+            "or num/den, not both",
+        )
+    delay = 0.0
+    if allow_delay and "delay" in tab:
+        delay = _number(tab["delay"], f"{where}.delay", low=0.0, low_incl=True, unit=" s")
+
+    if poly_keys:
+        for k in _POLY_FORM:
+            if k not in tab:
+                raise StudyFileError(f"{where}.{k}", "is required with "
+                                     f"`{where}.{poly_keys[0]}` (coefficients, highest power first)")
+        num = _coefficients(tab["num"], f"{where}.num")
+        den = _coefficients(tab["den"], f"{where}.den")
+        return Rational.from_coefficients(num, den, delay_s=delay)
+
+    if "gain" not in tab:
+        raise StudyFileError(f"{where}.gain", "is required (or give `num` and `den`)")
+    gain = _number(tab["gain"], f"{where}.gain")
+    if gain == 0.0:
+        raise StudyFileError(f"{where}.gain", "must not be 0")
+    zeros = _roots(tab.get("zeros", []), f"{where}.zeros")
+    poles = _roots(tab.get("poles", []), f"{where}.poles")
+    return Rational(gain=gain, zeros=zeros, poles=poles, delay_s=delay)
+
+
+def _coefficients(value: Any, key: str) -> list[float]:
+    if not isinstance(value, list):
+        raise StudyFileError(key, f"must be a list of coefficients (highest power first), "
+                                  f"got {_describe(value)}")
+    coeffs = [_number(c, f"{key}[{i}]") for i, c in enumerate(value)]
+    if not any(c != 0.0 for c in coeffs):
+        raise StudyFileError(key, "must have a nonzero coefficient")
+    return coeffs
+
+
+def _roots(value: Any, key: str) -> tuple[complex, ...]:
+    if not isinstance(value, list):
+        raise StudyFileError(key, f"must be a list of roots, got {_describe(value)}")
+    roots: list[complex] = []
+    for i, item in enumerate(value):
+        roots.append(_root(item, f"{key}[{i}]"))
+    # every complex root must be matched by its conjugate (with multiplicity)
+    upper = [(i, r) for i, r in enumerate(roots) if r.imag > 0]
+    lower = [(i, r) for i, r in enumerate(roots) if r.imag < 0]
+    for i, r in upper + lower:
+        partners = lower if r.imag > 0 else upper
+        match = next((p for p in partners if _close(p[1], r.conjugate())), None)
+        if match is None:
+            raise StudyFileError(
+                f"{key}[{i}]",
+                f"complex root {_fmt_root(r)} needs its conjugate {_fmt_root(r.conjugate())} "
+                "in the same list",
+            )
+    if len(upper) != len(lower):
+        raise StudyFileError(key, f"has {len(upper)} roots above and {len(lower)} below the "
+                                  "real axis; complex roots must come in conjugate pairs")
+    # pair them one-to-one (multiplicity) and make each pair exactly conjugate
+    free = list(lower)
+    for i, r in upper:
+        j = next((k for k, p in enumerate(free) if _close(p[1], r.conjugate())), None)
+        if j is None:
+            raise StudyFileError(
+                f"{key}[{i}]",
+                f"complex root {_fmt_root(r)} appears more often than its conjugate",
+            )
+        idx, _ = free.pop(j)
+        roots[idx] = r.conjugate()
+    return tuple(roots)
+
+
+def _root(item: Any, key: str) -> complex:
+    if isinstance(item, bool):
+        raise StudyFileError(key, f"must be a number or a complex string like \"-2+3j\", "
+                                  f"got {_describe(item)}")
+    if isinstance(item, (int, float)):
+        v = float(item)
+        if not math.isfinite(v):
+            raise StudyFileError(key, f"must be finite, got {_fmt(v)}")
+        return complex(v, 0.0)
+    if isinstance(item, str):
+        try:
+            c = complex(item.replace(" ", ""))
+        except ValueError:
+            raise StudyFileError(
+                key, f"is not a root: {item!r} (write a complex root like \"-2+3j\")"
+            ) from None
+        if not (math.isfinite(c.real) and math.isfinite(c.imag)):
+            raise StudyFileError(key, f"must be finite, got {item!r}")
+        return complex(c.real, c.imag)
+    raise StudyFileError(key, f"must be a number or a complex string like \"-2+3j\", "
+                              f"got {_describe(item)}")
+
+
+def _close(a: complex, b: complex) -> bool:
+    return abs(a - b) <= 1e-9 * max(abs(a), abs(b), 1.0)
+
+
+# -- scalar validators --------------------------------------------------------------------
+def _number(
+    value: Any,
+    key: str,
+    *,
+    low: float = -math.inf,
+    high: float = math.inf,
+    low_incl: bool = True,
+    high_incl: bool = True,
+    unit: str = "",
+) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise StudyFileError(key, f"must be a number, got {_describe(value)}")
+    v = float(value)
+    if not math.isfinite(v):
+        raise StudyFileError(key, f"must be finite, got {_fmt(v)}")
+    ok_low = v >= low if low_incl else v > low
+    ok_high = v <= high if high_incl else v < high
+    if not (ok_low and ok_high):
+        raise StudyFileError(key, f"must be {_interval(low, high, low_incl, high_incl)}{unit}, "
+                                  f"got {_fmt(v)}")
+    return v
+
+
+def _interval(low: float, high: float, low_incl: bool, high_incl: bool) -> str:
+    if math.isinf(high):
+        return f"{'≥' if low_incl else '>'} {_fmt(low)}"
+    if math.isinf(low):
+        return f"{'≤' if high_incl else '<'} {_fmt(high)}"
+    return f"in {'[' if low_incl else '('}{_fmt(low)}, {_fmt(high)}{']' if high_incl else ')'}"
+
+
+def _int(value: Any, key: str, *, low: int | None = None, high: int | None = None) -> int:
+    what = "a non-negative integer" if low == 0 else "an integer"
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise StudyFileError(key, f"must be {what}, got {_describe(value)}")
+    if low is not None and value < low:
+        raise StudyFileError(key, f"must be {what}" + ("" if low == 0 else f" ≥ {low}")
+                             + f", got {value}")
+    if high is not None and value > high:
+        raise StudyFileError(key, f"must be at most {high}, got {value}")
+    return int(value)
+
+
+def _opt_string(tab: Mapping[str, Any], key: str, where: str) -> str | None:
+    if key not in tab:
+        return None
+    v = tab[key]
+    full = f"{where}.{key}" if where else key
+    if not isinstance(v, str):
+        raise StudyFileError(full, f"must be a string, got {_describe(v)}")
+    if "\n" in v or "\r" in v:
+        raise StudyFileError(full, "must be a single line")
+    return v
+
+
+def _table(data: Mapping[str, Any], key: str, where: str, *, required: bool) -> Mapping[str, Any]:
+    full = f"{where}.{key}" if where else key
+    if key not in data:
+        if required:
+            raise StudyFileError(full, f"is required (a [{full}] table)")
+        return {}
+    v = data[key]
+    if not isinstance(v, Mapping):
+        raise StudyFileError(full, f"must be a [{full}] table, got {_describe(v)}")
+    return v
+
+
+def _check_keys(tab: Mapping[str, Any], allowed: tuple[str, ...], where: str) -> None:
+    for key in tab:
+        if key not in allowed:
+            full = f"{where}.{key}" if where else str(key)
+            hint = difflib.get_close_matches(str(key), allowed, n=1)
+            extra = f"; did you mean `{hint[0]}`?" if hint else ""
+            section = f"in [{where}]" if where else "at the top level"
+            raise StudyFileError(
+                full, f"is not a known key {section} (known: {', '.join(allowed)}){extra}"
+            )
+
+
+# -- formatting -------------------------------------------------------------------------------
+def _fmt(v: float) -> str:
+    if math.isnan(v):
+        return "nan"
+    if math.isinf(v):
+        return "inf" if v > 0 else "-inf"
+    return f"{v:.12g}"
+
+
+def _fmt_root(r: complex) -> str:
+    return f"{r.real:.12g}{r.imag:+.12g}j"
+
+
+_TYPE_NAMES: dict[type, str] = {
+    dict: "a table",
+    list: "a list",
+    str: "a string",
+    bool: "a boolean",
+}
+
+
+def _describe(value: Any) -> str:
+    """A short, one-line description of a bad value for a message."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return _fmt(float(value)) if isinstance(value, float) else str(value)
+    if isinstance(value, str):
+        text = value if len(value) <= 40 else value[:37] + "..."
+        return repr(_one_line(text))
+    for t, name in _TYPE_NAMES.items():
+        if isinstance(value, t):
+            return name
+    if isinstance(value, Mapping):
+        return "a table"
+    return f"a {type(value).__name__}"
+
+
+def _one_line(text: str) -> str:
+    return " ".join(text.split())
+
+
+_: Callable[..., Any] = _describe  # keep the helper referenced for linters
