@@ -11,6 +11,7 @@ message in the form "`targets.phase_margin` must be in (0, 90) deg, got 120".
 from __future__ import annotations
 
 import difflib
+import json
 import math
 import os
 import tomllib
@@ -141,6 +142,10 @@ def load_study(path: str | os.PathLike[str]) -> Study:
     except OSError as exc:
         reason = exc.strerror or type(exc).__name__
         raise StudyFileError("", f"cannot read study file {source}: {reason}") from None
+    except ValueError as exc:  # e.g. an embedded NUL byte in the path
+        raise StudyFileError(
+            "", f"cannot read study file {source!r}: {_one_line(str(exc))}"
+        ) from None
     return parse_study(data, source=source)
 
 
@@ -155,14 +160,9 @@ def parse_study(data: dict[str, Any], source: str = "<study>") -> Study:
         name = stem or "study"
 
     plant_tab = _table(data, "plant", "", required=True)
+    _check_keys(plant_tab, _PLANT_KEYS, "plant")
     plant = _rational(plant_tab, "plant", allow_delay=True)
-    if not plant.is_proper:
-        where = "plant.num" if "num" in plant_tab else "plant.zeros"
-        raise StudyFileError(
-            where,
-            f"make the plant improper: {len(plant.zeros)} zeros but {len(plant.poles)} poles "
-            "(a plant needs at least as many poles as zeros)",
-        )
+    _require_proper(plant, plant_tab, "plant", "plant", "")
 
     targets = _targets(_table(data, "targets", "", required=True))
     limits = _limits(_table(data, "limits", "", required=False))
@@ -254,7 +254,9 @@ def _crossover(value: Any) -> float | tuple[float, float]:
         low = _number(value[0], f"{key}[0]", low=0.0, low_incl=False, unit=" rad/s")
         high = _number(value[1], f"{key}[1]", low=0.0, low_incl=False, unit=" rad/s")
         if not low < high:
-            raise StudyFileError(key, f"range must have low < high, got [{_fmt(low)}, {_fmt(high)}]")
+            raise StudyFileError(
+                key, f"range must have low < high, got [{_fmt(low)}, {_fmt(high)}]"
+            )
         return (low, high)
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         return _number(value, key, low=0.0, low_incl=False, unit=" rad/s")
@@ -314,7 +316,10 @@ def _compensators(value: Any) -> tuple[NamedCompensator, ...]:
                 f"{where}.name", f"duplicate name {name!r} (also compensator[{seen[name]}])"
             )
         seen[name] = i
-        out.append(NamedCompensator(name=name, compensator=_rational(entry, where)))
+        comp = _rational(entry, where)
+        _require_proper(comp, entry, where, "compensator",
+                        "; its high-frequency gain would be infinite")
+        out.append(NamedCompensator(name=name, compensator=comp))
     return tuple(out)
 
 
@@ -335,8 +340,11 @@ def _rational(tab: Mapping[str, Any], where: str, *, allow_delay: bool = False) 
     if poly_keys:
         for k in _POLY_FORM:
             if k not in tab:
-                raise StudyFileError(f"{where}.{k}", "is required with "
-                                     f"`{where}.{poly_keys[0]}` (coefficients, highest power first)")
+                raise StudyFileError(
+                    f"{where}.{k}",
+                    f"is required with `{where}.{poly_keys[0]}` "
+                    "(coefficients, highest power first)",
+                )
         num = _coefficients(tab["num"], f"{where}.num")
         den = _coefficients(tab["den"], f"{where}.den")
         return Rational.from_coefficients(num, den, delay_s=delay)
@@ -349,6 +357,22 @@ def _rational(tab: Mapping[str, Any], where: str, *, allow_delay: bool = False) 
     zeros = _roots(tab.get("zeros", []), f"{where}.zeros")
     poles = _roots(tab.get("poles", []), f"{where}.poles")
     return Rational(gain=gain, zeros=zeros, poles=poles, delay_s=delay)
+
+
+def _require_proper(
+    r: Rational, tab: Mapping[str, Any], where: str, noun: str, why: str
+) -> None:
+    """Refuse more zeros than poles; the key named is where the zeros were written."""
+    if r.is_proper:
+        return
+    nz, npl = len(r.zeros), len(r.poles)
+    key = f"{where}.num" if "num" in tab else f"{where}.zeros"
+    raise StudyFileError(
+        key,
+        f"gives an improper {noun}: {nz} zero{'s' if nz != 1 else ''} but "
+        f"{npl} pole{'s' if npl != 1 else ''} (a {noun} needs at least as many poles as "
+        f"zeros){why}",
+    )
 
 
 def _coefficients(value: Any, key: str) -> list[float]:
@@ -401,7 +425,7 @@ def _root(item: Any, key: str) -> complex:
         raise StudyFileError(key, f"must be a number or a complex string like \"-2+3j\", "
                                   f"got {_describe(item)}")
     if isinstance(item, (int, float)):
-        v = float(item)
+        v = _to_float(item)
         if not math.isfinite(v):
             raise StudyFileError(key, f"must be finite, got {_fmt(v)}")
         return complex(v, 0.0)
@@ -417,6 +441,14 @@ def _root(item: Any, key: str) -> complex:
         return complex(c.real, c.imag)
     raise StudyFileError(key, f"must be a number or a complex string like \"-2+3j\", "
                               f"got {_describe(item)}")
+
+
+def _to_float(value: int | float) -> float:
+    """float(value), with integers too large for a float mapped to ±inf (refused later)."""
+    try:
+        return float(value)
+    except OverflowError:
+        return math.inf if value > 0 else -math.inf
 
 
 def _close(a: complex, b: complex) -> bool:
@@ -436,7 +468,7 @@ def _number(
 ) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise StudyFileError(key, f"must be a number, got {_describe(value)}")
-    v = float(value)
+    v = _to_float(value)
     if not math.isfinite(v):
         raise StudyFileError(key, f"must be finite, got {_fmt(v)}")
     ok_low = v >= low if low_incl else v > low
@@ -494,7 +526,8 @@ def _table(data: Mapping[str, Any], key: str, where: str, *, required: bool) -> 
 def _check_keys(tab: Mapping[str, Any], allowed: tuple[str, ...], where: str) -> None:
     for key in tab:
         if key not in allowed:
-            full = f"{where}.{key}" if where else str(key)
+            shown = _show_key(str(key))
+            full = f"{where}.{shown}" if where else shown
             hint = difflib.get_close_matches(str(key), allowed, n=1)
             extra = f"; did you mean `{hint[0]}`?" if hint else ""
             section = f"in [{where}]" if where else "at the top level"
@@ -504,6 +537,17 @@ def _check_keys(tab: Mapping[str, Any], allowed: tuple[str, ...], where: str) ->
 
 
 # -- formatting -------------------------------------------------------------------------------
+_BARE_KEY_CHARS = frozenset("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789_-")
+
+
+def _show_key(key: str) -> str:
+    """A key as TOML would write it: bare if it can be, else a quoted, escaped string
+    (so a key with a newline or a dot still gives a one-line message)."""
+    if key and all(ch in _BARE_KEY_CHARS for ch in key):
+        return key
+    return json.dumps(key)
+
+
 def _fmt(v: float) -> str:
     if math.isnan(v):
         return "nan"
@@ -528,8 +572,10 @@ def _describe(value: Any) -> str:
     """A short, one-line description of a bad value for a message."""
     if isinstance(value, bool):
         return "true" if value else "false"
-    if isinstance(value, (int, float)):
-        return _fmt(float(value)) if isinstance(value, float) else str(value)
+    if isinstance(value, float):
+        return repr(value) if math.isfinite(value) else _fmt(value)
+    if isinstance(value, int):
+        return str(value)
     if isinstance(value, str):
         text = value if len(value) <= 40 else value[:37] + "..."
         return repr(_one_line(text))
