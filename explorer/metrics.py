@@ -129,6 +129,7 @@ def _newton_roots(
             step = x[idx] - f / df
         ok = np.isfinite(step) & (step > a[idx]) & (step < b[idx])
         x_new = np.where(ok, step, 0.5 * (a[idx] + b[idx]))
+        x_new = np.where(f == 0, x[idx], x_new)
         done = (np.abs(x_new - x[idx]) < 1e-14 * np.maximum(1.0, np.abs(x[idx]))) | (f == 0)
         done |= (b[idx] - a[idx]) < 1e-15 * np.maximum(1.0, np.abs(x[idx]))
         x[idx] = x_new
@@ -270,13 +271,16 @@ def _odd_count(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
 
 
 def _arc_crossings(start_angle: np.ndarray, end_angle: np.ndarray, turns: np.ndarray) -> np.ndarray:
-    """Crossings of the negative real axis by an infinite-radius arc that rotates
-    clockwise by about ``turns``·π from ``start_angle`` to ``end_angle`` (rad)."""
-    # exact clockwise rotation: end − start reduced to the multiple of 2π nearest −turns·π
+    """Signed crossings of the negative real axis (clockwise +1) by an arc that
+    rotates by about −``turns``·π from ``start_angle`` to ``end_angle`` (rad)."""
+    # exact rotation: end − start shifted by the multiple of 2π nearest −turns·π
     raw = end_angle - start_angle
     k = np.round((-turns * np.pi - raw) / (2.0 * np.pi))
     delta = raw + 2.0 * np.pi * k
-    return _odd_count((start_angle + delta) / np.pi, start_angle / np.pi)
+    end = start_angle + delta
+    cw = _odd_count(end / np.pi, start_angle / np.pi)
+    ccw = _odd_count(start_angle / np.pi, end / np.pi)
+    return np.where(delta < 0, cw, -ccw)
 
 
 def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
@@ -293,7 +297,6 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     m = grid.shape[1]
     lval = loops.freqresp(grid)
     x = np.log(grid)
-    rows_grid = np.broadcast_to(np.arange(n)[:, None], (n, m))
 
     # axis poles s = ±jb (b > 0): their intervals are arcs, not ordinary segments
     axis_arc = np.zeros(n, dtype=int)
@@ -368,6 +371,7 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     pm_deg = nan.copy()
     wc = nan.copy()
     dm = nan.copy()
+    pm_c = np.zeros(0)
     if gi.size:
         phase_c = np.angle(_eval_points(loops, gi, wg)[0])
         pm_c = np.degrees(phase_c) + 180.0
@@ -399,6 +403,9 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
         np.maximum.at(tmp, pi_, lg)
         lgm_db = np.where(np.isfinite(tmp), tmp, np.nan)
 
+    _pm_all = pm_c[: gi.size - ei.size]
+    gk = gk[: _pm_all.size]
+
     # crossovers list (ascending), padded
     if gi.size:
         order = np.lexsort((wg, gi))
@@ -416,9 +423,16 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     hf = loops.hf_value()
     tau = loops.delay_s
     m0 = loops.n_origin_poles()
-    ms, ms_w = _peak(loops, grid, x, np.abs(1.0 + lval), rows_grid, inverse=False)
+    # extra peak candidates: the closest approaches to −1 lie near phase crossovers
+    # with |L| near 1 and near gain crossovers with a small phase margin
+    near_p = (lp > 0.3) & (lp < 3.0) if pi_.size else np.zeros(0, dtype=bool)
+    ex_rows = np.concatenate([pi_[near_p], gi[: gi.size - ei.size][np.abs(_pm_all) < 60.0]])
+    ex_k = np.concatenate([pk[near_p], gk[np.abs(_pm_all) < 60.0]])
+    ex_x = np.concatenate([xp[near_p], xg[: gi.size - ei.size][np.abs(_pm_all) < 60.0]])
+    extra = (ex_rows, ex_k, ex_x)
+    ms, ms_w = _peak(loops, grid, x, np.abs(1.0 + lval), extra, inverse=False)
     with np.errstate(divide="ignore", invalid="ignore"):
-        mt, mt_w = _peak(loops, grid, x, np.abs(1.0 + 1.0 / lval), rows_grid, inverse=True)
+        mt, mt_w = _peak(loops, grid, x, np.abs(1.0 + 1.0 / lval), extra, inverse=True)
     # limits ω → 0 and ω → ∞
     l0 = np.where(m0 > 0, np.inf, np.where(m0 < 0, 0.0, _k0(loops)))
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -447,10 +461,11 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     if pi_.size:
         left = lp > 1.0
         np.add.at(n_cw, pi_[left], 2 * direction[left])
-    # indentation at s = 0 (m0 > 0: an infinite arc rotating clockwise by m0·π)
+    # through s = 0: for m0 > 0 an infinite arc rotating clockwise by m0·π; for
+    # m0 = 0 the curve passes through the real value L(0) (a crossing if L(0) < −1)
     eps_angle = np.angle(lval[:, 0])
-    arc0 = _arc_crossings(-eps_angle, eps_angle, m0.astype(float))
-    n_cw += np.where(m0 > 0, arc0, 0)
+    arc0 = _arc_crossings(-eps_angle, eps_angle, np.maximum(m0, 0).astype(float))
+    n_cw += np.where((m0 > 0) | ((m0 == 0) & (mag[:, 0] > 1.0)), arc0, 0)
     n_cw += axis_arc
     # ω → ∞ for a biproper loop without delay: L(j∞) is real
     if loops.relative_degree == 0:
@@ -502,10 +517,13 @@ def _peak(
     grid: np.ndarray,
     x: np.ndarray,
     dist: np.ndarray,
-    rows_grid: np.ndarray,
+    extra: tuple[np.ndarray, np.ndarray, np.ndarray],
     inverse: bool,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """1/min over ω of ``dist`` (|1+L| or |1+1/L|), refined; returns (peak, ω at peak)."""
+    """1/min over ω of ``dist`` (|1+L| or |1+1/L|), refined; returns (peak, ω at peak).
+
+    Candidates: the grid's smallest local minima, plus ``extra`` = (rows, grid
+    interval index, ln ω start) points known to lie near a close approach to −1."""
     n, m = dist.shape
     d = np.where(np.isfinite(dist), dist, np.inf)
     interior = np.zeros_like(d, dtype=bool)
@@ -523,8 +541,13 @@ def _peak(
     kmin = np.argmin(d, axis=1)
     best = d[np.arange(n), kmin] ** 2
     best_w = grid[np.arange(n), kmin]
+    er, ek, ex = extra
+    lo_k = np.concatenate([ck - 1, np.maximum(ek - 1, 0)])
+    hi_k = np.concatenate([ck + 1, np.minimum(ek + 2, m - 1)])
+    x0 = np.concatenate([x[ci, ck], ex])
+    ci = np.concatenate([ci, er])
     if ci.size:
-        xr, fr = _peak_refine(loops, ci, x[ci, ck - 1], x[ci, ck + 1], x[ci, ck], inverse)
+        xr, fr = _peak_refine(loops, ci, x[ci, lo_k], x[ci, hi_k], x0, inverse)
         order = np.lexsort((fr, ci))
         cs, fs, xs = ci[order], fr[order], xr[order]
         first = np.r_[True, cs[1:] != cs[:-1]]
