@@ -250,7 +250,10 @@ def _crossover(value: Any) -> float | tuple[float, float]:
     key = "targets.crossover"
     if isinstance(value, list):
         if len(value) != 2:
-            raise StudyFileError(key, f"range must be [low, high], got {len(value)} values")
+            n = len(value)
+            raise StudyFileError(
+                key, f"range must be [low, high], got {n} value{'' if n == 1 else 's'}"
+            )
         low = _number(value[0], f"{key}[0]", low=0.0, low_incl=False, unit=" rad/s")
         high = _number(value[1], f"{key}[1]", low=0.0, low_incl=False, unit=" rad/s")
         if not low < high:
@@ -313,7 +316,7 @@ def _compensators(value: Any) -> tuple[NamedCompensator, ...]:
             raise StudyFileError(f"{where}.name", "must not be empty")
         if name in seen:
             raise StudyFileError(
-                f"{where}.name", f"duplicate name {name!r} (also compensator[{seen[name]}])"
+                f"{where}.name", f"repeats the name {name!r} of compensator[{seen[name]}]"
             )
         seen[name] = i
         comp = _rational(entry, where)

@@ -493,7 +493,7 @@ BAD_CASES = [
     ("crossover three values", make(targets="crossover = [1, 2, 3]\nintegrators = 1\n"),
      "targets.crossover", "range must be [low, high], got 3 values"),
     ("crossover one value", make(targets="crossover = [1]\nintegrators = 1\n"),
-     "targets.crossover", "got 1 values"),
+     "targets.crossover", "range must be [low, high], got 1 value"),
     ("crossover range negative", make(targets="crossover = [-1, 2]\nintegrators = 1\n"),
      "targets.crossover[0]", "must be > 0 rad/s"),
     ("crossover range string", make(targets='crossover = [1, "2"]\nintegrators = 1\n'),
@@ -577,7 +577,7 @@ BAD_CASES = [
      "compensator[0].name", "must not be empty"),
     ("duplicate compensator names",
      make(rest='[[compensator]]\nname = "A"\ngain = 1\n[[compensator]]\nname = "A"\ngain = 2\n'),
-     "compensator[1].name", "duplicate name 'A' (also compensator[0])"),
+     "compensator[1].name", "repeats the name 'A' of compensator[0]"),
 ]
 
 
