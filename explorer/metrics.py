@@ -82,19 +82,24 @@ FREQUENCY_KEYS = (
 # evaluation helpers at (row, ω) points
 # --------------------------------------------------------------------------------------
 def _eval_points(
-    loops: LoopBatch, rows: np.ndarray, omega: np.ndarray
+    loops: LoopBatch, rows: np.ndarray, omega: np.ndarray, second: bool = True
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """L, D = d ln L / d ln ω and dD/d ln ω at points ``(rows[i], omega[i])``."""
+    """L, D = d ln L / d ln ω and dD/d ln ω at points ``(rows[i], omega[i])``
+    (dD is zeros unless ``second``)."""
     s = (1j * omega)[:, None]
     dz = s - loops.zeros[rows]
     dp = s - loops.poles[rows]
     tau = loops.delay_s[rows]
     val = loops.gain[rows] * np.prod(dz, axis=1) / np.prod(dp, axis=1)
     val = val * np.exp(-1j * omega * tau)
-    g = np.sum(1.0 / dz, axis=1) - np.sum(1.0 / dp, axis=1) - tau
-    g1 = -np.sum(1.0 / dz**2, axis=1) + np.sum(1.0 / dp**2, axis=1)
+    iz = 1.0 / dz
+    ip = 1.0 / dp
+    g = np.sum(iz, axis=1) - np.sum(ip, axis=1) - tau
     s1 = s[:, 0]
     d = s1 * g
+    if not second:
+        return val, d, np.zeros_like(d)
+    g1 = -np.sum(iz * iz, axis=1) + np.sum(ip * ip, axis=1)
     dd = s1 * g + s1 * s1 * g1
     return val, d, dd
 
@@ -202,6 +207,21 @@ def _asymptote_scales(loops: LoopBatch) -> tuple[np.ndarray, np.ndarray]:
     return w_lo, w_hi
 
 
+def _monotone_from(loops: LoopBatch, hi: np.ndarray) -> np.ndarray:
+    """A frequency above which |L(jω)| decreases monotonically (strictly proper
+    loops): c·max|r| with c − 1 > (number of roots)/(relative degree); else ``hi``.
+    Also above the asymptote crossing, so |L| < 1 there as well."""
+    rd = loops.relative_degree
+    if rd <= 0:
+        return hi
+    n_roots = loops.zeros.shape[1] + loops.poles.shape[1]
+    c = 1.0 + n_roots / rd + 0.5
+    rmax = np.max(np.abs(np.concatenate([loops.zeros, loops.poles], axis=1)), axis=1, initial=0.0)
+    _, w_hi = _asymptote_scales(loops)
+    w_m = np.fmax(c * rmax, 2.0 * w_hi)
+    return np.minimum(hi, np.where(np.isfinite(w_m) & (w_m > 0), w_m, hi))
+
+
 def design_grid(loops: LoopBatch) -> np.ndarray:
     """Per-design bracketing grid, shape ``(n, m)``, sorted, all ω > 0 (rad/s).
 
@@ -250,7 +270,10 @@ def design_grid(loops: LoopBatch) -> np.ndarray:
         q = 10.0 ** (1.0 / POINTS_PER_DECADE) - 1.0
         t_safe = np.where(tau > 0, tau, 1.0)
         w_a = np.maximum(lo, DELAY_STEP_RAD / (t_safe * q))
-        w_b = hi + 2.5 * np.pi / t_safe
+        # above w_m the magnitude falls monotonically (each root's share of the slope
+        # d ln|L|/d ln ω is within 1/(c − 1) of its asymptote for ω ≥ c·|r|), so
+        # the first phase crossover above it has the smallest margin of all later ones
+        w_b = _monotone_from(loops, hi) + 2.5 * np.pi / t_safe
         need = np.where(tau > 0, np.maximum(0.0, (w_b - w_a) * tau / DELAY_STEP_RAD), 0.0)
         count = int(min(_MAX_DELAY_POINTS, math.ceil(float(np.max(need))) + 2))
         lin = np.linspace(0.0, 1.0, count)
@@ -328,43 +351,78 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     logm = np.log(np.where(mag > 0, mag, 1e-300))
 
     def log_mag(rows: np.ndarray, xx: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        val, d, _ = _eval_points(loops, rows, np.exp(xx))
+        val, d, _ = _eval_points(loops, rows, np.exp(xx), second=False)
         return np.log(np.abs(val)), d.real
 
     def neg_angle(rows: np.ndarray, xx: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        val, d, _ = _eval_points(loops, rows, np.exp(xx))
+        val, d, _ = _eval_points(loops, rows, np.exp(xx), second=False)
         return np.angle(-val), d.imag
 
     # -- gain crossovers ----------------------------------------------------------------
-    sg = np.sign(logm)
-    brk = (sg[:, :-1] * sg[:, 1:] < 0) & ~skip
-    exact = (logm[:, :-1] == 0) & ~skip
+    sg = np.where(logm >= 0, 1, -1)
+    brk = (sg[:, :-1] != sg[:, 1:]) & ~skip
     gi, gk = np.nonzero(brk)
-    xg = _newton_roots(log_mag, gi, x[gi, gk], x[gi, gk + 1], logm[gi, gk]) if gi.size else np.zeros(0)
-    ei, ek = np.nonzero(exact)
-    gi = np.concatenate([gi, ei])
-    xg = np.concatenate([xg, x[ei, ek]])
+    xa, xb, fa = x[gi, gk], x[gi, gk + 1], logm[gi, gk]
+    # a resonance peak (or notch dip) that pokes through |L| = 1 between grid points
+    hr, hk, hx, hv = _hidden_pairs(loops, x, logm, skip, "real", 0.7)
+    gi = np.concatenate([gi, hr, hr])
+    gk = np.concatenate([gk, hk - 1, hk])
+    xa = np.concatenate([xa, x[hr, hk - 1], hx])
+    xb = np.concatenate([xb, hx, x[hr, hk + 1]])
+    fa = np.concatenate([fa, logm[hr, hk - 1], hv])
+    xg = _newton_roots(log_mag, gi, xa, xb, fa) if gi.size else np.zeros(0)
     wg = np.exp(xg)
 
     # -- phase crossovers (L real negative) -----------------------------------------------
     im = lval.imag
     re = lval.real
-    si = np.sign(im)
-    pb = (si[:, :-1] * si[:, 1:] < 0) & ~skip
+    si = np.where(im >= 0, 1, -1)
+    pb = (si[:, :-1] != si[:, 1:]) & ~skip
     with np.errstate(invalid="ignore", divide="ignore"):
         tt = im[:, :-1] / (im[:, :-1] - im[:, 1:])
+    tt = np.where(np.isfinite(tt), tt, 0.5)
     re_cross = re[:, :-1] + tt * (re[:, 1:] - re[:, :-1])
     pb &= re_cross < 0
     pi_, pk = np.nonzero(pb)
-    if pi_.size:
-        f_lo = np.angle(-lval[pi_, pk])
-        xp = _newton_roots(neg_angle, pi_, x[pi_, pk], x[pi_, pk + 1], f_lo)
-        direction = np.where(im[pi_, pk] < 0, 1, -1)  # Im − → + : clockwise (phase falls)
-    else:
-        xp = np.zeros(0)
-        direction = np.zeros(0, dtype=int)
+    direction = np.where(im[pi_, pk] < 0, 1, -1)  # Im − → + : clockwise (phase falls)
+    # interpolated ln|L| at each crossing; refine only the crossings that matter:
+    # those near |L| = 1 (Nyquist side and Ms candidates) and the GM candidates
+    t_c = tt[pi_, pk]
+    lp_est = logm[pi_, pk] + t_c * (logm[pi_, pk + 1] - logm[pi_, pk])
+    xpa, xpb = x[pi_, pk], x[pi_, pk + 1]
+    xp = xpa + t_c * (xpb - xpa)
+    fpa = np.angle(-lval[pi_, pk])
+    force = np.zeros(pi_.size, dtype=bool)
+    # a phase extremum that touches −180° between grid points: two crossings
+    with np.errstate(invalid="ignore", divide="ignore"):
+        hval = np.angle(-lval)
+    qr, qk, qx, qv = _hidden_pairs(loops, x, hval, skip, "imag", 0.5)
+    if qr.size:
+        first_dir = np.where(im[qr, qk - 1] < 0, 1, -1)
+        q_est = np.log(np.abs(_eval_points(loops, qr, np.exp(qx), second=False)[0]))
+        pi_ = np.concatenate([pi_, qr, qr])
+        pk = np.concatenate([pk, qk - 1, qk])
+        direction = np.concatenate([direction, first_dir, -first_dir])
+        lp_est = np.concatenate([lp_est, q_est, q_est])
+        xpa = np.concatenate([xpa, x[qr, qk - 1], qx])
+        xpb = np.concatenate([xpb, qx, x[qr, qk + 1]])
+        xp = np.concatenate([xp, qx, qx])
+        fpa = np.concatenate([fpa, hval[qr, qk - 1], qv])
+        force = np.concatenate([force, np.ones(2 * qr.size, dtype=bool)])
+    gm_est = np.where(lp_est < 0, -lp_est, np.inf)
+    gm_min = np.full(n, np.inf)
+    np.minimum.at(gm_min, pi_, gm_est)
+    refine = force | (np.abs(lp_est) < 1.2) | (gm_est < gm_min[pi_] + 0.35)  # 0.35 Np ≈ 3 dB
+    ri = np.flatnonzero(refine)
+    if ri.size:
+        xp[ri] = _newton_roots(neg_angle, pi_[ri], xpa[ri], xpb[ri], fpa[ri])
     wp = np.exp(xp)
-    lp = np.abs(_eval_points(loops, pi_, wp)[0]) if pi_.size else np.zeros(0)
+    lp = np.exp(lp_est)
+    if ri.size:
+        lp[ri] = np.abs(_eval_points(loops, pi_[ri], wp[ri], second=False)[0])
+    # unrefined crossings are only kept for the Nyquist count
+    pi_all, direction_all, lp_all = pi_, direction, lp
+    pi_, pk, xp, wp, lp = pi_[ri], pk[ri], xp[ri], wp[ri], lp[ri]
 
     # -- margins per design ---------------------------------------------------------------
     nan = np.full(n, np.nan)
@@ -373,7 +431,7 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     dm = nan.copy()
     pm_c = np.zeros(0)
     if gi.size:
-        phase_c = np.angle(_eval_points(loops, gi, wg)[0])
+        phase_c = np.angle(_eval_points(loops, gi, wg, second=False)[0])
         pm_c = np.degrees(phase_c) + 180.0
         pm_c = np.where(pm_c > 180.0, pm_c - 360.0, pm_c)
         order = np.lexsort((pm_c, gi))
@@ -403,8 +461,7 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
         np.maximum.at(tmp, pi_, lg)
         lgm_db = np.where(np.isfinite(tmp), tmp, np.nan)
 
-    _pm_all = pm_c[: gi.size - ei.size]
-    gk = gk[: _pm_all.size]
+    _pm_all = pm_c
 
     # crossovers list (ascending), padded
     if gi.size:
@@ -426,9 +483,10 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     # extra peak candidates: the closest approaches to −1 lie near phase crossovers
     # with |L| near 1 and near gain crossovers with a small phase margin
     near_p = (lp > 0.3) & (lp < 3.0) if pi_.size else np.zeros(0, dtype=bool)
-    ex_rows = np.concatenate([pi_[near_p], gi[: gi.size - ei.size][np.abs(_pm_all) < 60.0]])
-    ex_k = np.concatenate([pk[near_p], gk[np.abs(_pm_all) < 60.0]])
-    ex_x = np.concatenate([xp[near_p], xg[: gi.size - ei.size][np.abs(_pm_all) < 60.0]])
+    small_pm = np.abs(_pm_all) < 60.0
+    ex_rows = np.concatenate([pi_[near_p], gi[small_pm]])
+    ex_k = np.concatenate([pk[near_p], gk[small_pm]])
+    ex_x = np.concatenate([xp[near_p], xg[small_pm]])
     extra = (ex_rows, ex_k, ex_x)
     ms, ms_w = _peak(loops, grid, x, np.abs(1.0 + lval), extra, inverse=False)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -458,9 +516,9 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     poles = loops.poles
     p_rhp = np.sum(poles.real > 0, axis=1)
     n_cw = np.zeros(n, dtype=int)
-    if pi_.size:
-        left = lp > 1.0
-        np.add.at(n_cw, pi_[left], 2 * direction[left])
+    if pi_all.size:
+        left = lp_all > 1.0
+        np.add.at(n_cw, pi_all[left], 2 * direction_all[left])
     # through s = 0: for m0 > 0 an infinite arc rotating clockwise by m0·π; for
     # m0 = 0 the curve passes through the real value L(0) (a crossing if L(0) < −1)
     eps_angle = np.angle(lval[:, 0])
@@ -503,6 +561,42 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
         "closed_loop_stable": stable,
         "closed_loop_rhp_poles": np.maximum(z_rhp, 0),
     }
+
+
+def _hidden_pairs(
+    loops: LoopBatch,
+    x: np.ndarray,
+    vals: np.ndarray,
+    skip: np.ndarray,
+    part: str,
+    window: float,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Grid local extrema of ``vals`` (ln|L| for part "real", the phase offset from
+    −180° for "imag") within ``window`` of 0 whose refined extremum has the other
+    sign: two crossings hide between grid points k−1 and k+1.
+
+    Returns (rows, k, ln ω of the extremum, value there) of the hidden pairs."""
+    d1 = vals[:, 1:-1] - vals[:, :-2]
+    d2 = vals[:, 2:] - vals[:, 1:-1]
+    mid = vals[:, 1:-1]
+    same = (np.sign(vals[:, :-2]) == np.sign(mid)) & (np.sign(vals[:, 2:]) == np.sign(mid))
+    cand = (d1 * d2 < 0) & (np.abs(mid) < window) & same & ~skip[:, :-1] & ~skip[:, 1:]
+    r, k = np.nonzero(cand)
+    k = k + 1
+    empty = np.zeros(0, dtype=int)
+    if r.size == 0:
+        return empty, empty, np.zeros(0), np.zeros(0)
+
+    def slope(rows: np.ndarray, xx: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        _, d, dd = _eval_points(loops, rows, np.exp(xx))
+        return (d.real, dd.real) if part == "real" else (d.imag, dd.imag)
+
+    s_lo, _ = slope(r, x[r, k - 1])
+    xe = _newton_roots(slope, r, x[r, k - 1], x[r, k + 1], s_lo)
+    val = _eval_points(loops, r, np.exp(xe), second=False)[0]
+    ve = np.log(np.abs(val)) if part == "real" else np.angle(-val)
+    hit = np.sign(ve) != np.sign(vals[r, k])
+    return r[hit], k[hit], xe[hit], ve[hit]
 
 
 def _k0(loops: LoopBatch) -> np.ndarray:
