@@ -412,7 +412,11 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     gm_est = np.where(lp_est < 0, -lp_est, np.inf)
     gm_min = np.full(n, np.inf)
     np.minimum.at(gm_min, pi_, gm_est)
-    refine = force | (np.abs(lp_est) < 1.2) | (gm_est < gm_min[pi_] + 0.35)  # 0.35 Np ≈ 3 dB
+    lgm_est = np.where(lp_est > 0, lp_est, np.inf)
+    lgm_min = np.full(n, np.inf)
+    np.minimum.at(lgm_min, pi_, lgm_est)
+    refine = force | (np.abs(lp_est) < 1.2)  # Nyquist side and Ms candidates
+    refine |= (gm_est < gm_min[pi_] + 0.35) | (lgm_est < lgm_min[pi_] + 0.35)  # 0.35 Np ≈ 3 dB
     ri = np.flatnonzero(refine)
     if ri.size:
         xp[ri] = _newton_roots(neg_angle, pi_[ri], xpa[ri], xpb[ri], fpa[ri])
