@@ -1,0 +1,193 @@
+"""One design → every METRICS key of interface.md, and the target check.
+
+:func:`design_metrics` joins the frequency metrics (:mod:`explorer.metrics`) and the
+step metrics (:mod:`explorer.timeresp`); :func:`meets_targets` applies the reading
+of interface.md ("meets_targets is true when ...") and says why a design misses;
+:func:`design_record` builds the JSON DESIGN object.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from explorer.loop import Rational
+from explorer.metrics import frequency_metrics
+from explorer.study import LIMIT_KEYS, Targets
+
+__all__ = [
+    "METRIC_KEYS",
+    "METRIC_UNITS",
+    "CROSSOVER_REL_TOL",
+    "PHASE_MARGIN_TOL_DEG",
+    "design_metrics",
+    "meets_targets",
+    "describe_structure",
+    "design_record",
+]
+
+#: interface.md METRICS keys, in the order the tables show them.
+METRIC_KEYS = (
+    "crossover_rad_s",
+    "crossovers_rad_s",
+    "phase_margin_deg",
+    "gain_margin_db",
+    "phase_crossover_rad_s",
+    "delay_margin_s",
+    "sensitivity_peak",
+    "complementary_peak",
+    "closed_loop_stable",
+    "overshoot_pct",
+    "settling_time_s",
+    "rise_time_s",
+    "peak_control",
+    "hf_gain",
+    "integral_gain",
+    "iae_load",
+)
+
+#: Display name and unit of each key (tables, report).
+METRIC_UNITS: dict[str, tuple[str, str]] = {
+    "crossover_rad_s": ("crossover", "rad/s"),
+    "crossovers_rad_s": ("all crossovers", "rad/s"),
+    "phase_margin_deg": ("phase margin", "deg"),
+    "gain_margin_db": ("gain margin", "dB"),
+    "phase_crossover_rad_s": ("phase crossover", "rad/s"),
+    "lower_gain_margin_db": ("lower gain margin", "dB"),
+    "delay_margin_s": ("delay margin", "s"),
+    "sensitivity_peak": ("Ms", "-"),
+    "complementary_peak": ("Mt", "-"),
+    "closed_loop_stable": ("stable", ""),
+    "overshoot_pct": ("overshoot", "%"),
+    "settling_time_s": ("settling 2 %", "s"),
+    "rise_time_s": ("rise 10-90 %", "s"),
+    "peak_control": ("peak |u|", "-"),
+    "hf_gain": ("hf gain |C(j inf)|", "-"),
+    "integral_gain": ("integral gain", "1/s"),
+    "iae_load": ("IAE load step", "-"),
+}
+
+#: interface.md: a numeric target crossover must be a gain crossover within this.
+CROSSOVER_REL_TOL = 1e-4
+#: interface.md: the phase-margin target is met down to target − 0.05°.
+PHASE_MARGIN_TOL_DEG = 0.05
+
+_TIME_KEYS = ("overshoot_pct", "settling_time_s", "rise_time_s", "peak_control", "iae_load")
+
+
+def design_metrics(plant: Rational, comp: Rational) -> dict[str, Any]:
+    """Every METRICS key (None = null) plus the extras ``lower_gain_margin_db``,
+    ``sensitivity_peak_rad_s``, ``complementary_peak_rad_s``, ``closed_loop_rhp_poles``
+    and ``final_value``. Time-domain keys are None when the closed loop is unstable."""
+    from explorer.timeresp import step_metrics
+
+    out = frequency_metrics(plant, comp)
+    stable = bool(out["closed_loop_stable"])
+    if stable:
+        tm = step_metrics(plant, comp, stable=True)
+    else:
+        tm = {key: None for key in (*_TIME_KEYS, "final_value")}
+    for key in (*_TIME_KEYS, "final_value"):
+        value = tm.get(key)
+        out[key] = None if value is None or not math.isfinite(float(value)) else float(value)
+    return {key: out.get(key) for key in (*METRIC_KEYS, *sorted(set(out) - set(METRIC_KEYS)))}
+
+
+def meets_targets(
+    metrics: dict[str, Any],
+    targets: Targets,
+    limits: dict[str, float],
+    loop_integrators: int,
+) -> tuple[bool, list[str]]:
+    """interface.md's test, with the reasons a design misses (empty when it meets).
+
+    A lower-bound limit on a margin that is null ("does not exist": no crossover or
+    no phase crossover, i.e. infinite) holds; an upper-bound limit on a null value
+    (unstable, improper, never settles) fails.
+    """
+    why: list[str] = []
+    if not metrics.get("closed_loop_stable"):
+        why.append("closed loop unstable")
+    if loop_integrators < targets.integrators:
+        why.append(f"loop has {loop_integrators} integrator(s), needs {targets.integrators}")
+    wc = targets.crossover_rad_s
+    xs = metrics.get("crossovers_rad_s") or []
+    if isinstance(wc, (int, float)):
+        if not any(abs(x / wc - 1.0) <= CROSSOVER_REL_TOL for x in xs):
+            got = ", ".join(f"{x:.4g}" for x in xs) or "none"
+            why.append(f"crossover {wc:.4g} rad/s not among the gain crossovers ({got})")
+    elif isinstance(wc, tuple):
+        c = metrics.get("crossover_rad_s")
+        if c is None or not (wc[0] <= c <= wc[1]):
+            why.append(f"crossover {c if c is None else f'{c:.4g}'} outside [{wc[0]:.4g}, {wc[1]:.4g}] rad/s")
+    pm_t = targets.phase_margin_deg
+    if pm_t is not None:
+        pm = metrics.get("phase_margin_deg")
+        if pm is None or pm < pm_t - PHASE_MARGIN_TOL_DEG:
+            why.append(f"phase margin {'none' if pm is None else f'{pm:.2f}'} deg < target {pm_t:.2f} deg")
+    for key, bound in limits.items():
+        value = metrics.get(key)
+        kind = LIMIT_KEYS[key]
+        unit = METRIC_UNITS.get(key, (key, ""))[1]
+        if kind == "upper":
+            if value is None or value > bound:
+                why.append(f"{key} {_fmt(value)} > limit {bound:g} {unit}".rstrip())
+        elif value is not None and value < bound:
+            why.append(f"{key} {_fmt(value)} < limit {bound:g} {unit}".rstrip())
+    return (not why), why
+
+
+def _fmt(v: Any) -> str:
+    return "none" if v is None else f"{float(v):.4g}"
+
+
+def describe_structure(comp: Rational) -> str:
+    """A short label of a compensator's structure, from its roots: integrators,
+    real zeros/poles, complex pairs. E.g. ``I + 2z/1p``, ``P + 1z/1p``, ``I + notch``."""
+    n_int = sum(1 for p in comp.poles if p == 0)
+    n_dif = sum(1 for z in comp.zeros if z == 0)
+    rz = sum(1 for z in comp.zeros if z != 0 and z.imag == 0)
+    rp = sum(1 for p in comp.poles if p != 0 and p.imag == 0)
+    cz = sum(1 for z in comp.zeros if z.imag > 0)
+    cp = sum(1 for p in comp.poles if p.imag > 0)
+    head = {0: "P", 1: "I", 2: "I2"}.get(n_int, f"I{n_int}")
+    parts = [head]
+    if n_dif:
+        parts.append(f"{n_dif}s")
+    if rz or rp:
+        parts.append(f"{rz}z/{rp}p")
+    if cz:
+        parts.append("notch" if cz == 1 else f"{cz} zero pairs")
+    if cp:
+        parts.append(f"{cp} pole pair{'s' if cp > 1 else ''}")
+    return " + ".join(parts)
+
+
+def design_record(
+    *,
+    name: str,
+    origin: str,
+    structure: str,
+    comp: Rational,
+    metrics: dict[str, Any],
+    meets: bool | None,
+    pareto: bool | None = None,
+    reasons: list[str] | None = None,
+    extra: dict[str, Any] | None = None,
+) -> dict[str, Any]:
+    """The interface.md DESIGN object (plus ``misses``: the reasons, and extras)."""
+    rec: dict[str, Any] = {
+        "name": name,
+        "origin": origin,
+        "structure": structure,
+        "order": comp.order,
+        "compensator": comp.to_dict(),
+        "meets_targets": meets,
+        "pareto": pareto,
+        "metrics": metrics,
+    }
+    if reasons is not None:
+        rec["misses"] = reasons
+    if extra:
+        rec.update(extra)
+    return rec
