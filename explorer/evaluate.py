@@ -128,7 +128,7 @@ def meets_targets(
     for key, bound in limits.items():
         value = metrics.get(key)
         kind = LIMIT_KEYS[key]
-        unit = METRIC_UNITS.get(key, (key, ""))[1]
+        unit = METRIC_UNITS.get(key, (key, ""))[1].strip("-")
         if kind == "upper":
             if value is None or value > bound:
                 why.append(f"{key} {_fmt(value)} > limit {bound:g} {unit}".rstrip())

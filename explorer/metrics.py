@@ -605,8 +605,8 @@ def _hidden_pairs(
 
 def _k0(loops: LoopBatch) -> np.ndarray:
     """L(0) of a loop with no net pole or zero at the origin (real)."""
-    z = np.where(loops.zeros == 0, -1.0, -loops.zeros)
-    p = np.where(loops.poles == 0, -1.0, -loops.poles)
+    z = np.where(loops.zeros == 0, 1.0, -loops.zeros)
+    p = np.where(loops.poles == 0, 1.0, -loops.poles)
     return (loops.gain * np.prod(z, axis=1) / np.prod(p, axis=1)).real
 
 
@@ -685,8 +685,8 @@ def _compensator_batch(
         hf = np.zeros(n)
     n_p0 = np.sum(poles == 0, axis=1)
     n_z0 = np.sum(zeros == 0, axis=1)
-    z = np.where(zeros == 0, -1.0, -zeros)
-    p = np.where(poles == 0, -1.0, -poles)
+    z = np.where(zeros == 0, 1.0, -zeros)
+    p = np.where(poles == 0, 1.0, -poles)
     ki = (gain * np.prod(z, axis=1) / np.prod(p, axis=1)).real
     ki = np.where((n_p0 == 1) & (n_z0 == 0), ki, np.nan)
     return {"hf_gain": hf, "integral_gain": ki}

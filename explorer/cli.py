@@ -1,0 +1,279 @@
+"""The ``loopscout`` command line: the only module that prints or exits.
+
+Every bad input becomes one line on stderr and exit status 2 (``--debug`` shows the
+traceback); ``--json`` prints exactly one JSON object on stdout.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+import traceback
+from collections.abc import Callable, Sequence
+from typing import Any, NoReturn
+
+from explorer.errors import LoopscoutError
+from explorer.evaluate import METRIC_UNITS
+
+__all__ = ["main", "build_parser"]
+
+CAUTION = (
+    "Caution: results are model-based. Validate on the real system with limits and "
+    "interlocks in place; defer to applicable codes, standards and licensed practice."
+)
+
+_EXAMPLES = """\
+examples:
+  loopscout check studies/kiln_damper.toml
+  loopscout check studies/dome_drive.toml --json > dome.json
+"""
+
+
+class _OneLineParser(argparse.ArgumentParser):
+    """argparse with a one-line error (and exit status 2)."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _OneLineParser(
+        prog="loopscout",
+        description=(
+            "Design and compare single-loop compensators: loop metrics with the delay "
+            "included, phase-balanced hand designs, optimized structures, trade-off reports."
+        ),
+        epilog=_EXAMPLES + "\n" + CAUTION,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_OneLineParser)
+
+    check = sub.add_parser(
+        "check",
+        help="evaluate every [[compensator]] of a study on its plant",
+        description=(
+            "Evaluate each [[compensator]] of STUDY on the study's plant: crossovers, "
+            "margins, Ms/Mt, Nyquist stability with the delay, step-response figures, "
+            "and whether it meets the targets and limits."
+        ),
+        epilog="example:\n  loopscout check studies/kiln_damper.toml --json\n\n" + CAUTION,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    check.add_argument("study", metavar="STUDY", help="study file (TOML), see docs/study-file.md")
+    check.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+    check.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    check.set_defaults(run=_cmd_check)
+    return parser
+
+
+# --------------------------------------------------------------------------------------
+# commands
+# --------------------------------------------------------------------------------------
+def _study_header(study: Any) -> dict[str, Any]:
+    t = study.targets
+    wc = list(t.crossover_rad_s) if isinstance(t.crossover_rad_s, tuple) else t.crossover_rad_s
+    return {
+        "name": study.name,
+        "source": study.source,
+        "plant": study.plant.to_dict() | {"delay": study.plant.delay_s},
+        "targets": {
+            "crossover_rad_s": wc,
+            "phase_margin_deg": t.phase_margin_deg,
+            "integrators": t.integrators,
+            "derived_from": list(t.derived_from),
+        },
+        "limits": dict(study.limits),
+    }
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from explorer.evaluate import describe_structure, design_metrics, design_record, meets_targets
+    from explorer.study import load_study
+
+    study = load_study(args.study)
+    if not study.compensators:
+        raise LoopscoutError(f"{study.source}: no [[compensator]] entries to check")
+    designs = []
+    for entry in study.compensators:
+        comp = entry.compensator
+        metrics = design_metrics(study.plant, comp)
+        loop_int = study.plant.n_integrators + comp.n_integrators
+        ok, why = meets_targets(metrics, study.targets, study.limits, loop_int)
+        designs.append(
+            design_record(
+                name=entry.name,
+                origin="given",
+                structure=describe_structure(comp),
+                comp=comp,
+                metrics=metrics,
+                meets=ok,
+                pareto=None,
+                reasons=why,
+            )
+        )
+    if args.json:
+        _print_json({"designs": designs, "study": _study_header(study), "caution": CAUTION})
+    else:
+        _print_study(study)
+        print(_design_table(designs))
+        for d in designs:
+            if d["misses"]:
+                print(f"  {d['name']} misses: " + "; ".join(d["misses"]))
+        print()
+        print(CAUTION)
+    return 0
+
+
+# --------------------------------------------------------------------------------------
+# output helpers
+# --------------------------------------------------------------------------------------
+def _clean(obj: Any) -> Any:
+    """JSON-safe: non-finite floats → null, tuples → lists, numpy scalars → Python."""
+    if isinstance(obj, dict):
+        return {str(k): _clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_clean(v) for v in obj]
+    if isinstance(obj, bool) or obj is None or isinstance(obj, str):
+        return obj
+    if hasattr(obj, "item"):
+        obj = obj.item()
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    return obj
+
+
+def _print_json(obj: dict[str, Any]) -> None:
+    sys.stdout.write(json.dumps(_clean(obj), indent=2, allow_nan=False) + "\n")
+
+
+def _print_study(study: Any) -> None:
+    t = study.targets
+    print(f"study: {study.name}  ({study.source})")
+    p = study.plant
+    print(f"plant: {_factored(p.gain, p.zeros, p.poles)}" + (f" * exp(-{p.delay_s:g} s)" if p.delay_s else ""))
+    wc = t.crossover_rad_s
+    wc_s = "free" if wc is None else (f"[{wc[0]:.4g}, {wc[1]:.4g}]" if isinstance(wc, tuple) else f"{wc:.4g}")
+    pm_s = "none" if t.phase_margin_deg is None else f"{t.phase_margin_deg:.2f} deg"
+    print(f"targets: crossover {wc_s} rad/s, phase margin {pm_s}, loop integrators >= {t.integrators}")
+    for line in t.derived_from:
+        print(f"  converted: {line}")
+    if study.limits:
+        print("limits: " + ", ".join(f"{k} {v:g}" for k, v in study.limits.items()))
+    print()
+
+
+def _factored(gain: float, zeros: Sequence[complex], poles: Sequence[complex]) -> str:
+    def fac(roots: Sequence[complex]) -> str:
+        out = []
+        for r in roots:
+            if r.imag < 0:
+                continue
+            if r == 0:
+                out.append("s")
+            elif r.imag == 0:
+                out.append(f"(s{-r.real:+.4g})")
+            else:
+                out.append(f"(s^2{-2 * r.real:+.4g}s{abs(r) ** 2:+.4g})")
+        return "".join(out) or "1"
+
+    num, den = fac(zeros), fac(poles)
+    text = f"{gain:.6g}" + (f" {num}" if num != "1" else "")
+    return text + (f" / {den}" if den != "1" else "")
+
+
+def _fmt_value(key: str, value: Any) -> str:
+    if value is None:
+        return "-"
+    if isinstance(value, bool):
+        return "yes" if value else "NO"
+    if isinstance(value, list):
+        return ", ".join(f"{v:.4g}" for v in value) or "-"
+    if isinstance(value, int):
+        return str(value)
+    return f"{value:.4g}"
+
+
+_TABLE_ROWS = (
+    "crossover_rad_s",
+    "crossovers_rad_s",
+    "phase_margin_deg",
+    "gain_margin_db",
+    "phase_crossover_rad_s",
+    "lower_gain_margin_db",
+    "delay_margin_s",
+    "sensitivity_peak",
+    "complementary_peak",
+    "closed_loop_stable",
+    "overshoot_pct",
+    "settling_time_s",
+    "rise_time_s",
+    "peak_control",
+    "iae_load",
+    "hf_gain",
+    "integral_gain",
+)
+
+
+def _design_table(designs: list[dict[str, Any]]) -> str:
+    """Metrics as rows, designs as columns, with units."""
+    head = ["", *[d["name"] for d in designs]]
+    rows = [
+        ["structure", *[d["structure"] for d in designs]],
+        ["order", *[str(d["order"]) for d in designs]],
+        ["compensator", *[_factored_dict(d["compensator"]) for d in designs]],
+    ]
+    for key in _TABLE_ROWS:
+        label, unit = METRIC_UNITS.get(key, (key, ""))
+        name = f"{label} [{unit}]" if unit and unit != "-" else label
+        rows.append([name, *[_fmt_value(key, d["metrics"].get(key)) for d in designs]])
+    rows.append(["meets targets", *[_fmt_value("", d["meets_targets"]) for d in designs]])
+    table = [head, *rows]
+    widths = [max(len(r[i]) for r in table) for i in range(len(head))]
+    lines = []
+    for j, r in enumerate(table):
+        lines.append("  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in enumerate(zip(r, widths, strict=True))))
+        if j == 0:
+            lines.append("  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def _factored_dict(c: dict[str, Any]) -> str:
+    return _factored(c["gain"], [complex(z) for z in c["zeros"]], [complex(p) for p in c["poles"]])
+
+
+# --------------------------------------------------------------------------------------
+# entry point
+# --------------------------------------------------------------------------------------
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "command", None):
+        parser.print_help(sys.stderr)
+        return 2
+    run: Callable[[argparse.Namespace], int] = args.run
+    try:
+        return run(args)
+    except LoopscoutError as exc:
+        if args.debug:
+            traceback.print_exc()
+        print(f"loopscout: error: {_one_line(str(exc))}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("loopscout: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # a defect: still one line unless --debug
+        if args.debug:
+            traceback.print_exc()
+        print(
+            f"loopscout: internal error: {type(exc).__name__}: {_one_line(str(exc))} "
+            "(rerun with --debug and report it)",
+            file=sys.stderr,
+        )
+        return 1
+
+
+def _one_line(text: str) -> str:
+    return " ".join(text.split())
