@@ -287,18 +287,24 @@ class LoopBatch:
         w = np.asarray(omega, dtype=float)
         w2 = np.broadcast_to(w, (self.n, w.shape[-1])) if w.ndim == 1 else w
         s = 1j * w2
-        out = np.empty(w2.shape, dtype=complex)
-        out[...] = self.gain[:, None]
-        tmp = np.empty_like(out)
+        tmp = np.empty(w2.shape, dtype=complex)
+        # numerator and denominator products separately: one complex division
+        if np.any(self.delay_s):
+            num = np.exp(-1j * w2 * self.delay_s[:, None])
+            num *= self.gain[:, None]
+        else:
+            num = np.empty(w2.shape, dtype=complex)
+            num[...] = self.gain[:, None]
         for k in range(self.zeros.shape[1]):
             np.subtract(s, self.zeros[:, k : k + 1], out=tmp)
-            out *= tmp
-        for k in range(self.poles.shape[1]):
-            np.subtract(s, self.poles[:, k : k + 1], out=tmp)
-            out /= tmp
-        if np.any(self.delay_s):
-            out *= np.exp(-1j * w2 * self.delay_s[:, None])
-        return out
+            num *= tmp
+        if self.poles.shape[1]:
+            den = s - self.poles[:, 0:1]
+            for k in range(1, self.poles.shape[1]):
+                np.subtract(s, self.poles[:, k : k + 1], out=tmp)
+                den *= tmp
+            num /= den
+        return num
 
     # -- evaluation at (row, omega) points ------------------------------------------------
     def log_mag_at(self, rows: np.ndarray, omega: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
