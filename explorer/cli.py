@@ -66,7 +66,24 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--json", action="store_true", help="print one JSON object on stdout")
     check.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
     check.set_defaults(run=_cmd_check)
+    # commands that live in their own modules register themselves here; each module
+    # exposes ``register(sub, caution)`` adding a subparser whose ``run`` default
+    # returns an exit status (and raises LoopscoutError on bad input)
+    import importlib
+
+    for name in _COMMAND_MODULES:
+        try:
+            module = importlib.import_module(name)
+        except ModuleNotFoundError as exc:
+            if exc.name != name:
+                raise
+            continue
+        module.register(sub, CAUTION)
     return parser
+
+
+#: Modules adding commands (``register(sub, caution)``), in --help order.
+_COMMAND_MODULES = ("explorer.cli_balance", "explorer.cli_explore", "explorer.cli_report")
 
 
 # --------------------------------------------------------------------------------------
