@@ -1,0 +1,1049 @@
+"""Hand-style designs: the phase-balanced (cancel-and-balance) procedure and classical
+lead, PI-plus-lead and lag baselines, each meeting a numeric crossover and phase
+margin exactly — or refused with the step that failed and by how many degrees.
+
+Every design here fixes the gain from |L(jωc)| = 1 and one or two root locations from
+the phase condition ∠L(jωc) = −180° + PM, using the exact continuous phase of
+:mod:`explorer.loop` (natural low-frequency branch, delay included as −ωτ). Each
+finished design is then checked (:func:`check_loop`): every gain crossover is found
+and the smallest phase margin must be the target, and the closed loop must be stable
+by the Nyquist criterion. A design that fails the check is refused, never returned.
+
+Sources (chapter references from memory, formulas re-derived in the tests):
+
+- Ogata, *Modern Control Engineering* 5e (2010), §7-11 lead compensation
+  (sin φm = (1 − α)/(1 + α), maximum phase at the geometric mean of zero and pole),
+  §7-12 lag compensation (zero about a decade below crossover) and Examples 7-26/7-27.
+- Åström & Murray, *Feedback Systems* (2008), §11.4 (loop shaping; lead at crossover)
+  and §9.2 (Nyquist criterion with indentations and delay).
+- Skogestad, "Simple analytic rules for model reduction and PID controller tuning",
+  *J. Process Control* 13 (2003) 291–309: the SIMC rule for a first-order-plus-delay
+  plant cancels the plant pole with the PI zero — the phase-balanced procedure
+  reproduces it exactly (tests/test_balance.py).
+
+Conventions (docs/balance.md):
+
+- **Gain sign.** The compensator gain has the sign that makes the loop's roots-form
+  gain sign (−1)^(number of right-half-plane plant zeros). For a stable plant this is
+  "positive loop DC gain" (negative feedback); for a plant with unstable real poles it
+  keeps their natural −180° each (1/(s − 1) is stabilised by a positive gain).
+- **Phase target.** On the natural branch, right-half-plane zeros start at +180° each;
+  the sign rule above leaves a multiple of 360° from them, so the target phase is
+  −180° + PM + 360°·⌊n_rhp_zeros/2⌋ (the same phase margin; interface.md reduces it).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from explorer.errors import DesignError
+from explorer.loop import ROOT_TOL, Rational
+from explorer.study import Targets
+
+__all__ = [
+    "BalanceResult",
+    "HandDesign",
+    "LoopCheck",
+    "TrimResult",
+    "phase_balanced",
+    "lead_at_crossover",
+    "pi_plus_lead",
+    "lag_for_error_constant",
+    "hand_designs",
+    "check_loop",
+    "trim_gain_for_overshoot",
+    "MAX_LEAD_BOOST_DEG",
+    "WELL_DAMPED_ZETA",
+    "NEAR_NMP_RATIO",
+    "PI_ZERO_RATIO",
+    "LAG_ZERO_RATIO",
+    "PHASE_TOL_DEG",
+]
+
+#: Largest phase one lead stage may add at crossover (common practice: about 60–65°;
+#: above that α becomes very small and the high-frequency gain 1/α very large).
+MAX_LEAD_BOOST_DEG = 65.0
+#: A complex pole pair with damping at least this (1/√2, where the resonant peak
+#: vanishes: Ogata Ch. 7, Mr = 1 for ζ ≥ 1/√2) is "well damped" and may be cancelled
+#: like a real pole; a pair below it is "lightly damped" and is cancelled only on
+#: request (``cancel_lightly_damped``).
+WELL_DAMPED_ZETA = 1.0 / math.sqrt(2.0)
+#: A stable pole counts as "near" a non-minimum-phase zero z when its modulus is
+#: within this factor of |z| (our choice: one octave either side).
+NEAR_NMP_RATIO = 2.0
+#: PI zero at ωc / PI_ZERO_RATIO (common practice: a decade below crossover).
+PI_ZERO_RATIO = 10.0
+#: Lag zero at ωc / LAG_ZERO_RATIO in the lag-lead design (common practice; Ogata §7-12).
+LAG_ZERO_RATIO = 10.0
+#: A phase surplus or shortfall smaller than this counts as exactly met.
+PHASE_TOL_DEG = 1e-6
+#: Verification tolerance on the smallest phase margin (degrees) and the crossover.
+_PM_CHECK_TOL_DEG = 1e-6
+_WC_CHECK_REL = 1e-6
+
+
+# ---------------------------------------------------------------------------------------
+# value objects
+@dataclass(frozen=True, kw_only=True)
+class LoopCheck:
+    """What :func:`check_loop` found on one loop L = C·P.
+
+    ``crossovers_rad_s`` ascending, ``phase_margins_deg`` for each (reduced into
+    (−180°, 180°]), ``closed_loop_rhp_poles`` = P + N by the Nyquist criterion,
+    ``open_loop_rhp_poles`` = P.
+    """
+
+    crossovers_rad_s: tuple[float, ...]
+    phase_margins_deg: tuple[float, ...]
+    open_loop_rhp_poles: int
+    closed_loop_rhp_poles: int
+    closed_loop_stable: bool
+    note: str | None = None
+
+    @property
+    def phase_margin_deg(self) -> float | None:
+        """Smallest phase margin over all crossovers (None without a crossover)."""
+        return min(self.phase_margins_deg) if self.phase_margins_deg else None
+
+
+@dataclass(frozen=True, kw_only=True)
+class BalanceResult:
+    """Outcome of :func:`phase_balanced`.
+
+    ``design`` is the compensator (None when refused, then ``reason`` says why and
+    ``failed_step`` names the step); ``steps`` explains every step taken;
+    ``cancelled`` lists the plant poles cancelled by compensator zeros;
+    ``balancing_pole_rad_s`` is the corner p of the balancing poles (at s = −p), None
+    if none were added; ``shortfall_deg`` is the phase missing (> 0) or in surplus
+    (< 0) when refused for phase.
+    """
+
+    design: Rational | None
+    reason: str | None
+    steps: tuple[str, ...]
+    cancelled: tuple[complex, ...] = ()
+    balancing_pole_rad_s: float | None = None
+    n_balancing_poles: int = 0
+    integrators_added: int = 0
+    failed_step: str | None = None
+    shortfall_deg: float | None = None
+    check: LoopCheck | None = None
+
+    @property
+    def ok(self) -> bool:
+        return self.design is not None
+
+
+@dataclass(frozen=True, kw_only=True)
+class HandDesign:
+    """One hand-style baseline, labelled for the design table (interface.md DESIGN).
+
+    ``origin``: "phase-balanced" or "hand"; ``structure``: our short label of the
+    compensator structure; ``compensator`` None when refused (``reason`` says why).
+    """
+
+    name: str
+    origin: str
+    structure: str
+    compensator: Rational | None
+    reason: str | None
+    steps: tuple[str, ...]
+    check: LoopCheck | None = None
+
+
+@dataclass(frozen=True, kw_only=True)
+class TrimResult:
+    """Outcome of :func:`trim_gain_for_overshoot`: the compensator with its gain scaled
+    by ``gain_factor`` so the step overshoot equals the target, and the new loop."""
+
+    compensator: Rational | None
+    reason: str | None
+    gain_factor: float | None
+    overshoot_pct: float | None
+    crossover_rad_s: float | None
+    phase_margin_deg: float | None
+    steps: tuple[str, ...] = field(default_factory=tuple)
+
+
+class _Refusal(Exception):
+    """Internal: a step failed; carries the step name and an optional phase figure."""
+
+    def __init__(self, step: str, reason: str, shortfall_deg: float | None = None) -> None:
+        super().__init__(reason)
+        self.step = step
+        self.reason = reason
+        self.shortfall_deg = shortfall_deg
+
+
+# ---------------------------------------------------------------------------------------
+# small helpers
+def _f(x: float) -> str:
+    return f"{x:.4g}"
+
+
+def _deg(x: float) -> str:
+    return f"{x:.3f}°" if abs(x) < 10 else f"{x:.2f}°"
+
+
+def _root(r: complex) -> str:
+    if r.imag == 0:
+        return _f(r.real)
+    return f"{_f(r.real)}{'+' if r.imag > 0 else '−'}{_f(abs(r.imag))}j"
+
+
+def _is_origin(r: complex) -> bool:
+    return abs(r) == 0.0
+
+
+def _is_rhp(r: complex) -> bool:
+    return r.real > ROOT_TOL * abs(r)
+
+
+def _on_axis(r: complex) -> bool:
+    return abs(r.real) <= ROOT_TOL * abs(r)
+
+
+def _phase_deg(sys: Rational, w: float) -> float:
+    return float(np.degrees(sys.phase_rad(w)[0]))
+
+
+def _abs_at(sys: Rational, w: float) -> float:
+    b = sys.batch()
+    val, _ = b.log_mag_at(np.zeros(1, dtype=np.intp), np.array([float(w)]))
+    return float(np.exp(val[0]))
+
+
+def _validate(plant: Rational, targets: Targets) -> tuple[float, float, int]:
+    """Bad input raises DesignError; a target the hand methods cannot use raises _Refusal."""
+    if not isinstance(plant, Rational):
+        raise DesignError(f"plant must be a Rational, got {type(plant).__name__}")
+    if not math.isfinite(plant.gain) or plant.gain == 0.0:
+        raise DesignError(f"plant gain must be finite and nonzero, got {plant.gain!r}")
+    if not plant.is_proper:
+        raise DesignError(f"plant is improper: {len(plant.zeros)} zeros, {len(plant.poles)} poles")
+    if not (math.isfinite(plant.delay_s) and plant.delay_s >= 0.0):
+        raise DesignError(f"plant delay must be ≥ 0 s, got {plant.delay_s!r}")
+    for r in plant.zeros + plant.poles:
+        if not (math.isfinite(r.real) and math.isfinite(r.imag)):
+            raise DesignError(f"plant root {r!r} is not finite")
+    n_int = targets.integrators
+    if isinstance(n_int, bool) or not isinstance(n_int, (int, np.integer)) or n_int < 0:
+        raise DesignError(f"targets.integrators must be a non-negative integer, got {n_int!r}")
+    wc = targets.crossover_rad_s
+    if wc is None or isinstance(wc, tuple):
+        what = "absent" if wc is None else f"a range {wc}"
+        raise _Refusal(
+            "targets",
+            f"the crossover target is {what}; the hand methods need one numeric crossover "
+            "(rad/s) and a numeric phase margin",
+        )
+    pm = targets.phase_margin_deg
+    if pm is None:
+        raise _Refusal(
+            "targets",
+            "no phase-margin target; the hand methods need one numeric crossover and a "
+            "numeric phase margin",
+        )
+    wc = float(wc)
+    pm = float(pm)
+    if not (math.isfinite(wc) and wc > 0):
+        raise DesignError(f"targets.crossover must be a positive number of rad/s, got {wc!r}")
+    if not (math.isfinite(pm) and 0.0 < pm < 180.0):
+        raise DesignError(f"targets.phase_margin must be in (0, 180) deg, got {pm!r}")
+    return wc, pm, int(n_int)
+
+
+def _gain_sign(plant: Rational) -> int:
+    """Sign of the compensator gain: loop roots-form gain sign = (−1)^n_rhp_zeros."""
+    n_rhp_z = sum(1 for z in plant.zeros if _is_rhp(z))
+    want = -1 if n_rhp_z % 2 else 1
+    return want if plant.gain > 0 else -want
+
+
+def _target_phase_deg(plant: Rational, pm: float) -> float:
+    n_rhp_z = sum(1 for z in plant.zeros if _is_rhp(z))
+    return -180.0 + pm + 360.0 * (n_rhp_z // 2)
+
+
+def _sign_step(plant: Rational, sign: int) -> str:
+    n_rhp_z = sum(1 for z in plant.zeros if _is_rhp(z))
+    n_rhp_p = sum(1 for p in plant.poles if _is_rhp(p))
+    why = []
+    if n_rhp_z:
+        why.append(f"{n_rhp_z} right-half-plane zero(s)")
+    if n_rhp_p:
+        why.append(f"{n_rhp_p} right-half-plane pole(s)")
+    ctx = f" ({', '.join(why)})" if why else ""
+    return (
+        f"gain sign: {'positive' if sign > 0 else 'negative'} compensator gain, so the loop "
+        f"has its natural low-frequency phase{ctx} (plant gain {_f(plant.gain)}, "
+        f"DC gain {_f(plant.dc_gain())})"
+    )
+
+
+def _integrator_step(plant: Rational, required: int, provided_by_comp: int = 0) -> tuple[int, str]:
+    """Origin poles to add so the loop has at least ``required`` integrators."""
+    plant_int = plant.n_integrators
+    origin_zeros = sum(1 for z in plant.zeros if _is_origin(z))
+    need = required - plant_int - provided_by_comp
+    if origin_zeros and (required > plant_int or provided_by_comp > 0):
+        raise _Refusal(
+            "integrators",
+            f"the plant has {origin_zeros} zero(s) at s = 0; a compensator pole at s = 0 "
+            "would cancel it (an unstable hidden mode), so the loop cannot get the "
+            f"required {required} integrator(s)",
+        )
+    add = max(0, need)
+    line = (
+        f"integrators: the plant has {plant_int}, the loop needs {required}"
+        + (f", the structure brings {provided_by_comp}" if provided_by_comp else "")
+        + (f": add {add} pole(s) at s = 0" if add else ": none added")
+    )
+    return add, line
+
+
+def _set_gain(plant: Rational, sign: int, zeros: Sequence[complex], poles: Sequence[complex],
+              wc: float) -> Rational:
+    unit = Rational(gain=float(sign), zeros=tuple(zeros), poles=tuple(poles))
+    mag = _abs_at(plant * unit, wc)
+    if not (math.isfinite(mag) and mag > 0):
+        raise _Refusal("gain", f"|C·P(jωc)| is {mag} at ωc = {_f(wc)} rad/s; no gain sets it to 1")
+    return Rational(gain=sign / mag, zeros=tuple(zeros), poles=tuple(poles))
+
+
+def _verify(plant: Rational, comp: Rational, wc: float, pm: float) -> tuple[LoopCheck, str]:
+    """Run :func:`check_loop`; refuse when the design misses the targets."""
+    loop = plant * comp
+    chk = check_loop(loop)
+    xs = chk.crossovers_rad_s
+    if not xs or min(abs(w / wc - 1) for w in xs) > _WC_CHECK_REL:
+        raise _Refusal("check", f"ωc = {_f(wc)} rad/s is not a gain crossover of the design "
+                                f"(found {[_f(w) for w in chk.crossovers_rad_s]})")
+    i_min = int(np.argmin(chk.phase_margins_deg))
+    pm_min = chk.phase_margins_deg[i_min]
+    if pm_min < pm - _PM_CHECK_TOL_DEG:
+        w_bad = chk.crossovers_rad_s[i_min]
+        raise _Refusal(
+            "check",
+            f"the design has another gain crossover at {_f(w_bad)} rad/s with phase margin "
+            f"{_deg(pm_min)}, {_deg(pm - pm_min)} below the target",
+            shortfall_deg=pm - pm_min,
+        )
+    if not chk.closed_loop_stable:
+        extra = f" ({chk.note})" if chk.note else ""
+        raise _Refusal(
+            "check",
+            f"the closed loop would be unstable: {chk.closed_loop_rhp_poles} closed-loop "
+            f"right-half-plane pole(s) by the Nyquist count{extra}",
+        )
+    others = len(chk.crossovers_rad_s) - 1
+    line = (
+        f"check: {len(chk.crossovers_rad_s)} gain crossover(s)"
+        + (f" ({others} besides ωc, all with larger margins)" if others else " (ωc only)")
+        + f", smallest phase margin {pm_min:.4f}°, closed loop stable "
+        f"(Nyquist: P = {chk.open_loop_rhp_poles}, Z = {chk.closed_loop_rhp_poles})"
+    )
+    return chk, line
+
+
+# ---------------------------------------------------------------------------------------
+# the phase-balanced procedure
+def phase_balanced(plant: Rational, targets: Targets, *,
+                   cancel_lightly_damped: bool = False) -> BalanceResult:
+    """Cancel-and-balance design for a numeric crossover ωc and phase margin PM.
+
+    1. Add poles at s = 0 until the loop has ``targets.integrators`` (the plant's own
+       count).
+    2. Cancel the slowest admissible plant poles with compensator zeros, one at a time
+       (a complex pair as a pair), only while the loop phase at ωc is short of the
+       target −180° + PM. Never cancelled: unstable poles, poles on the imaginary axis,
+       poles within a factor :data:`NEAR_NMP_RATIO` of a right-half-plane zero, and
+       complex pairs with ζ < :data:`WELL_DAMPED_ZETA` unless ``cancel_lightly_damped``.
+    3. Add as many real poles as zeros were added, all at s = −p with
+       p = ωc / tan(surplus / n), so the phase at ωc is exactly the target.
+    4. Set the gain so |L(jωc)| = 1 (sign: module docstring).
+    5. Check every crossover and the Nyquist count; refuse if the targets are missed.
+
+    Refusals (``design`` None, ``reason`` and ``failed_step`` set): non-numeric
+    targets, a phase shortfall after all admissible cancellations (``shortfall_deg``
+    > 0, with the delay's and the right-half-plane zeros' lag itemised), a phase
+    surplus with no added zero to spend it on (``shortfall_deg`` < 0), or a design
+    that fails the check. Bad input (improper plant, ωc ≤ 0, ...) raises DesignError.
+    """
+    steps: list[str] = []
+    cancelled: list[complex] = []
+    try:
+        wc, pm, required = _validate(plant, targets)
+        target = _target_phase_deg(plant, pm)
+        steps.append(
+            f"targets: crossover {_f(wc)} rad/s, phase margin {_f(pm)}°: the loop phase at "
+            f"ωc must be {_deg(target)} and |L(jωc)| = 1"
+        )
+        sign = _gain_sign(plant)
+        steps.append(_sign_step(plant, sign))
+        n_add, line = _integrator_step(plant, required)
+        steps.append(line)
+        c_zeros: list[complex] = []
+        c_poles: list[complex] = [0j] * n_add
+
+        def phase_now() -> float:
+            return _phase_deg(plant * Rational(gain=float(sign), zeros=tuple(c_zeros),
+                                               poles=tuple(c_poles)), wc)
+
+        phi = phase_now()
+        steps.append(f"phase at ωc with the integrators: {_deg(phi)} "
+                     + _short_or_surplus(phi, target))
+
+        candidates, skipped = _cancellation_candidates(plant, cancel_lightly_damped)
+        if skipped:
+            steps.append("not cancelled: " + "; ".join(skipped))
+        for roots, label in candidates:
+            if phi >= target - PHASE_TOL_DEG:
+                break
+            before = phi
+            c_zeros.extend(roots)
+            cancelled.extend(roots)
+            phi = phase_now()
+            steps.append(f"cancel {label} with a zero{'s' if len(roots) > 1 else ''}: "
+                         f"+{_deg(phi - before)} → {_deg(phi)} " + _short_or_surplus(phi, target))
+
+        surplus = phi - target
+        n = len(c_zeros)
+        if surplus < -PHASE_TOL_DEG:
+            raise _Refusal("cancel", _shortfall_reason(plant, wc, -surplus, n, skipped),
+                           shortfall_deg=-surplus)
+        balancing: float | None = None
+        if abs(surplus) <= PHASE_TOL_DEG:
+            steps.append(f"balance: the phase at ωc is met within {PHASE_TOL_DEG}°; "
+                         "no balancing pole needed")
+        elif n == 0:
+            raise _Refusal(
+                "balance",
+                f"phase surplus of {_deg(surplus)} at ωc with no free pole to spend it on: no "
+                f"zero was added, so no balancing pole may be (the loop would have phase "
+                f"margin {_deg(pm + surplus)}, above the target {_deg(pm)}); lower the "
+                "crossover target or raise the phase-margin target",
+                shortfall_deg=-surplus,
+            )
+        else:
+            lag_each = surplus / n
+            if not 0.0 < lag_each < 90.0:  # pragma: no cover - excluded by the stop rule
+                raise _Refusal("balance", f"each of {n} poles would need {_deg(lag_each)} of "
+                                          "lag, outside (0°, 90°)", shortfall_deg=-surplus)
+            balancing = wc / math.tan(math.radians(lag_each))
+            c_poles.extend([complex(-balancing, 0.0)] * n)
+            steps.append(
+                f"balance: surplus {_deg(surplus)} over {n} pole(s): each lags {_deg(lag_each)}, "
+                f"so p = ωc / tan({_deg(lag_each)}) = {_f(balancing)} rad/s (poles at s = "
+                f"{_f(-balancing)})"
+            )
+        comp = _set_gain(plant, sign, c_zeros, c_poles, wc)
+        steps.append(f"gain: |C·P(jωc)| = 1 gives k = {_f(comp.gain)}")
+        chk, line = _verify(plant, comp, wc, pm)
+        steps.append(line)
+        return BalanceResult(
+            design=comp, reason=None, steps=tuple(steps), cancelled=tuple(cancelled),
+            balancing_pole_rad_s=balancing, n_balancing_poles=n if balancing else 0,
+            integrators_added=n_add, check=chk,
+        )
+    except _Refusal as r:
+        steps.append(f"refused at step '{r.step}': {r.reason}")
+        return BalanceResult(
+            design=None, reason=r.reason, steps=tuple(steps), cancelled=tuple(cancelled),
+            failed_step=r.step, shortfall_deg=r.shortfall_deg,
+        )
+
+
+def _short_or_surplus(phi: float, target: float) -> str:
+    d = phi - target
+    if abs(d) <= PHASE_TOL_DEG:
+        return "(on target)"
+    return f"(short by {_deg(-d)})" if d < 0 else f"(surplus {_deg(d)})"
+
+
+def _cancellation_candidates(
+    plant: Rational, allow_light: bool
+) -> tuple[list[tuple[tuple[complex, ...], str]], list[str]]:
+    """Admissible poles in cancellation order (slowest first) and the skipped ones."""
+    nmp = [z for z in plant.zeros if _is_rhp(z)]
+    cands: list[tuple[float, tuple[complex, ...], str]] = []
+    skipped: list[str] = []
+    for p in plant.poles:
+        if p.imag < 0:
+            continue  # the conjugate of a listed pair
+        if _is_origin(p):
+            continue  # an integrator; counted in the integrator step
+        pair = (p, p.conjugate()) if p.imag > 0 else (p,)
+        name = ("pole pair " + _root(p) + "/conj.") if p.imag > 0 else f"pole {_root(p)}"
+        if _is_rhp(p):
+            skipped.append(f"{name} (unstable)")
+            continue
+        if _on_axis(p):
+            skipped.append(f"{name} (on the imaginary axis)")
+            continue
+        near = [z for z in nmp if 1.0 / NEAR_NMP_RATIO <= abs(p) / abs(z) <= NEAR_NMP_RATIO]
+        if near:
+            skipped.append(f"{name} (near the non-minimum-phase zero {_root(near[0])})")
+            continue
+        if p.imag > 0:
+            zeta = -p.real / abs(p)
+            if zeta < WELL_DAMPED_ZETA and not allow_light:
+                skipped.append(f"{name} (lightly damped, ζ = {zeta:.3g}; cancel_lightly_damped "
+                               "is off)")
+                continue
+            name += f" (ζ = {zeta:.3g})"
+        cands.append((abs(p), pair, name))
+    cands.sort(key=lambda c: c[0])
+    return [(c[1], c[2]) for c in cands], skipped
+
+
+def _shortfall_reason(plant: Rational, wc: float, short: float, n_cancelled: int,
+                      skipped: Sequence[str]) -> str:
+    parts = []
+    if plant.delay_s > 0:
+        parts.append(f"the delay takes {_deg(math.degrees(wc * plant.delay_s))}")
+    rhp = [z for z in plant.zeros if _is_rhp(z)]
+    if rhp:
+        allpass = Rational(gain=1.0, zeros=tuple(rhp), poles=tuple(-z.conjugate() for z in rhp))
+        lag = 180.0 * len(rhp) - _phase_deg(allpass, wc)
+        parts.append(f"the right-half-plane zero(s) take {_deg(lag)} more than their mirror images")
+    unstable = [p for p in plant.poles if _is_rhp(p)]
+    if unstable:
+        parts.append(f"{len(unstable)} unstable pole(s) cannot be cancelled")
+    ctx = (" (" + "; ".join(parts) + ")") if parts else ""
+    skip = f"; {len(skipped)} pole(s) not admissible" if skipped else ""
+    return (
+        f"phase at ωc = {_f(wc)} rad/s is {_deg(short)} short of the target after cancelling "
+        f"all {n_cancelled} admissible pole(s){skip}{ctx}; lower the crossover or the "
+        "phase-margin target"
+    )
+
+
+# ---------------------------------------------------------------------------------------
+# classical hand designs
+def _lead_roots(wc: float, boost_deg: float) -> tuple[float, float, float]:
+    """Lead stage with its maximum phase ``boost_deg`` at ωc: (α, zero, pole) corners,
+    sin φm = (1 − α)/(1 + α), zero at ωc·√α, pole at ωc/√α (Ogata 5e §7-11)."""
+    s = math.sin(math.radians(boost_deg))
+    alpha = (1.0 - s) / (1.0 + s)
+    return alpha, wc * math.sqrt(alpha), wc / math.sqrt(alpha)
+
+
+def _lead_step(boost: float, label: str) -> None:
+    if boost <= PHASE_TOL_DEG:
+        raise _Refusal(
+            "lead",
+            f"the phase at ωc is already {_deg(-boost)} above the target{label}; a lead only "
+            "adds phase, it cannot remove it",
+            shortfall_deg=boost,
+        )
+    if boost > MAX_LEAD_BOOST_DEG:
+        raise _Refusal(
+            "lead",
+            f"needs {_deg(boost)} of lead at ωc{label}, more than one stage gives "
+            f"({MAX_LEAD_BOOST_DEG:g}°, common practice)",
+            shortfall_deg=boost - MAX_LEAD_BOOST_DEG,
+        )
+
+
+def _hand(plant: Rational, targets: Targets, name: str, build) -> HandDesign:
+    steps: list[str] = []
+    try:
+        wc, pm, required = _validate(plant, targets)
+        target = _target_phase_deg(plant, pm)
+        steps.append(
+            f"targets: crossover {_f(wc)} rad/s, phase margin {_f(pm)}°: the loop phase at "
+            f"ωc must be {_deg(target)} and |L(jωc)| = 1"
+        )
+        sign = _gain_sign(plant)
+        steps.append(_sign_step(plant, sign))
+        structure, zeros, poles = build(plant, wc, pm, required, target, sign, steps)
+        comp = _set_gain(plant, sign, zeros, poles, wc)
+        steps.append(f"gain: |C·P(jωc)| = 1 gives k = {_f(comp.gain)}")
+        chk, line = _verify(plant, comp, wc, pm)
+        steps.append(line)
+        return HandDesign(name=name, origin="hand", structure=structure, compensator=comp,
+                          reason=None, steps=tuple(steps), check=chk)
+    except _Refusal as r:
+        steps.append(f"refused at step '{r.step}': {r.reason}")
+        return HandDesign(name=name, origin="hand", structure=_STRUCT.get(name, name),
+                          compensator=None, reason=r.reason, steps=tuple(steps))
+
+
+_STRUCT = {"lead": "lead", "PI+lead": "PI + lead", "lag": "lag"}
+
+
+def _with_integrators(n: int, label: str) -> str:
+    if n == 0:
+        return label
+    return f"{n}×integrator + {label}" if n > 1 else f"integrator + {label}"
+
+
+def lead_at_crossover(plant: Rational, targets: Targets) -> HandDesign:
+    """One lead stage with its maximum phase at ωc, plus the required integrators.
+
+    The boost is the phase missing at ωc after the integrators; α from
+    sin φm = (1 − α)/(1 + α), zero at ωc·√α, pole at ωc/√α, gain for |L(jωc)| = 1.
+    Refused when no boost is needed (phase surplus) or more than
+    :data:`MAX_LEAD_BOOST_DEG`. Source: Ogata 5e §7-11 (the lead's maximum phase
+    φm at the geometric mean of its corners).
+    """
+
+    def build(plant, wc, pm, required, target, sign, steps):
+        n_add, line = _integrator_step(plant, required)
+        steps.append(line)
+        poles: list[complex] = [0j] * n_add
+        phi = _phase_deg(plant * Rational(gain=float(sign), poles=tuple(poles)), wc)
+        boost = target - phi
+        steps.append(f"phase at ωc with the integrators: {_deg(phi)}: the lead must add "
+                     f"{_deg(boost)}")
+        _lead_step(boost, "")
+        alpha, z, p = _lead_roots(wc, boost)
+        steps.append(f"lead: α = (1 − sin φm)/(1 + sin φm) = {alpha:.5g}; zero at "
+                     f"ωc·√α = {_f(z)} rad/s, pole at ωc/√α = {_f(p)} rad/s")
+        return _with_integrators(n_add, "lead"), [complex(-z)], poles + [complex(-p)]
+
+    return _hand(plant, targets, "lead", build)
+
+
+def pi_plus_lead(plant: Rational, targets: Targets) -> HandDesign:
+    """PI with its zero at ωc / :data:`PI_ZERO_RATIO` (common practice), then one lead
+    stage with its maximum phase at ωc for the rest of the phase; gain for
+    |L(jωc)| = 1. The PI brings one integrator; more are added if the loop needs them.
+    """
+
+    def build(plant, wc, pm, required, target, sign, steps):
+        n_add, line = _integrator_step(plant, required, provided_by_comp=1)
+        steps.append(line)
+        zi = wc / PI_ZERO_RATIO
+        zeros: list[complex] = [complex(-zi)]
+        poles: list[complex] = [0j] * (n_add + 1)
+        phi = _phase_deg(plant * Rational(gain=float(sign), zeros=tuple(zeros),
+                                          poles=tuple(poles)), wc)
+        boost = target - phi
+        steps.append(f"PI: zero at ωc/{PI_ZERO_RATIO:g} = {_f(zi)} rad/s (common practice) "
+                     f"with a pole at s = 0; phase at ωc {_deg(phi)}: the lead must add "
+                     f"{_deg(boost)}")
+        _lead_step(boost, " with the PI")
+        alpha, z, p = _lead_roots(wc, boost)
+        steps.append(f"lead: α = {alpha:.5g}; zero at {_f(z)} rad/s, pole at {_f(p)} rad/s")
+        return (_with_integrators(n_add, "PI + lead"), zeros + [complex(-z)],
+                poles + [complex(-p)])
+
+    return _hand(plant, targets, "PI+lead", build)
+
+
+def _error_constant_name(m: int) -> str:
+    return {0: "Kp", 1: "Kv", 2: "Ka"}.get(m, f"K{m}")
+
+
+def lag_for_error_constant(plant: Rational, targets: Targets, error_constant: float, *,
+                           lag_zero_ratio: float = LAG_ZERO_RATIO) -> HandDesign:
+    """A lag stage (s + z)/(s + z/β) that raises the low-frequency gain to the required
+    error constant K = lim s^m L(s) (Kp for a type-0 loop, Kv for type 1, Ka for type 2;
+    m = the loop's integrators), keeping ωc and PM exact. ``error_constant`` is a
+    minimum; the design reaches it exactly when the lag is needed for it.
+
+    Two cases, by the phase S = ∠L(jωc) − target of the gain-only loop (with the
+    required integrators):
+
+    - **S > 0: lag alone.** With x = ωc/z, a = atan x and b = atan(βx), the lag's phase
+      at ωc is a − b = −S and its low- over crossover-frequency gain ratio is cos a / cos b.
+      With R = K_required / K_gain-only this gives the closed form
+      tan a = (R cos S − 1)/(R sin S) (requires R cos S > 1). If R cos S ≤ 1 the error
+      constant does not pin the lag; the zero goes a decade below ωc (common practice)
+      and β spends S (requires S < 90° − atan(ratio)), the error constant then exceeds
+      the minimum.
+    - **S ≤ 0: lag-lead.** Lag zero at ωc / ``lag_zero_ratio`` (common practice; Ogata
+      5e §7-12), β solved (brentq) so K is exact, and a lead with its maximum phase at
+      ωc adds −S plus the lag's lag (at most :data:`MAX_LEAD_BOOST_DEG`).
+
+    Refused when the gain alone (S > 0) or the lead alone (S ≤ 0) already reaches the
+    error constant (no lag needed), or when a stage's limit is exceeded.
+    """
+    if not (isinstance(error_constant, (int, float)) and not isinstance(error_constant, bool)
+            and math.isfinite(error_constant) and error_constant > 0):
+        raise DesignError(f"error_constant must be a positive number, got {error_constant!r}")
+    if not (math.isfinite(lag_zero_ratio) and lag_zero_ratio > 1.0):
+        raise DesignError(f"lag_zero_ratio must be > 1, got {lag_zero_ratio!r}")
+    k_req = float(error_constant)
+
+    def build(plant, wc, pm, required, target, sign, steps):
+        n_add, line = _integrator_step(plant, required)
+        steps.append(line)
+        poles0: list[complex] = [0j] * n_add
+        base = plant * Rational(gain=float(sign), poles=tuple(poles0))
+        m = base.n_integrators
+        kname = _error_constant_name(m)
+        phi = _phase_deg(base, wc)
+        surplus = phi - target
+        # error constant of the gain-only design that crosses at ωc
+        k0 = abs(base.dc_gain()) / _abs_at(base, wc)
+        ratio = k_req / k0
+        steps.append(
+            f"loop type {m}: the error constant is {kname} = lim s^{m}·L(s); a pure gain "
+            f"crossing at ωc gives {kname} = {_f(k0)}, the target is {_f(k_req)} "
+            f"(ratio R = {_f(ratio)}); phase at ωc {_deg(phi)} " + _short_or_surplus(phi, target)
+        )
+        if surplus > PHASE_TOL_DEG:
+            s_rad = math.radians(surplus)
+            if ratio <= 1.0:
+                raise _Refusal(
+                    "lag",
+                    f"a pure gain already gives {kname} = {_f(k0)} ≥ {_f(k_req)}: no lag is "
+                    f"needed for the error constant (the {_deg(surplus)} phase surplus remains)",
+                    shortfall_deg=-surplus,
+                )
+            if ratio * math.cos(s_rad) > 1.0:
+                a = math.atan((ratio * math.cos(s_rad) - 1.0) / (ratio * math.sin(s_rad)))
+                how = ("closed form tan a = (R cos S − 1)/(R sin S): zero at "
+                       f"ωc/{_f(math.tan(a))}, {kname} exactly {_f(k_req)}")
+            else:
+                a = math.atan(lag_zero_ratio)
+                if a + s_rad >= math.pi / 2:
+                    raise _Refusal(
+                        "lag",
+                        f"the {_deg(surplus)} phase surplus is more than a lag with its zero at "
+                        f"ωc/{lag_zero_ratio:g} can spend ({_deg(90 - math.degrees(a))}), and "
+                        f"the error constant ({kname} ≥ {_f(k_req)}) does not need more lag",
+                        shortfall_deg=-surplus,
+                    )
+                how = (f"zero at ωc/{lag_zero_ratio:g} (common practice), β spends the surplus; "
+                       f"{kname} = {_f(k0 * math.cos(a) / math.cos(a + s_rad))} ≥ {_f(k_req)}")
+            x = math.tan(a)
+            beta = math.tan(a + s_rad) / x
+            z = wc / x
+            steps.append(f"lag: spends the {_deg(surplus)} surplus; {how}; β = {_f(beta)}, "
+                         f"zero at {_f(z)} rad/s, pole at {_f(z / beta)} rad/s")
+            return (_with_integrators(n_add, "lag"), [complex(-z)],
+                    poles0 + [complex(-z / beta)])
+
+        # lag-lead
+        z = wc / lag_zero_ratio
+        xr = lag_zero_ratio
+
+        def lead_boost(beta: float) -> float:
+            return -surplus + math.degrees(math.atan(beta * xr) - math.atan(xr))
+
+        def k_of(beta: float) -> float:
+            b = lead_boost(beta)
+            alpha, _, _ = _lead_roots(wc, b) if b > 0 else (1.0, 0.0, 0.0)
+            lag_ratio = math.hypot(beta * xr, 1.0) / math.hypot(xr, 1.0)
+            return k0 * math.sqrt(alpha) * lag_ratio
+
+        k1 = k_of(1.0)
+        if k1 >= k_req:
+            raise _Refusal(
+                "lag",
+                f"the lead alone already gives {kname} = {_f(k1)} ≥ {_f(k_req)}: no lag stage "
+                "is needed (see the lead design)",
+            )
+        from scipy.optimize import brentq
+
+        hi = 2.0
+        while k_of(hi) < k_req and hi < 1e12:
+            hi *= 2.0
+        if k_of(hi) < k_req:  # pragma: no cover - K grows without bound in β
+            raise _Refusal("lag", f"no lag ratio β ≤ {hi:g} reaches {kname} = {_f(k_req)}")
+        beta = brentq(lambda b: k_of(b) - k_req, 1.0, hi, xtol=1e-14, rtol=1e-13)
+        boost = lead_boost(beta)
+        steps.append(f"lag: zero at ωc/{lag_zero_ratio:g} = {_f(z)} rad/s (common practice), "
+                     f"β = {_f(beta)} from {kname} = {_f(k_req)}, pole at {_f(z / beta)} rad/s; "
+                     f"it lags {_deg(boost + surplus)} at ωc")
+        _lead_step(boost, " with the lag")
+        alpha, zl, pl = _lead_roots(wc, boost)
+        steps.append(f"lead: adds {_deg(boost)}: α = {alpha:.5g}; zero at {_f(zl)} rad/s, "
+                     f"pole at {_f(pl)} rad/s")
+        return (_with_integrators(n_add, "lag + lead"), [complex(-z), complex(-zl)],
+                poles0 + [complex(-z / beta), complex(-pl)])
+
+    return _hand(plant, targets, "lag", build)
+
+
+def hand_designs(plant: Rational, targets: Targets, *, cancel_lightly_damped: bool = False,
+                 error_constant: float | None = None) -> list[HandDesign]:
+    """The phase-balanced design and the hand baselines (lead at crossover, PI plus
+    lead, and — with ``error_constant`` — the lag), each designed or refused."""
+    out: list[HandDesign] = []
+    res = phase_balanced(plant, targets, cancel_lightly_damped=cancel_lightly_damped)
+    out.append(HandDesign(
+        name="phase-balanced", origin="phase-balanced",
+        structure=_balanced_structure(res), compensator=res.design, reason=res.reason,
+        steps=res.steps, check=res.check,
+    ))
+    out.append(lead_at_crossover(plant, targets))
+    out.append(pi_plus_lead(plant, targets))
+    if error_constant is not None:
+        out.append(lag_for_error_constant(plant, targets, error_constant))
+    return out
+
+
+def _balanced_structure(res: BalanceResult) -> str:
+    if res.design is None:
+        return "cancel and balance"
+    parts = []
+    if res.integrators_added:
+        parts.append(_with_integrators(res.integrators_added, "").rstrip(" +"))
+    nz = len(res.cancelled)
+    if nz:
+        parts.append(f"{nz} cancelling zero{'s' if nz > 1 else ''}")
+    if res.n_balancing_poles:
+        k = res.n_balancing_poles
+        parts.append(f"{k} balancing pole{'s' if k > 1 else ''}")
+    return " + ".join(parts) if parts else "gain"
+
+
+# ---------------------------------------------------------------------------------------
+# loop check: all crossovers and the Nyquist count (independent of explorer.metrics)
+def _odd_multiples_between(a: float, b: float) -> int:
+    """Number of odd multiples of π strictly between a and b (either order)."""
+    lo, hi = (a, b) if a <= b else (b, a)
+    # (2k+1)π in (lo, hi)  ⇔  k in ((lo/π − 1)/2, (hi/π − 1)/2)
+    k_lo = math.floor((lo / math.pi - 1.0) / 2.0) + 1
+    k_hi = math.ceil((hi / math.pi - 1.0) / 2.0) - 1
+    return max(0, k_hi - k_lo + 1)
+
+
+def _signed_crossings(a: float, b: float) -> int:
+    """Clockwise (phase decreasing) crossings of odd multiples of π from a to b, minus
+    counterclockwise ones."""
+    n = _odd_multiples_between(a, b)
+    return n if b < a else -n
+
+
+def check_loop(loop: Rational) -> LoopCheck:
+    """Every gain crossover with its phase margin, and closed-loop stability of
+    1/(1 + L) by the Nyquist criterion, delay included.
+
+    Crossovers: sign changes of ln|L| on a log grid spanning the loop's root moduli
+    (with points clustered on lightly damped roots), refined by brentq. Stability:
+    Z = P + N with N the clockwise encirclements of −1, counted from the exact
+    continuous phase: on each frequency interval where |L| > 1 the net crossings of
+    the ray (−∞, −1) are the odd multiples of π between the phases at its ends (an
+    imaginary-axis pole's indentation is the natural branch's −π jump inside such an
+    interval), doubled for the mirror half, plus the passage through ω = 0 (the
+    indentation at s = 0). Sources: Nyquist, Bell Syst. Tech. J. 11 (1932); Åström &
+    Murray, *Feedback Systems* (2008) §9.2.
+    """
+    if loop.relative_degree < 0:
+        raise DesignError("the loop is improper; its Nyquist count is not defined")
+    b = loop.batch()
+    zeros = np.array(loop.zeros, dtype=complex)
+    poles = np.array(loop.poles, dtype=complex)
+    roots = np.concatenate([zeros, poles])
+    tau = loop.delay_s
+
+    def logmag(w: np.ndarray) -> np.ndarray:
+        w = np.atleast_1d(np.asarray(w, dtype=float))
+        with np.errstate(divide="ignore"):
+            return b.log_mag_at(np.zeros(w.size, dtype=np.intp), w)[0]
+
+    def phase(w: float) -> float:
+        return float(b.phase_at(np.zeros(1, dtype=np.intp), np.array([float(w)]))[0])
+
+    def phase_count(w: float) -> float:
+        # Phase for the crossing count. Exactly on a level (2k+1)π (a plot lying on the
+        # real axis), break the tie as the contour shifted an infinitesimal σ to the right
+        # would: d∠L/dσ = Im(Σ 1/(jω − z) − Σ 1/(jω − p)).
+        ph = phase(w)
+        off = (ph / math.pi - 1.0) / 2.0
+        if abs(off - round(off)) * 2.0 * math.pi < 1e-10:
+            s = 1j * w
+            with np.errstate(divide="ignore", invalid="ignore"):
+                d = np.sum(1 / (s - zeros)).imag - np.sum(1 / (s - poles)).imag
+            if np.isfinite(d) and d != 0:
+                ph += math.copysign(1e-9, d)
+        return ph
+
+    scales = [abs(r) for r in roots if abs(r) > 0]
+    if tau > 0:
+        scales.append(1.0 / tau)
+    if not scales:
+        scales = [abs(loop.gain) ** (1.0 / max(loop.n_integrators, 1)) or 1.0]
+    lo, hi = 1e-4 * min(scales), 1e4 * max(scales)
+    m0 = loop.n_integrators
+    for _ in range(40):
+        v = float(logmag(lo)[0])
+        if (m0 > 0 and v <= 0) or (m0 < 0 and v >= 0):
+            lo /= 1e3
+        else:
+            break
+    rd = loop.relative_degree
+    note = None
+    if rd > 0:
+        for _ in range(40):
+            if float(logmag(hi)[0]) >= 0:
+                hi *= 1e3
+            else:
+                break
+    hf_above = rd == 0 and abs(loop.gain) >= 1.0
+    if rd == 0 and abs(1.0 + loop.gain) < 1e-9:
+        return LoopCheck(crossovers_rad_s=(), phase_margins_deg=(), open_loop_rhp_poles=0,
+                         closed_loop_rhp_poles=-1, closed_loop_stable=False,
+                         note="ill-posed loop: 1 + L(j∞) = 0")
+
+    decades = math.log10(hi / lo)
+    grid = [np.geomspace(lo, hi, int(80 * decades) + 2)]
+    axis_freqs = []
+    for r in roots:
+        w0 = abs(r)
+        if w0 == 0:
+            continue
+        zeta = abs(r.real) / w0
+        if _on_axis(r):
+            axis_freqs.append(abs(r.imag))
+        if zeta < 0.7:
+            zc = max(zeta, 1e-9)
+            u = np.concatenate([-np.geomspace(1e-3, 40, 60), np.geomspace(1e-3, 40, 60)])
+            grid.append(abs(r.imag) * np.exp(u * zc) if abs(r.imag) > 0 else np.array([w0]))
+    w = np.unique(np.concatenate(grid))
+    w = w[(w >= lo) & (w <= hi)]
+    for wa in axis_freqs:
+        w = w[np.abs(w - wa) > 1e-12 * wa]
+    v = logmag(w)
+
+    # gain crossovers
+    from scipy.optimize import brentq
+
+    sgn = np.sign(v)
+    xs: list[float] = [float(w[i]) for i in np.flatnonzero(sgn == 0)]
+    for i in np.flatnonzero(sgn[:-1] * sgn[1:] < 0):
+        a, c = math.log(w[i]), math.log(w[i + 1])
+        if not (np.isfinite(v[i]) and np.isfinite(v[i + 1])):
+            xs.append(float(math.exp(0.5 * (a + c))))
+            continue
+        x = brentq(lambda t: float(logmag(math.exp(t))[0]), a, c, xtol=1e-15, rtol=1e-15)
+        xs.append(math.exp(x))
+    xs.sort()
+    pms = []
+    for x in xs:
+        pmv = math.degrees(phase(x)) + 180.0
+        pmv = pmv - 360.0 * math.ceil((pmv - 180.0) / 360.0)  # into (−180, 180]
+        pms.append(pmv)
+
+    # Nyquist count
+    # strictly Re > 0, the same split as the phase branches of explorer.loop
+    n_rhp = sum(1 for p in loop.poles if p.real > 0)
+    n_cw = 0
+    marginal = False
+    # runs of |L| > 1 between crossovers
+    bounds = [lo, *xs, hi]
+    above = []
+    for i in range(len(bounds) - 1):
+        inside = w[(w > bounds[i]) & (w < bounds[i + 1])]
+        probe = inside[len(inside) // 2] if inside.size else math.sqrt(bounds[i] * bounds[i + 1])
+        above.append(float(logmag(probe)[0]) > 0)
+    for i, up in enumerate(above):
+        if not up:
+            continue
+        wa, wb = bounds[i], bounds[i + 1]
+        pa = phase_count(wa)
+        if i == len(above) - 1 and hf_above:
+            if tau > 0:
+                note = "the loop gain does not roll off and the loop has a delay (neutral type)"
+                return LoopCheck(crossovers_rad_s=tuple(xs), phase_margins_deg=tuple(pms),
+                                 open_loop_rhp_poles=n_rhp, closed_loop_rhp_poles=-1,
+                                 closed_loop_stable=False, note=note)
+            pb = phase(hi * 1e6)
+            if loop.gain < 0:
+                # L(j∞) = k < −1 lies on the ray: the side it approaches from follows
+                # L(jω) ≈ k·(1 − j(Σp − Σz)/ω), i.e. Im L has the sign of Σ Re p − Σ Re z
+                level = math.pi * (2 * round((pb / math.pi - 1.0) / 2.0) + 1)
+                side = float(np.sum(poles.real) - np.sum(zeros.real))
+                pb = level - math.copysign(1e-9, side) if side != 0 else level
+                if side == 0:
+                    note = "L(jω) approaches −|k| along the real axis (degenerate count)"
+            # passage through ω = ∞ (the large arc, L ≈ its biproper limit): from the phase
+            # at +∞ to its mirror image, reflected across the nearest multiple of π
+            n_cw += _signed_crossings(pb, 2 * math.pi * round(pb / math.pi) - pb)
+        else:
+            pb = phase_count(wb)
+        n_cw += 2 * _signed_crossings(pa, pb)
+    # passage through ω = 0 (indentation when m0 > 0)
+    if above and above[0] and m0 >= 0:
+        p_lo = phase_count(lo)
+        c = math.pi * round((p_lo + m0 * math.pi / 2) / math.pi)
+        n_cw += _signed_crossings(2 * c - p_lo, p_lo)
+    z = n_rhp + n_cw
+    if any(abs(pmv) < 1e-9 for pmv in pms):
+        marginal = True
+        note = "a crossover has zero phase margin (closed-loop poles on the imaginary axis)"
+    if m0 == 0 and abs(1.0 + loop.dc_gain()) < 1e-12:
+        marginal = True
+        note = "L(0) = −1: a closed-loop pole at s = 0"
+    if z < 0:
+        note = f"inconsistent Nyquist count (P = {n_rhp}, N = {n_cw})"
+    stable = (z == 0) and not marginal
+    return LoopCheck(crossovers_rad_s=tuple(xs), phase_margins_deg=tuple(pms),
+                     open_loop_rhp_poles=n_rhp, closed_loop_rhp_poles=z,
+                     closed_loop_stable=stable, note=note)
+
+
+# ---------------------------------------------------------------------------------------
+# overshoot trim
+def trim_gain_for_overshoot(plant: Rational, compensator: Rational, overshoot_pct: float,
+                            *, factor_range: tuple[float, float] = (0.05, 20.0)) -> TrimResult:
+    """Scale the compensator gain (1-D brentq on the simulated step overshoot) until
+    the overshoot equals ``overshoot_pct``; report the new crossover and phase margin.
+
+    Needs :mod:`explorer.timeresp` (``step_metrics``); refused (``compensator`` None)
+    when the overshoot target is not bracketed inside ``factor_range`` of gain factors
+    with a stable closed loop.
+    """
+    if not (math.isfinite(overshoot_pct) and overshoot_pct > 0):
+        raise DesignError(f"overshoot target must be a positive percentage, got {overshoot_pct!r}")
+    try:
+        from explorer.timeresp import step_metrics  # lazy: optional dependency
+    except ImportError as exc:  # pragma: no cover - depends on the checkout
+        raise DesignError(f"the overshoot trim needs explorer.timeresp ({exc})") from None
+    from scipy.optimize import brentq
+
+    def scaled(f: float) -> Rational:
+        return Rational(gain=compensator.gain * f, zeros=compensator.zeros,
+                        poles=compensator.poles)
+
+    def os_of(f: float) -> float:
+        if not check_loop(plant * scaled(f)).closed_loop_stable:
+            return math.inf
+        val = step_metrics(plant, scaled(f)).get("overshoot_pct")
+        return math.inf if val is None else float(val)
+
+    steps = [f"target overshoot {_f(overshoot_pct)} %; search the gain factor in "
+             f"[{_f(factor_range[0])}, {_f(factor_range[1])}]"]
+    f_lo, f_hi = factor_range
+    o1 = os_of(1.0)
+    steps.append(f"overshoot at the design gain: {_f(o1)} %")
+    # bracket: overshoot grows with the gain for these loops; search each side of 1
+    if o1 > overshoot_pct:
+        a, b_ = f_lo, 1.0
+    else:
+        a, b_ = 1.0, f_hi
+    grid = np.geomspace(a, b_, 25)
+    vals = [os_of(float(g)) for g in grid]
+    bracket = None
+    for i in range(len(grid) - 1):
+        da, db = vals[i] - overshoot_pct, vals[i + 1] - overshoot_pct
+        if math.isfinite(vals[i]) and math.isfinite(vals[i + 1]) and da * db <= 0:
+            bracket = (float(grid[i]), float(grid[i + 1]))
+            if o1 > overshoot_pct:
+                continue  # keep the bracket nearest to 1 from below
+            break
+    if bracket is None:
+        reason = (f"no gain factor in [{_f(a)}, {_f(b_)}] gives {_f(overshoot_pct)} % "
+                  "overshoot with a stable closed loop")
+        return TrimResult(compensator=None, reason=reason, gain_factor=None, overshoot_pct=None,
+                          crossover_rad_s=None, phase_margin_deg=None, steps=tuple(steps))
+    f = brentq(lambda g: os_of(g) - overshoot_pct, *bracket, xtol=1e-10, rtol=1e-10)
+    comp = scaled(f)
+    chk = check_loop(plant * comp)
+    i = int(np.argmin(chk.phase_margins_deg)) if chk.phase_margins_deg else None
+    wc = chk.crossovers_rad_s[i] if i is not None else None
+    pm = chk.phase_margins_deg[i] if i is not None else None
+    steps.append(f"gain factor {_f(f)}: overshoot {_f(os_of(f))} %, crossover "
+                 f"{_f(wc) if wc else 'none'} rad/s, phase margin {_deg(pm) if pm else 'none'}")
+    return TrimResult(compensator=comp, reason=None, gain_factor=f, overshoot_pct=os_of(f),
+                      crossover_rad_s=wc, phase_margin_deg=pm, steps=tuple(steps))
