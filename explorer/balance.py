@@ -986,18 +986,27 @@ def check_loop(loop: Rational) -> LoopCheck:
 # ---------------------------------------------------------------------------------------
 # overshoot trim
 def trim_gain_for_overshoot(plant: Rational, compensator: Rational, overshoot_pct: float,
-                            *, factor_range: tuple[float, float] = (0.05, 20.0)) -> TrimResult:
-    """Scale the compensator gain (1-D brentq on the simulated step overshoot) until
-    the overshoot equals ``overshoot_pct``; report the new crossover and phase margin.
+                            *, factor_range: tuple[float, float] = (0.05, 20.0),
+                            n_scan: int = 41) -> TrimResult:
+    """Scale the compensator gain until the simulated unit-step overshoot equals
+    ``overshoot_pct``; report the new crossover and phase margin.
 
-    Needs :mod:`explorer.timeresp` (``step_metrics``); refused (``compensator`` None)
-    when the overshoot target is not bracketed inside ``factor_range`` of gain factors
-    with a stable closed loop.
+    The gain factor is scanned on a log grid over ``factor_range`` (one batch of step
+    responses, :func:`explorer.timeresp.step_metrics_batch`, stability from
+    :func:`check_loop`), the sign change of overshoot − target nearest to factor 1 is
+    bracketed, and brentq refines it (1-D root finding on the simulated overshoot). The
+    crossover and phase margin move with the gain: they are reported, not kept. Refused
+    (``compensator`` None) when no stable factor in the range reaches the target.
+    Needs :mod:`explorer.timeresp` (imported here, lazily).
     """
-    if not (math.isfinite(overshoot_pct) and overshoot_pct > 0):
+    if not (isinstance(overshoot_pct, (int, float)) and math.isfinite(overshoot_pct)
+            and overshoot_pct > 0):
         raise DesignError(f"overshoot target must be a positive percentage, got {overshoot_pct!r}")
+    f_lo, f_hi = (float(x) for x in factor_range)
+    if not (0 < f_lo < 1.0 < f_hi and math.isfinite(f_hi)):
+        raise DesignError(f"factor_range must satisfy 0 < low < 1 < high, got {factor_range!r}")
     try:
-        from explorer.timeresp import step_metrics  # lazy: optional dependency
+        from explorer.timeresp import step_metrics, step_metrics_batch  # lazy: optional
     except ImportError as exc:  # pragma: no cover - depends on the checkout
         raise DesignError(f"the overshoot trim needs explorer.timeresp ({exc})") from None
     from scipy.optimize import brentq
@@ -1007,43 +1016,56 @@ def trim_gain_for_overshoot(plant: Rational, compensator: Rational, overshoot_pc
                         poles=compensator.poles)
 
     def os_of(f: float) -> float:
-        if not check_loop(plant * scaled(f)).closed_loop_stable:
-            return math.inf
-        val = step_metrics(plant, scaled(f)).get("overshoot_pct")
-        return math.inf if val is None else float(val)
+        stable = check_loop(plant * scaled(f)).closed_loop_stable
+        if not stable:
+            return math.nan
+        val = step_metrics(plant, scaled(f), stable=True).get("overshoot_pct")
+        return math.nan if val is None else float(val)
 
-    steps = [f"target overshoot {_f(overshoot_pct)} %; search the gain factor in "
-             f"[{_f(factor_range[0])}, {_f(factor_range[1])}]"]
-    f_lo, f_hi = factor_range
-    o1 = os_of(1.0)
-    steps.append(f"overshoot at the design gain: {_f(o1)} %")
-    # bracket: overshoot grows with the gain for these loops; search each side of 1
-    if o1 > overshoot_pct:
-        a, b_ = f_lo, 1.0
+    factors = np.unique(np.concatenate([np.geomspace(f_lo, f_hi, n_scan), [1.0]]))
+    stable = np.array([check_loop(plant * scaled(float(f))).closed_loop_stable
+                       for f in factors])
+    n, nz, npl = factors.size, len(compensator.zeros), len(compensator.poles)
+    batch = step_metrics_batch(
+        plant, compensator.gain * factors,
+        np.tile(np.array(compensator.zeros, dtype=complex), n).reshape(n, nz),
+        np.tile(np.array(compensator.poles, dtype=complex), n).reshape(n, npl),
+        stable=stable,
+    )
+    os_vals = np.asarray(batch["overshoot_pct"], dtype=float)
+    steps = [f"target overshoot {_f(overshoot_pct)} %: scan {factors.size} gain factors in "
+             f"[{_f(f_lo)}, {_f(f_hi)}], {int(stable.sum())} with a stable closed loop"]
+    i1 = int(np.flatnonzero(factors == 1.0)[0])
+    if np.isfinite(os_vals[i1]):
+        steps.append(f"overshoot at the design gain: {_f(os_vals[i1])} %")
+    d = os_vals - overshoot_pct
+    brackets = [i for i in range(factors.size - 1)
+                if np.isfinite(d[i]) and np.isfinite(d[i + 1]) and d[i] * d[i + 1] <= 0]
+    if not brackets:
+        reason = (f"no stable gain factor in [{_f(f_lo)}, {_f(f_hi)}] gives "
+                  f"{_f(overshoot_pct)} % overshoot")
+        steps.append(f"refused: {reason}")
+        return TrimResult(compensator=None, reason=reason, gain_factor=None,
+                          overshoot_pct=None, crossover_rad_s=None, phase_margin_deg=None,
+                          steps=tuple(steps))
+    i = min(brackets, key=lambda k: abs(math.log(math.sqrt(factors[k] * factors[k + 1]))))
+    a, b_ = float(factors[i]), float(factors[i + 1])
+    if d[i] == 0:
+        f = a
+    elif d[i + 1] == 0:
+        f = b_
     else:
-        a, b_ = 1.0, f_hi
-    grid = np.geomspace(a, b_, 25)
-    vals = [os_of(float(g)) for g in grid]
-    bracket = None
-    for i in range(len(grid) - 1):
-        da, db = vals[i] - overshoot_pct, vals[i + 1] - overshoot_pct
-        if math.isfinite(vals[i]) and math.isfinite(vals[i + 1]) and da * db <= 0:
-            bracket = (float(grid[i]), float(grid[i + 1]))
-            if o1 > overshoot_pct:
-                continue  # keep the bracket nearest to 1 from below
-            break
-    if bracket is None:
-        reason = (f"no gain factor in [{_f(a)}, {_f(b_)}] gives {_f(overshoot_pct)} % "
-                  "overshoot with a stable closed loop")
-        return TrimResult(compensator=None, reason=reason, gain_factor=None, overshoot_pct=None,
-                          crossover_rad_s=None, phase_margin_deg=None, steps=tuple(steps))
-    f = brentq(lambda g: os_of(g) - overshoot_pct, *bracket, xtol=1e-10, rtol=1e-10)
+        f = brentq(lambda g: os_of(g) - overshoot_pct, a, b_, xtol=1e-12, rtol=1e-10)
     comp = scaled(f)
     chk = check_loop(plant * comp)
-    i = int(np.argmin(chk.phase_margins_deg)) if chk.phase_margins_deg else None
-    wc = chk.crossovers_rad_s[i] if i is not None else None
-    pm = chk.phase_margins_deg[i] if i is not None else None
-    steps.append(f"gain factor {_f(f)}: overshoot {_f(os_of(f))} %, crossover "
-                 f"{_f(wc) if wc else 'none'} rad/s, phase margin {_deg(pm) if pm else 'none'}")
-    return TrimResult(compensator=comp, reason=None, gain_factor=f, overshoot_pct=os_of(f),
+    k = int(np.argmin(chk.phase_margins_deg)) if chk.phase_margins_deg else None
+    wc = chk.crossovers_rad_s[k] if k is not None else None
+    pm = chk.phase_margins_deg[k] if k is not None else None
+    got = os_of(f)
+    steps.append(
+        f"gain factor {_f(f)} (bracket [{_f(a)}, {_f(b_)}], brentq): overshoot {_f(got)} %, "
+        + (f"crossover {_f(wc)} rad/s, phase margin {_deg(pm)}" if wc is not None
+           else "no gain crossover")
+    )
+    return TrimResult(compensator=comp, reason=None, gain_factor=f, overshoot_pct=got,
                       crossover_rad_s=wc, phase_margin_deg=pm, steps=tuple(steps))

@@ -677,3 +677,29 @@ def test_hand_designs_labels():
             assert_meets(plant, d.compensator, 1.5, 50.0, 1)
     assert ds[0].structure == "integrator + 1 cancelling zero + 1 balancing pole"
     assert ds[2].compensator is None and "already" in ds[2].reason  # PI eats too little
+
+
+# ---------------------------------------------------------------------------------------
+# overshoot trim (needs explorer.timeresp)
+def test_overshoot_trim_standard_second_order_loop():
+    # Standard loop k/(s(s+1)) = ωn²/(s(s + 2ζωn)): ωn = √k, ζ = 1/(2√k). Overshoot
+    # Mp = exp(−ζπ/√(1−ζ²)) (Ogata 5e Ch. 5, references.md §1) → for 20 %: ζ = 0.4559,
+    # k = 1/(4ζ²); references.md §1 [RECOMP] row 20 %: ωc/ωn = 0.8168, PM = 48.15°.
+    pytest.importorskip("explorer.timeresp")
+    from explorer.balance import trim_gain_for_overshoot
+
+    plant = Rational(gain=1.0, poles=(0.0, -1.0))
+    res = trim_gain_for_overshoot(plant, Rational(gain=1.0), 20.0)
+    assert res.compensator is not None, res.reason
+    ln = math.log(0.20)
+    zeta = -ln / math.sqrt(math.pi**2 + ln**2)
+    k = 1.0 / (4.0 * zeta**2)
+    assert res.gain_factor == pytest.approx(k, rel=2e-3)
+    assert res.overshoot_pct == pytest.approx(20.0, abs=1e-6)
+    assert res.crossover_rad_s == pytest.approx(0.8168 * math.sqrt(k), rel=2e-3)
+    assert res.phase_margin_deg == pytest.approx(48.15, abs=0.05)
+    # a target no stable gain in the range reaches: 1/(s+1)² cannot overshoot 60 %
+    # (closed-loop damping 1/√(1+k) ≥ 1/√21 for k ≤ 20, so Mp < 50 %: closed form)
+    res = trim_gain_for_overshoot(Rational(gain=1.0, poles=(-1.0, -1.0)), Rational(gain=1.0),
+                                  60.0)
+    assert res.compensator is None and "no stable gain factor" in res.reason
