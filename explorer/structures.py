@@ -1,0 +1,293 @@
+"""Compensator structures: a parameter space scaled to the crossover, mapped to roots.
+
+A structure fixes the integrators, the cancelled plant poles and how many free real
+zeros / poles (and complex zero pairs) the compensator has. Free locations are
+parameters on a log scale as ratios of the crossover ωc; one real root — the
+*balancing* root — is not a parameter: it is solved from the phase condition
+∠L(jωc) = −180° + PM (design.md, "Targets by elimination"), and the gain from
+|L(jωc)| = 1. A single real root r = −a contributes ±atan(ωc/a), so the 1-D phase
+equation has the closed-form solution a = ωc / tan(|Δ|) — the exact root that a
+bisection on atan would converge to (Åström & Murray, *Feedback Systems*, 2008,
+§11.4 on lead/lag phase; common practice).
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from explorer.loop import Rational
+from explorer.study import SearchOptions, Targets
+
+__all__ = [
+    "Structure",
+    "RootStructure",
+    "Balance",
+    "candidate_structures",
+    "balance",
+    "loop_phase_target_deg",
+    "LIGHT_DAMPING",
+]
+
+#: Plant poles with a damping ratio below this count as lightly damped (common practice).
+LIGHT_DAMPING = 0.2
+#: log10(location / ωc) bounds of free real zeros and poles, and of the balancing root.
+ZERO_BOUNDS = (-2.0, 1.0)
+POLE_BOUNDS = (-0.5, 2.0)
+BALANCE_BOUNDS = (-2.5, 2.5)
+
+
+class Structure(ABC):
+    """A compensator structure. Contract: ``label`` (our short name), ``order``
+    (number of compensator poles), ``params`` (name → (low, high) bounds; location
+    parameters are log10 ratios to ωc), ``balance_root`` ("zero" or "pole": the real
+    root solved from the phase condition) and ``roots(params, wc)`` mapping a batch of
+    parameters to zeros (n, nz) and poles (n, np) *without* the balancing root."""
+
+    label: str
+    order: int
+    balance_root: str
+
+    @property
+    @abstractmethod
+    def params(self) -> dict[str, tuple[float, float]]: ...
+
+    @abstractmethod
+    def roots(self, params: dict[str, np.ndarray], wc_rad_s: np.ndarray) -> tuple[np.ndarray, np.ndarray]: ...
+
+
+@dataclass(frozen=True, kw_only=True)
+class RootStructure(Structure):
+    """Integrators, fixed cancelling zeros, free real zeros/poles, an optional complex
+    zero pair (PID with complex zeros) or notch pair, and one balancing real root."""
+
+    label: str
+    integrators: int
+    free_zeros: int = 0
+    free_poles: int = 0
+    complex_zeros: bool = False
+    notch: tuple[float, float] | None = None  # plant mode (ωn rad/s, ζ)
+    cancel: tuple[float, ...] = ()  # plant poles (negative reals) cancelled by zeros
+    balance_root: str = "zero"
+    _p: dict[str, tuple[float, float]] = field(default_factory=dict, repr=False, compare=False)
+
+    @property
+    def order(self) -> int:  # type: ignore[override]
+        return self.integrators + self.free_poles + (self.balance_root == "pole")
+
+    @property
+    def n_zeros(self) -> int:
+        return (self.free_zeros + len(self.cancel) + 2 * self.complex_zeros + 2 * (self.notch is not None)
+                + (self.balance_root == "zero"))
+
+    @property
+    def params(self) -> dict[str, tuple[float, float]]:
+        p: dict[str, tuple[float, float]] = {}
+        for i in range(self.free_zeros):
+            p[f"zero{i + 1}"] = ZERO_BOUNDS
+        for i in range(self.free_poles):
+            p[f"pole{i + 1}"] = POLE_BOUNDS
+        if self.complex_zeros:
+            p["pair_w"] = (-1.5, 0.5)
+            p["pair_zeta"] = (0.3, 1.0)
+        if self.notch is not None:
+            p["notch_w"] = (-0.1, 0.1)  # log10 ratio to the plant mode's ωn
+            p["notch_zeta"] = (max(self.notch[1], 0.01), 0.6)
+        return p
+
+    def roots(self, params: dict[str, np.ndarray], wc_rad_s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        wc = np.asarray(wc_rad_s, float)
+        n = wc.shape[0]
+        zs: list[np.ndarray] = [np.full(n, c, dtype=complex) for c in self.cancel]
+        zs += [-(wc * 10.0 ** np.asarray(params[f"zero{i + 1}"], float)) + 0j for i in range(self.free_zeros)]
+        ps: list[np.ndarray] = [np.zeros(n, complex) for _ in range(self.integrators)]
+        ps += [-(wc * 10.0 ** np.asarray(params[f"pole{i + 1}"], float)) + 0j for i in range(self.free_poles)]
+        for key, wn_of in (("pair", lambda x: wc * 10.0 ** x), ("notch", None)):
+            if key == "pair" and not self.complex_zeros:
+                continue
+            if key == "notch":
+                if self.notch is None:
+                    continue
+                wn = self.notch[0] * 10.0 ** np.asarray(params["notch_w"], float)
+            else:
+                wn = wn_of(np.asarray(params["pair_w"], float))
+            zeta = np.clip(np.asarray(params[f"{key}_zeta"], float), 0.0, 1.0)
+            r = -zeta * wn + 1j * wn * np.sqrt(1.0 - zeta**2)
+            zs += [r, np.conj(r)]
+        z = np.stack(zs, axis=1) if zs else np.zeros((n, 0), complex)
+        p = np.stack(ps, axis=1) if ps else np.zeros((n, 0), complex)
+        return z, p
+
+
+@dataclass(frozen=True, kw_only=True)
+class Balance:
+    """Result of balancing a batch: full roots, gain, and the phase shortfall (deg,
+    0 where feasible)."""
+
+    gain: np.ndarray
+    zeros: np.ndarray
+    poles: np.ndarray
+    shortfall_deg: np.ndarray
+
+
+def _phase_deg(roots: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Sum of angle(jω − r) over a row's roots (continuous for roots with Re ≤ 0)."""
+    if roots.shape[1] == 0:
+        return np.zeros(w.shape[0])
+    return np.degrees(np.angle(1j * w[:, None] - roots)).sum(axis=1)
+
+
+def _log_mag(roots: np.ndarray, w: np.ndarray) -> np.ndarray:
+    if roots.shape[1] == 0:
+        return np.zeros(w.shape[0])
+    return np.log(np.abs(1j * w[:, None] - roots)).sum(axis=1)
+
+
+def loop_phase_target_deg(pm_deg: float | np.ndarray) -> np.ndarray:
+    return -180.0 + np.asarray(pm_deg, float)
+
+
+def balance(plant: Rational, s: Structure, params: dict[str, np.ndarray], wc_rad_s: np.ndarray,
+            pm_deg: float | np.ndarray) -> Balance:
+    """Solve the balancing root from ∠L(jωc) = −180° + PM (mod 360°) and the gain
+    from |L(jωc)| = 1, for a batch. Infeasible rows get the shortfall in degrees
+    (distance of the needed phase from what the balancing root can give within its
+    bounds) and NaN roots/gain."""
+    wc = np.asarray(wc_rad_s, float)
+    z, p = s.roots(params, wc)
+    plant_phase = np.degrees(plant.phase_rad(wc))
+    rest = plant_phase + _phase_deg(z, wc) - _phase_deg(p, wc)
+    need = np.mod(loop_phase_target_deg(pm_deg) - rest, 360.0)  # in [0, 360)
+    lo_r, hi_r = 10.0 ** BALANCE_BOUNDS[0], 10.0 ** BALANCE_BOUNDS[1]
+    # a real root at −a·ωc gives atan(1/a): between atan(1/hi_r) and atan(1/lo_r)
+    amin, amax = np.degrees(np.arctan(1.0 / hi_r)), np.degrees(np.arctan(1.0 / lo_r))
+    if s.balance_root == "zero":
+        d = need  # zero adds phase
+        d = np.where(d > 270.0, d - 360.0, d)  # small negative: too much phase already
+    else:
+        d = 360.0 - need  # pole removes phase: |Δ|
+        d = np.where(d > 270.0, d - 360.0, d)
+    short = np.where(d < amin, amin - d, np.where(d > amax, d - amax, 0.0))
+    ok = short == 0.0
+    a = np.where(ok, wc / np.tan(np.radians(np.clip(d, amin, amax))), np.nan)
+    root = -a + 0j
+    if s.balance_root == "zero":
+        z = np.concatenate([z, root[:, None]], axis=1)
+    else:
+        p = np.concatenate([p, root[:, None]], axis=1)
+    plant_lm = np.log(np.abs(plant.freqresp(wc)))
+    lm = plant_lm + _log_mag(z, wc) - _log_mag(p, wc)
+    gain = np.where(ok, np.exp(-lm), np.nan)
+    return Balance(gain=gain, zeros=z, poles=p, shortfall_deg=short)
+
+
+def _slow_stable_real_poles(plant: Rational, wc: float | None) -> list[float]:
+    out = sorted((p.real for p in plant.poles if p.imag == 0 and p.real < 0), reverse=True)
+    if wc is not None:
+        out = [p for p in out if -p < 2.0 * wc]
+    return out
+
+
+def _lightly_damped(plant: Rational) -> list[tuple[float, float]]:
+    modes = []
+    for p in plant.poles:
+        if p.imag > 0 and p.real < 0:
+            wn = abs(p)
+            zeta = -p.real / wn
+            if zeta < LIGHT_DAMPING:
+                modes.append((wn, zeta))
+    return modes
+
+
+def _label(ni: int, fz: int, fp: int, bal: str, *, cz: bool = False, notch: bool = False, nc: int = 0) -> str:
+    head = {0: "P", 1: "I"}.get(ni, f"I{ni}")
+    zeros = fz + (bal == "zero") + (2 if cz else 0)
+    poles = fp + (bal == "pole")
+    parts = []
+    if cz:
+        return f"PID·filter (complex zeros){'+roll-off' * max(poles - 1, 0)}".replace("+roll-off+roll-off", "+2 roll-off")
+    if nc:
+        parts.append("cancel" if nc == 1 else f"{nc} cancel")
+    if notch:
+        parts.append("notch")
+    lead = min(zeros, poles)
+    extra_z = zeros - lead
+    extra_p = poles - lead
+    if not nc and not notch and ni == 1 and extra_z == 1 and lead == 1:
+        base = "PID·filter"
+        lead = 0
+    elif not nc and not notch and ni >= 1 and extra_z == 1:
+        base = "PI" if ni == 1 else f"{head}·zero"
+    else:
+        base = head
+        if extra_z:
+            parts.append("zero" if extra_z == 1 else f"{extra_z} zeros")
+    if lead:
+        parts.append("lead" if lead == 1 else f"{lead} lead")
+    if extra_p:
+        parts.append("roll-off" if extra_p == 1 else f"{extra_p} roll-off")
+    return "+".join([base, *parts])
+
+
+def candidate_structures(plant: Rational, targets: Targets, search: SearchOptions) -> list[Structure]:
+    """Structures up to ``search.max_order`` compensator poles, lowest order first.
+
+    Required integrators = targets.integrators minus the plant's own. Families: real
+    lead/lag zero–pole pairs (with an optional extra zero: PI, PID with a derivative
+    filter), PID·filter with complex zeros, cancellation of the slowest stable real
+    plant poles, a notch-style zero pair on each lightly damped plant mode (ζ < 0.2,
+    when ``cancel_lightly_damped``, or always when the plant has one), and extra
+    roll-off poles. Only proper structures are returned."""
+    ni = max(targets.integrators - plant.n_integrators, 0)
+    max_order = search.max_order
+    wc = targets.crossover_rad_s if isinstance(targets.crossover_rad_s, (int, float)) else None
+    out: list[RootStructure] = []
+    seen: set[tuple] = set()
+
+    def add(s: RootStructure) -> None:
+        key = (s.integrators, s.free_zeros, s.free_poles, s.complex_zeros, s.notch, s.cancel, s.balance_root)
+        if key in seen or s.order > max_order or s.n_zeros > s.order or s.order == 0 and s.n_zeros == 0:
+            return
+        seen.add(key)
+        out.append(s)
+
+    for extra_poles in range(0, max_order - ni + 1):
+        for fz in range(0, extra_poles + ni + 1):
+            # balancing zero: zeros = fz + 1, poles = extra_poles
+            if fz + 1 <= ni + extra_poles:
+                add(RootStructure(label=_label(ni, fz, extra_poles, "zero"), integrators=ni,
+                                  free_zeros=fz, free_poles=extra_poles, balance_root="zero"))
+        # balancing pole with free zeros (a roll-off solved from phase)
+        if extra_poles >= 1:
+            fp = extra_poles - 1
+            for fz in range(0, min(ni + extra_poles, 2) + 1):
+                if fz >= 1 or ni == 0:
+                    add(RootStructure(label=_label(ni, fz, fp, "pole"), integrators=ni,
+                                      free_zeros=fz, free_poles=fp, balance_root="pole"))
+    # PID with complex zeros and a balancing filter pole (+ roll-off)
+    if ni >= 1:
+        for fp in range(0, max_order - ni):
+            add(RootStructure(label=_label(ni, 0, fp, "pole", cz=True), integrators=ni, free_poles=fp,
+                              complex_zeros=True, balance_root="pole"))
+    # cancellation of slow stable plant poles, balancing pole
+    slow = _slow_stable_real_poles(plant, wc)
+    for nc in (1, 2):
+        if len(slow) >= nc:
+            for fp in range(0, max_order - ni):
+                add(RootStructure(label=_label(ni, 0, fp, "pole", nc=nc), integrators=ni, free_poles=fp,
+                                  cancel=tuple(slow[:nc]), balance_root="pole"))
+    # notch on a lightly damped mode: two roll-off poles and a balancing zero
+    for mode in _lightly_damped(plant):
+        for fp in range(2, max_order - ni + 1):
+            add(RootStructure(label=_label(ni, 0, fp, "zero", notch=True), integrators=ni, free_poles=fp,
+                              notch=mode, balance_root="zero"))
+    # one structure per label: the same roots reached by another balancing root are dropped
+    final: list[Structure] = []
+    labels: set[str] = set()
+    for s in sorted(out, key=lambda s: (s.order, len(s.params), s.balance_root != "zero", s.label)):
+        if s.label not in labels:
+            labels.add(s.label)
+            final.append(s)
+    return sorted(final, key=lambda s: (s.order, len(s.params), s.label))
