@@ -1,0 +1,359 @@
+"""Optuna driver: one study per structure, NSGA-II, ask/tell in numpy batches.
+
+The only module that imports optuna. Each trial's free parameters are sampled, the
+balancing root and the gain are eliminated (explorer.structures.balance), and the
+batch is evaluated with ``frequency_metrics_batch`` and ``step_metrics_batch``.
+Objectives (all minimised): Ms, hf_gain, iae_load, and −ωc when the crossover is
+searched. Constraints via ``trial.set_constraint`` (feasible when all ≤ 0): phase
+balance shortfall (deg), closed-loop stability, crossover, phase margin, and every
+study limit (relative excess). NSGA-II: Deb et al., "A fast and elitist
+multiobjective genetic algorithm: NSGA-II", IEEE TEC 6(2), 2002.
+
+Resumable: per structure the trials numbered below the budget are the exploration;
+a rerun adds only the missing ones, and a trial left RUNNING by a dead worker on
+this host is re-evaluated with its stored parameters and finished (never repeated).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import socket
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+import optuna
+from optuna.distributions import FloatDistribution
+from optuna.trial import TrialState
+
+from explorer.errors import LoopscoutError
+from explorer.evaluate import CROSSOVER_REL_TOL, PHASE_MARGIN_TOL_DEG
+from explorer.loop import Rational
+from explorer.metrics import frequency_metrics_batch
+from explorer.structures import Structure, balance
+from explorer.study import LIMIT_KEYS, Targets
+
+__all__ = [
+    "Problem",
+    "TrialRecord",
+    "open_storage",
+    "study_names",
+    "create_studies",
+    "run_structures",
+    "evaluate_batch",
+    "load_records",
+    "objective_names",
+    "DEFAULT_PM_DEG",
+]
+
+optuna.logging.set_verbosity(optuna.logging.WARNING)
+
+#: Phase margin used when neither a target nor a limit gives one (common practice).
+DEFAULT_PM_DEG = 45.0
+_PENALTY = 1e9
+_WORKER = f"{socket.gethostname()}:{os.getpid()}"
+
+
+@dataclass(frozen=True, kw_only=True)
+class Problem:
+    """What every structure is tuned for: plant, targets (PM used, ωc fixed or a
+    log-range), limits."""
+
+    plant: Rational
+    targets: Targets
+    limits: dict[str, float]
+    pm_deg: float
+    wc_rad_s: float | None  # fixed crossover, or None when searched
+    wc_range_rad_s: tuple[float, float] | None
+
+    @property
+    def searched_wc(self) -> bool:
+        return self.wc_rad_s is None
+
+
+@dataclass(frozen=True, kw_only=True)
+class TrialRecord:
+    """One finished trial read back from storage."""
+
+    structure: int
+    number: int
+    state: str
+    feasible: bool
+    gain: float | None
+    zeros: tuple[complex, ...]
+    poles: tuple[complex, ...]
+    metrics: dict[str, float | None]
+    constraints: dict[str, float]
+    reason: str | None
+
+
+def objective_names(searched_wc: bool) -> list[str]:
+    return ["sensitivity_peak", "hf_gain", "iae_load"] + (["neg_crossover_rad_s"] if searched_wc else [])
+
+
+def constraint_names(limits: dict[str, float]) -> list[str]:
+    return ["phase_balance_deg", "closed_loop_unstable", "crossover_missed", "phase_margin_short_deg",
+            *[f"limit:{k}" for k in limits]]
+
+
+def evaluate_batch(problem: Problem, s: Structure, params: dict[str, np.ndarray],
+                   wc_rad_s: np.ndarray) -> dict[str, Any]:
+    """Balance and evaluate a batch. Returns ``values`` (n, m) objectives,
+    ``constraints`` (n, k), ``gain``, ``zeros``, ``poles``, ``metrics`` (dict of
+    arrays), and ``fail`` (per-row reason or None)."""
+    from explorer.timeresp import step_metrics_batch
+
+    n = wc_rad_s.shape[0]
+    b = balance(problem.plant, s, params, wc_rad_s, problem.pm_deg)
+    ok = b.shortfall_deg == 0.0
+    metrics: dict[str, np.ndarray] = {}
+    keys = ("crossover_rad_s", "phase_margin_deg", "gain_margin_db", "delay_margin_s", "sensitivity_peak",
+            "complementary_peak", "hf_gain", "integral_gain", "overshoot_pct", "settling_time_s",
+            "rise_time_s", "peak_control", "iae_load")
+    for k in keys:
+        metrics[k] = np.full(n, np.nan)
+    metrics["closed_loop_stable"] = np.zeros(n, bool)
+    fail: list[str | None] = [None] * n
+    cross_ok = np.zeros(n)
+    idx = np.flatnonzero(ok)
+    if idx.size:
+        try:
+            g, z, p = b.gain[idx], b.zeros[idx], b.poles[idx]
+            fm = frequency_metrics_batch(problem.plant, g, z, p)
+            stable = np.asarray(fm["closed_loop_stable"], bool)
+            tm = step_metrics_batch(problem.plant, g, z, p, stable=stable)
+            for k in keys:
+                src = fm if k in fm else tm
+                if k in src:
+                    metrics[k][idx] = np.asarray(src[k], float)
+            metrics["closed_loop_stable"][idx] = stable
+            xs = np.asarray(fm["crossovers_rad_s"], float).reshape(idx.size, -1)
+            rel = np.abs(xs / wc_rad_s[idx, None] - 1.0)
+            rel = np.where(np.isnan(rel), np.inf, rel)
+            cross_ok[idx] = np.maximum(rel.min(axis=1, initial=np.inf) - CROSSOVER_REL_TOL, 0.0)
+        except Exception as exc:  # a failed evaluation is a failed trial, never a crash
+            for i in idx:
+                fail[i] = f"evaluation failed: {type(exc).__name__}: {exc}"
+    stable = metrics["closed_loop_stable"]
+    pm = metrics["phase_margin_deg"]
+    cons = [
+        b.shortfall_deg,
+        np.where(ok & ~stable, 1.0, 0.0),
+        np.where(ok, np.minimum(cross_ok, 1.0), 0.0),
+        np.where(ok, np.where(np.isnan(pm), 1.0, np.maximum(problem.pm_deg - PHASE_MARGIN_TOL_DEG - pm, 0.0)),
+                 0.0),
+    ]
+    wc_t = problem.targets.crossover_rad_s
+    if isinstance(wc_t, tuple):
+        c = metrics["crossover_rad_s"]
+        out_rng = np.where(np.isnan(c), 1.0, np.maximum(wc_t[0] - c, 0) / wc_t[0] + np.maximum(c - wc_t[1], 0) / wc_t[1])
+        cons[2] = np.where(ok, np.maximum(cons[2], out_rng), 0.0)
+    for key, bound in problem.limits.items():
+        v = metrics.get(key)
+        if v is None:  # a limit on a key we do not compute in the batch: checked at the end
+            cons.append(np.zeros(n))
+            continue
+        scale = max(abs(bound), 1e-9)
+        if LIMIT_KEYS[key] == "upper":
+            c = np.where(np.isnan(v), 1.0, np.maximum(v - bound, 0.0) / scale)
+        else:  # null margin = infinite: holds
+            c = np.where(np.isnan(v), 0.0, np.maximum(bound - v, 0.0) / scale)
+        cons.append(np.where(ok, c, 0.0))
+    constraints = np.stack(cons, axis=1)
+    vals = [metrics["sensitivity_peak"], metrics["hf_gain"], metrics["iae_load"]]
+    if problem.searched_wc:
+        vals.append(-wc_rad_s)
+    values = np.stack(vals, axis=1)
+    # infeasible / unstable designs: penalty objectives (constraints decide); a feasible
+    # stable design with a NaN objective is a failed evaluation
+    bad = ok & stable & ~np.all(np.isfinite(values), axis=1)
+    for i in np.flatnonzero(bad):
+        if fail[i] is None:
+            fail[i] = "NaN objective for a stable design: " + ", ".join(
+                nm for nm, v in zip(objective_names(problem.searched_wc), values[i]) if not np.isfinite(v))
+    values = np.where(np.isfinite(values), values, _PENALTY)
+    return {"values": values, "constraints": constraints, "gain": b.gain, "zeros": b.zeros, "poles": b.poles,
+            "metrics": metrics, "fail": fail, "feasible": np.all(constraints <= 0.0, axis=1)}
+
+
+# -- storage ---------------------------------------------------------------------------
+def open_storage(storage: str | None, out_dir: Path) -> optuna.storages.BaseStorage:
+    """The default journal file ``out_dir/explore.journal``, or an RDB URL."""
+    try:
+        if storage is None:
+            from optuna.storages.journal import JournalFileBackend, JournalStorage
+
+            out_dir.mkdir(parents=True, exist_ok=True)
+            return JournalStorage(JournalFileBackend(str(out_dir / "explore.journal")))
+        return optuna.storages.RDBStorage(storage)
+    except LoopscoutError:
+        raise
+    except Exception as exc:
+        raise LoopscoutError(f"storage {storage or str(out_dir / 'explore.journal')!r} cannot be opened: "
+                             f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}") from None
+
+
+def study_names(structures: list[Structure]) -> list[str]:
+    return [f"{i:02d} {s.label}" for i, s in enumerate(structures)]
+
+
+def _sampler_seed(seed: int | None, index: int) -> int | None:
+    if seed is None:
+        return None
+    return int(np.random.SeedSequence([int(seed) & 0xFFFFFFFF, index]).generate_state(1)[0])
+
+
+def create_studies(storage: optuna.storages.BaseStorage, structures: list[Structure], problem: Problem,
+                   seed: int | None, batch: int) -> list[optuna.Study]:
+    """Create (or load) every structure's study before any trial is asked."""
+    out = []
+    n_obj = len(objective_names(problem.searched_wc))
+    for i, name in enumerate(study_names(structures)):
+        sampler = optuna.samplers.NSGAIISampler(population_size=max(batch, 8), seed=_sampler_seed(seed, i))
+        st = optuna.create_study(storage=storage, study_name=name, directions=["minimize"] * n_obj,
+                                 sampler=sampler, load_if_exists=True)
+        out.append(st)
+    return out
+
+
+def _distributions(s: Structure, problem: Problem) -> dict[str, FloatDistribution]:
+    d = {k: FloatDistribution(lo, hi) for k, (lo, hi) in s.params.items()}
+    if problem.searched_wc:
+        lo, hi = problem.wc_range_rad_s  # type: ignore[misc]
+        d["wc_rad_s"] = FloatDistribution(lo, hi, log=True)
+    return d
+
+
+def _root_json(r: complex) -> list[float]:
+    return [float(r.real), float(r.imag)]
+
+
+def _tell(st: optuna.Study, trial: optuna.Trial, res: dict[str, Any], i: int, cnames: list[str]) -> None:
+    reason = res["fail"][i]
+    for name, v in zip(cnames, res["constraints"][i]):
+        trial.set_constraint(name, float(v))
+    rec = {"gain": None if not np.isfinite(res["gain"][i]) else float(res["gain"][i]),
+           "zeros": [_root_json(r) for r in res["zeros"][i]] if np.all(np.isfinite(res["zeros"][i])) else [],
+           "poles": [_root_json(r) for r in res["poles"][i]] if np.all(np.isfinite(res["poles"][i])) else [],
+           "metrics": {k: (None if (isinstance(v[i], float) and not math.isfinite(v[i])) else
+                           (bool(v[i]) if v.dtype == bool else float(v[i]))) for k, v in res["metrics"].items()},
+           "reason": reason}
+    trial.set_user_attr("design", json.dumps(rec))
+    if reason is not None:
+        trial.set_user_attr("fail_reason", reason)
+        st.tell(trial, state=TrialState.FAIL, skip_if_finished=True)
+    else:
+        st.tell(trial, [float(v) for v in res["values"][i]], skip_if_finished=True)
+
+
+def _dead_here(worker: str | None) -> bool:
+    if worker is None:
+        return True
+    host, _, pid = worker.rpartition(":")
+    if host != socket.gethostname():
+        return False
+    try:
+        os.kill(int(pid), 0)
+    except ProcessLookupError:
+        return True
+    except (PermissionError, ValueError):
+        return False
+    return False
+
+
+def _stale_running(st: optuna.Study, budget: int) -> list[optuna.trial.FrozenTrial]:
+    return [t for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
+            if t.number < budget and _dead_here(t.user_attrs.get("worker"))]
+
+
+def run_structures(problem: Problem, structures: list[Structure], studies: list[optuna.Study], *,
+                   trials: int, batch: int, progress: Callable[[str], None] | None = None) -> None:
+    """Fill every structure's study up to ``trials`` finished trials numbered below
+    the budget. Resumes: stale RUNNING trials of dead local workers are re-evaluated."""
+    cnames = constraint_names(problem.limits)
+    for si, (s, st) in enumerate(zip(structures, studies)):
+        dists = _distributions(s, problem)
+        # finish trials a killed worker left RUNNING (same parameters, same number)
+        stale = _stale_running(st, trials)
+        for k in range(0, len(stale), batch):
+            chunk = stale[k:k + batch]
+            tr = [optuna.Trial(st, t._trial_id) for t in chunk]
+            for t in tr:
+                t.set_user_attr("worker", _WORKER)
+            _evaluate_and_tell(problem, s, st, tr, [t.params for t in chunk], cnames)
+        while True:
+            all_t = st.get_trials(deepcopy=False)
+            taken = sum(1 for t in all_t if t.number < trials)
+            missing = trials - taken
+            if progress:
+                done = sum(1 for t in all_t if t.number < trials and t.state.is_finished())
+                progress(f"structure {si + 1}/{len(structures)} {s.label}: {done}/{trials} trials")
+            if missing <= 0:
+                break
+            asked = []
+            for _ in range(min(batch, missing)):
+                t = st.ask(dists)
+                t.set_user_attr("worker", _WORKER)
+                asked.append(t)
+            surplus = [t for t in asked if t.number >= trials]  # another worker got there first
+            for t in surplus:
+                t.set_user_attr("fail_reason", "surplus: budget already reached by another worker")
+                st.tell(t, state=TrialState.FAIL)
+            asked = [t for t in asked if t.number < trials]
+            if asked:
+                _evaluate_and_tell(problem, s, st, asked, [t.params for t in asked], cnames)
+        # wait-free: another worker may still be finishing its RUNNING trials
+
+
+def _evaluate_and_tell(problem: Problem, s: Structure, st: optuna.Study, tr: list[optuna.Trial],
+                       params: list[dict[str, float]], cnames: list[str]) -> None:
+    names = list(s.params)
+    arr = {k: np.array([p[k] for p in params], float) for k in names}
+    if problem.searched_wc:
+        wc = np.array([p["wc_rad_s"] for p in params], float)
+    else:
+        wc = np.full(len(params), float(problem.wc_rad_s))  # type: ignore[arg-type]
+    try:
+        res = evaluate_batch(problem, s, arr, wc)
+    except Exception as exc:
+        for t in tr:
+            t.set_user_attr("fail_reason", f"evaluation failed: {type(exc).__name__}: {exc}")
+            st.tell(t, state=TrialState.FAIL, skip_if_finished=True)
+        return
+    for i, t in enumerate(tr):
+        _tell(st, t, res, i, cnames)
+
+
+def load_records(studies: list[optuna.Study], trials: int) -> list[TrialRecord]:
+    """The finished trials numbered below the budget, in (structure, number) order."""
+    out: list[TrialRecord] = []
+    for si, st in enumerate(studies):
+        for t in sorted(st.get_trials(deepcopy=False), key=lambda t: t.number):
+            if t.number >= trials or not t.state.is_finished():
+                continue
+            raw = t.user_attrs.get("design")
+            rec = json.loads(raw) if raw else {"gain": None, "zeros": [], "poles": [], "metrics": {}, "reason": None}
+            cons = {k: float(v) for k, v in (t.constraints or {}).items()}
+            feasible = t.state == TrialState.COMPLETE and rec["gain"] is not None and _all_le0(t)
+            out.append(TrialRecord(
+                structure=si, number=t.number, state=t.state.name, feasible=feasible,
+                gain=rec["gain"], zeros=tuple(complex(*r) for r in rec["zeros"]),
+                poles=tuple(complex(*r) for r in rec["poles"]), metrics=rec["metrics"], constraints=cons,
+                reason=t.user_attrs.get("fail_reason") or rec.get("reason"),
+            ))
+    return out
+
+
+def _all_le0(t: optuna.trial.FrozenTrial) -> bool:
+    return all(float(v) <= 0.0 for v in (t.constraints or {}).values())
+
+
+def progress_printer(stream: Any = sys.stderr) -> Callable[[str], None]:
+    def show(line: str) -> None:
+        stream.write("\r" + line[:100].ljust(100))
+        stream.flush()
+    return show
