@@ -1,0 +1,291 @@
+"""The whole exploration: structures → tuned trials → re-checked designs → ranking → files.
+
+``explore(study_or_path, out_dir)`` tunes every candidate structure (explorer.tune),
+keeps per structure the best-Ms design meeting the targets and a few Pareto-best
+ones, re-evaluates each kept design with explorer.evaluate.design_metrics and
+meets_targets (the batch figures are never reported unchecked), adds the hand
+designs (explorer.balance) as reference points, ranks (explorer.ranking), and writes
+``designs.json``, ``designs.csv`` and ``report.html`` into ``out_dir``.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from explorer.errors import LoopscoutError
+from explorer.evaluate import design_metrics, design_record, meets_targets
+from explorer.loop import Rational
+from explorer.structures import Structure, candidate_structures
+from explorer.study import Study, load_study
+
+__all__ = ["ExploreResult", "explore", "make_problem", "CAUTION", "PARETO_PICKS"]
+
+CAUTION = (
+    "Caution: results are model-based. Validate on the real system with limits and "
+    "interlocks in place; defer to applicable codes, standards and licensed practice."
+)
+#: Pareto-best designs kept per structure besides the best Ms (best hf_gain, best iae_load).
+PARETO_PICKS = 2
+
+
+@dataclass(frozen=True, kw_only=True)
+class ExploreResult:
+    """``designs``: interface DESIGN dicts; ``frame``: the ranked table (pandas);
+    ``summary``: text lines, the answer first; ``obj``: the designs.json object."""
+
+    designs: list[dict[str, Any]]
+    frame: Any
+    summary: list[str]
+    obj: dict[str, Any] = field(repr=False)
+    out_dir: Path
+
+
+def _plant_scale(plant: Rational) -> float:
+    mags = [abs(r) for r in (*plant.poles, *plant.zeros) if abs(r) > 0]
+    if plant.delay_s > 0:
+        mags.append(1.0 / plant.delay_s)
+    return float(np.exp(np.mean(np.log(mags)))) if mags else 1.0
+
+
+def make_problem(study: Study):  # -> explorer.tune.Problem
+    from explorer.tune import DEFAULT_PM_DEG, Problem
+
+    t = study.targets
+    pm = t.phase_margin_deg
+    if pm is None:
+        pm = study.limits.get("phase_margin_deg", DEFAULT_PM_DEG)
+    wc = t.crossover_rad_s
+    if isinstance(wc, (int, float)):
+        return Problem(plant=study.plant, targets=t, limits=study.limits, pm_deg=float(pm),
+                       wc_rad_s=float(wc), wc_range_rad_s=None)
+    if isinstance(wc, tuple):
+        rng = (float(wc[0]), float(wc[1]))
+    else:
+        s0 = _plant_scale(study.plant)
+        hi = 20.0 * s0 if study.plant.delay_s <= 0 else min(20.0 * s0, 2.0 / study.plant.delay_s)
+        rng = (s0 / 50.0, hi)
+    return Problem(plant=study.plant, targets=t, limits=study.limits, pm_deg=float(pm), wc_rad_s=None,
+                   wc_range_rad_s=rng)
+
+
+def _pick(records: list[Any], searched_wc: bool) -> list[Any]:
+    """Best Ms among feasible, then the best hf_gain and best iae_load of the
+    structure's feasible non-dominated set."""
+    from explorer.ranking import non_dominated_fronts
+
+    feas = [r for r in records if r.feasible]
+    if not feas:
+        return []
+    keys = ["sensitivity_peak", "hf_gain", "iae_load"]
+    x = np.array([[np.inf if r.metrics.get(k) is None else r.metrics[k] for k in keys]
+                  + ([-r.metrics.get("crossover_rad_s") or 0.0] if searched_wc else []) for r in feas], float)
+    front = non_dominated_fronts(x)
+    pareto = [r for r, f in zip(feas, front) if f == 0]
+    chosen = [min(feas, key=lambda r: (r.metrics["sensitivity_peak"], r.number))]
+    for k in keys[1:][:PARETO_PICKS]:
+        chosen.append(min(pareto, key=lambda r: (np.inf if r.metrics.get(k) is None else r.metrics[k], r.number)))
+    if searched_wc:
+        chosen.append(max(pareto, key=lambda r: (r.metrics.get("crossover_rad_s") or 0.0, -r.number)))
+    out, seen = [], set()
+    for r in chosen:
+        if r.number not in seen:
+            seen.add(r.number)
+            out.append(r)
+    return out
+
+
+def _why_not(s: Structure, records: list[Any], pm_deg: float) -> str:
+    """Why a structure has no design meeting targets and limits."""
+    if not records:
+        return "no finished trials"
+    bal = [r for r in records if r.constraints.get("phase_balance_deg", 0.0) > 0]
+    if len(bal) == len(records):
+        best = min(r.constraints["phase_balance_deg"] for r in bal)
+        return f"cannot reach the phase margin {pm_deg:.1f} deg at the crossover: best shortfall {best:.1f} deg"
+    counts: dict[str, int] = {}
+    for r in records:
+        for k, v in r.constraints.items():
+            if v > 0 and k != "phase_balance_deg":
+                counts[k] = counts.get(k, 0) + 1
+    if not counts:
+        fails = [r.reason for r in records if r.reason]
+        return fails[0] if fails else "no feasible trial"
+    worst = max(counts, key=lambda k: counts[k])
+    label = {"closed_loop_unstable": "closed loop unstable", "crossover_missed": "crossover not where targeted",
+             "phase_margin_short_deg": "smallest phase margin below target (another crossover)"}.get(
+        worst, worst.replace("limit:", "breaks the limit "))
+    best_ms = [r.metrics.get("sensitivity_peak") for r in records if r.metrics.get("sensitivity_peak")]
+    extra = f"; best Ms reached {min(best_ms):.3g}" if best_ms and worst == "limit:sensitivity_peak" else ""
+    return f"{label} in {counts[worst]}/{len(records)} trials{extra}"
+
+
+def _hand_records(study: Study) -> list[dict[str, Any]]:
+    t = study.targets
+    if not isinstance(t.crossover_rad_s, (int, float)) or t.phase_margin_deg is None:
+        return []
+    try:
+        from explorer.balance import hand_designs
+
+        hds = hand_designs(study.plant, t, cancel_lightly_damped=study.search.cancel_lightly_damped)
+    except Exception:  # the hand baselines are references; the exploration stands without them
+        return []
+    out = []
+    for hd in hds:
+        if hd.compensator is None:
+            continue
+        m = design_metrics(study.plant, hd.compensator)
+        ok, why = meets_targets(m, t, study.limits, study.plant.n_integrators + hd.compensator.n_integrators)
+        out.append(design_record(name=hd.name, origin=hd.origin, structure=hd.structure, comp=hd.compensator,
+                                 metrics=m, meets=ok, reasons=why))
+    return out
+
+
+def explore(study_or_path: Study | str | Path, out_dir: str | Path, *, trials: int | None = None,
+            seed: int | None = None, storage: str | None = None, batch: int = 32,
+            progress: bool = True) -> ExploreResult:
+    """Run (or resume) the exploration of a study and write the result files."""
+    from explorer import tune
+    from explorer.ranking import rank_designs
+
+    study = study_or_path if isinstance(study_or_path, Study) else load_study(study_or_path)
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise LoopscoutError(f"--out {str(out)!r} is not a folder")
+    n_trials = study.search.trials if trials is None else int(trials)
+    if n_trials < 1:
+        raise LoopscoutError(f"--trials must be at least 1, got {n_trials}")
+    if batch < 1:
+        raise LoopscoutError(f"--batch must be at least 1, got {batch}")
+    seed = study.search.seed if seed is None else seed
+    problem = make_problem(study)
+    structures = candidate_structures(study.plant, study.targets, study.search)
+    if not structures:
+        raise LoopscoutError(f"{study.source}: no compensator structure fits `search.max_order` "
+                             f"{study.search.max_order} with {study.targets.integrators} integrator(s)")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise LoopscoutError(f"--out {str(out)!r} cannot be created: {exc.strerror}") from None
+    store = tune.open_storage(storage, out)
+    studies = tune.create_studies(store, structures, problem, seed, batch)
+    show = tune.progress_printer() if progress else None
+    tune.run_structures(problem, structures, studies, trials=n_trials, batch=batch, progress=show)
+    if show:
+        import sys
+
+        sys.stderr.write("\n")
+    records = tune.load_records(studies, n_trials)
+    designs: list[dict[str, Any]] = []
+    why: dict[str, str] = {}
+    for si, s in enumerate(structures):
+        recs = [r for r in records if r.structure == si]
+        kept = 0
+        for r in _pick(recs, problem.searched_wc):
+            comp = Rational(gain=r.gain, zeros=r.zeros, poles=r.poles)
+            m = design_metrics(study.plant, comp)
+            ok, miss = meets_targets(m, study.targets, study.limits,
+                                     study.plant.n_integrators + comp.n_integrators)
+            designs.append(design_record(name=f"{s.label} #{r.number}", origin="optimized", structure=s.label,
+                                         comp=comp, metrics=m, meets=ok, reasons=miss,
+                                         extra={"trial": r.number}))
+            kept += ok
+        if not kept:
+            why[s.label] = _why_not(s, recs, problem.pm_deg)
+    designs += _hand_records(study)
+    frame = rank_designs(designs)
+    pareto = dict(zip(frame["name"], frame["pareto"])) if len(frame) else {}
+    doms = dict(zip(frame["name"], frame["dominates_hand"])) if len(frame) else {}
+    for d in designs:
+        d["pareto"] = bool(pareto.get(d["name"], False))
+        if d["origin"] == "optimized":
+            d["dominates"] = list(doms.get(d["name"], []))
+    order = {n: i for i, n in enumerate(frame["name"])} if len(frame) else {}
+    designs.sort(key=lambda d: order.get(d["name"], 10**6))
+    summary = _summary(study, structures, designs, why, n_trials)
+    obj = {"designs": designs, "study": _study_header(study), "summary": summary, "caution": CAUTION}
+    _write(out, study, obj, frame)
+    return ExploreResult(designs=designs, frame=frame, summary=summary, obj=obj, out_dir=out)
+
+
+def _summary(study: Study, structures: list[Structure], designs: list[dict[str, Any]], why: dict[str, str],
+             n_trials: int) -> list[str]:
+    lines = []
+    ok = [d for d in designs if d["origin"] == "optimized" and d["meets_targets"]]
+    if ok:
+        low = min(d["order"] for d in ok)
+        best = min((d for d in ok if d["order"] == low), key=lambda d: d["metrics"]["sensitivity_peak"])
+        lines.append(f"answer: order {low} suffices — {best['structure']} ({best['name']}) meets the targets "
+                     f"and limits with Ms {best['metrics']['sensitivity_peak']:.3g}")
+    else:
+        lines.append("answer: no explored structure meets the targets and limits "
+                     f"(up to order {study.search.max_order})")
+    lines.append(f"explored {len(structures)} structures x {n_trials} trials")
+    for label, reason in why.items():
+        lines.append(f"{label}: {reason}")
+    for d in ok:
+        if d.get("dominates"):
+            lines.append(f"{d['name']} dominates the hand design(s): {', '.join(d['dominates'])}")
+    return lines
+
+
+def _study_header(study: Study) -> dict[str, Any]:
+    t = study.targets
+    wc = list(t.crossover_rad_s) if isinstance(t.crossover_rad_s, tuple) else t.crossover_rad_s
+    return {"name": study.name, "source": study.source,
+            "plant": study.plant.to_dict() | {"delay": study.plant.delay_s},
+            "targets": {"crossover_rad_s": wc, "phase_margin_deg": t.phase_margin_deg,
+                        "integrators": t.integrators, "derived_from": list(t.derived_from)},
+            "limits": dict(study.limits)}
+
+
+def _clean(v: Any) -> Any:
+    if isinstance(v, dict):
+        return {k: _clean(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_clean(x) for x in v]
+    if isinstance(v, (np.floating, float)):
+        return None if not math.isfinite(float(v)) else float(v)
+    if isinstance(v, np.integer):
+        return int(v)
+    if isinstance(v, np.bool_):
+        return bool(v)
+    return v
+
+
+def _write(out: Path, study: Study, obj: dict[str, Any], frame: Any) -> None:
+    text = json.dumps(_clean(obj), indent=2, allow_nan=False)
+    (out / "designs.json").write_text(text + "\n", encoding="utf-8")
+    csv = frame.copy()
+    if len(csv):
+        csv["dominates_hand"] = [";".join(x) for x in csv["dominates_hand"]]
+    csv.to_csv(out / "designs.csv", index=False)
+    try:
+        from explorer.report import write_report
+    except ImportError:
+        _fallback_report(out / "report.html", study, obj)
+    else:
+        write_report(study, obj["designs"], out / "report.html")
+
+
+def _fallback_report(path: Path, study: Study, obj: dict[str, Any]) -> None:
+    from html import escape
+
+    cols = ["order", "crossover_rad_s", "phase_margin_deg", "sensitivity_peak", "hf_gain", "iae_load"]
+    head = "".join(f"<th>{escape(c)}</th>" for c in ["design", "origin", "structure", *cols, "meets", "pareto"])
+    body = []
+    for d in obj["designs"]:
+        m = {**d["metrics"], "order": d["order"]}
+        cells = [escape(d["name"]), escape(d["origin"]), escape(d["structure"]),
+                 *[("" if m.get(c) is None else f"{m[c]:.4g}") for c in cols], str(d["meets_targets"]),
+                 str(d["pareto"])]
+        body.append("<tr>" + "".join(f"<td>{c}</td>" for c in cells) + "</tr>")
+    lines = "".join(f"<p>{escape(s)}</p>" for s in obj["summary"])
+    path.write_text(f"<!doctype html><meta charset='utf-8'><title>{escape(study.name)}</title>"
+                    f"<h1>{escape(study.name)}</h1>{lines}<table border='1'><tr>{head}</tr>{''.join(body)}"
+                    f"</table><p><b>{escape(CAUTION)}</b></p>\n", encoding="utf-8")
