@@ -1,0 +1,107 @@
+"""``loopscout balance STUDY``: the phase-balanced design and the hand baselines.
+
+Each design is shown in factored form (integrators, cancelled plant poles,
+balancing poles, gain) with every metric; refused designs say which step failed and
+by how much. ``--json`` prints ``{"designs": [...], "refused": [...]}`` with
+``origin`` "phase-balanced" or "hand" (interface.md).
+"""
+
+from __future__ import annotations
+
+import argparse
+from typing import Any
+
+__all__ = ["register"]
+
+
+def register(sub: Any, caution: str) -> None:
+    p = sub.add_parser(
+        "balance",
+        help="phase-balanced hand design(s) for the study's targets",
+        description=(
+            "The classical cancel-and-balance design for the study's crossover and phase "
+            "margin — integrators, cancelling zeros on the slowest stable plant poles, "
+            "balancing poles, gain from |L(jwc)| = 1 — plus a lead at crossover and a "
+            "PI plus lead, each with every metric, or refused with the failed step."
+        ),
+        epilog=(
+            "examples:\n  loopscout balance studies/kiln_damper.toml\n"
+            "  loopscout balance studies/conveyor_speed.toml --trim-overshoot 10 --json\n\n" + caution
+        ),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("study", metavar="STUDY", help="study file (TOML), see docs/study-file.md")
+    p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+    p.add_argument(
+        "--trim-overshoot",
+        type=float,
+        metavar="PCT",
+        default=None,
+        help="also back the gain off until the step overshoot is PCT %% (reported beside the untrimmed design)",
+    )
+    p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    p.set_defaults(run=_run, caution=caution)
+
+
+def _run(args: argparse.Namespace) -> int:
+    from explorer.balance import hand_designs, trim_gain_for_overshoot
+    from explorer.cli import _design_table, _print_json, _print_study, _study_header
+    from explorer.errors import LoopscoutError
+    from explorer.evaluate import design_metrics, design_record, meets_targets
+    from explorer.study import load_study
+
+    study = load_study(args.study)
+    t = study.targets
+    if not isinstance(t.crossover_rad_s, (int, float)) or t.phase_margin_deg is None:
+        raise LoopscoutError(
+            f"{study.source}: the phase-balanced procedure needs a numeric `targets.crossover` "
+            "and `targets.phase_margin` (a range or a free crossover is for `explore`)"
+        )
+    if args.trim_overshoot is not None and not (0 < args.trim_overshoot < 100):
+        raise LoopscoutError(f"--trim-overshoot must be in (0, 100) %, got {args.trim_overshoot:g}")
+    designs: list[dict[str, Any]] = []
+    refused: list[dict[str, Any]] = []
+    for hd in hand_designs(study.plant, t, cancel_lightly_damped=study.search.cancel_lightly_damped):
+        if hd.compensator is None:
+            refused.append({"name": hd.name, "origin": hd.origin, "structure": hd.structure,
+                            "reason": hd.reason, "steps": list(hd.steps)})
+            continue
+        comp = hd.compensator
+        metrics = design_metrics(study.plant, comp)
+        ok, why = meets_targets(metrics, t, study.limits, study.plant.n_integrators + comp.n_integrators)
+        designs.append(design_record(name=hd.name, origin=hd.origin, structure=hd.structure, comp=comp,
+                                     metrics=metrics, meets=ok, reasons=why,
+                                     extra={"steps": list(hd.steps)}))
+        if args.trim_overshoot is not None:
+            tr = trim_gain_for_overshoot(study.plant, comp, args.trim_overshoot)
+            if tr.compensator is None:
+                refused.append({"name": f"{hd.name} trimmed", "origin": hd.origin, "structure": hd.structure,
+                                "reason": tr.reason, "steps": list(tr.steps)})
+            else:
+                m2 = design_metrics(study.plant, tr.compensator)
+                ok2, why2 = meets_targets(m2, t, study.limits,
+                                          study.plant.n_integrators + tr.compensator.n_integrators)
+                designs.append(design_record(
+                    name=f"{hd.name} trimmed", origin=hd.origin, structure=hd.structure + ", gain trimmed",
+                    comp=tr.compensator, metrics=m2, meets=ok2, reasons=why2,
+                    extra={"steps": list(tr.steps), "gain_factor": tr.gain_factor},
+                ))
+    if args.json:
+        _print_json({"designs": designs, "refused": refused, "study": _study_header(study),
+                     "caution": args.caution})
+        return 0
+    _print_study(study)
+    if designs:
+        print(_design_table(designs))
+        print()
+        for d in designs:
+            print(f"{d['name']} ({d['structure']}):")
+            for line in d["steps"]:
+                print(f"  - {line}")
+            if d["misses"]:
+                print("  misses: " + "; ".join(d["misses"]))
+    for r in refused:
+        print(f"{r['name']} refused: {r['reason']}")
+    print()
+    print(args.caution)
+    return 0
