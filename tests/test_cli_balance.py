@@ -1,0 +1,56 @@
+"""`loopscout balance`: interface.md JSON with origin "phase-balanced"/"hand", the
+designs re-checked by the metric engine, refusals with reasons, one-line errors."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from explorer.cli import main
+from explorer.evaluate import meets_targets
+from explorer.loop import Rational
+from explorer.metrics import frequency_metrics
+from explorer.study import load_study
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def test_balance_json_designs_hit_targets(capsys: pytest.CaptureFixture[str]) -> None:
+    """Kiln damper: the phase-balanced design hits ωc (1e-4 relative) and PM (0.05°),
+    checked again by the metric engine from the printed compensator."""
+    path = ROOT / "studies" / "kiln_damper.toml"
+    assert main(["balance", str(path), "--json"]) == 0
+    obj = json.loads(capsys.readouterr().out)
+    study = load_study(path)
+    balanced = [d for d in obj["designs"] if d["origin"] == "phase-balanced"]
+    assert len(balanced) == 1
+    for d in obj["designs"]:
+        assert d["origin"] in ("phase-balanced", "hand")
+        c = d["compensator"]
+        comp = Rational(gain=c["gain"], zeros=[complex(z) for z in c["zeros"]], poles=[complex(p) for p in c["poles"]])
+        m = frequency_metrics(study.plant, comp)
+        assert m["crossover_rad_s"] == pytest.approx(study.targets.crossover_rad_s, rel=1e-4)
+        assert m["phase_margin_deg"] == pytest.approx(study.targets.phase_margin_deg, abs=0.05)
+        assert m["closed_loop_stable"] is True
+        ok, why = meets_targets(d["metrics"], study.targets, {}, study.plant.n_integrators + comp.n_integrators)
+        assert ok, why
+    for r in obj["refused"]:
+        assert r["reason"]
+
+
+def test_balance_refuses_with_reason(capsys: pytest.CaptureFixture[str]) -> None:
+    """Balance platform (unstable pole, crossover 10 rad/s): the cancel-and-balance
+    procedure cannot reach the phase; it says so and returns no such design."""
+    assert main(["balance", str(ROOT / "studies" / "balance_platform.toml"), "--json"]) == 0
+    obj = json.loads(capsys.readouterr().out)
+    assert not any(d["origin"] == "phase-balanced" for d in obj["designs"])
+    reasons = [r["reason"] for r in obj["refused"] if r["origin"] == "phase-balanced"]
+    assert reasons and "short" in reasons[0]
+
+
+def test_balance_needs_numeric_targets(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["balance", str(ROOT / "studies" / "drum_level.toml")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "targets.crossover" in err
