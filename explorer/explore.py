@@ -267,7 +267,7 @@ def _write(out: Path, study: Study, obj: dict[str, Any], frame: Any) -> None:
     csv.to_csv(out / "designs.csv", index=False)
     try:
         from explorer.report import write_report
-    except ImportError:
+    except (ImportError, SyntaxError):  # the report module is optional here
         _fallback_report(out / "report.html", study, obj)
     else:
         write_report(study, obj["designs"], out / "report.html")
