@@ -68,7 +68,9 @@ def _dense_metrics(t, y, u, yl, f_y, f_u, yf, uss, band=0.02):
     ymax = y[i]
     if 0 < i < n - 1:
         res = optimize.minimize_scalar(
-            lambda s: -f_y(s), bounds=(t[i - 1], t[i + 1]), method="bounded",
+            lambda s: -f_y(s),
+            bounds=(t[i - 1], t[i + 1]),
+            method="bounded",
             options={"xatol": 1e-13},
         )
         ymax = max(ymax, -res.fun)
@@ -88,7 +90,9 @@ def _dense_metrics(t, y, u, yl, f_y, f_u, yf, uss, band=0.02):
     if 0 < j < n - 1:
         sg = np.sign(u[j])
         res = optimize.minimize_scalar(
-            lambda s: -sg * f_u(s), bounds=(t[j - 1], t[j + 1]), method="bounded",
+            lambda s: -sg * f_u(s),
+            bounds=(t[j - 1], t[j + 1]),
+            method="bounded",
             options={"xatol": 1e-13},
         )
         peak = max(peak, -res.fun)
@@ -126,8 +130,12 @@ def _scipy_metrics(plant: Rational, comp: Rational, t_end: float, n: int = 40001
     den = ty[1]
     yf = ty[0][-1] / den[-1] if abs(den[-1]) > 0 else 1.0
     uss = tu[0][-1] / den[-1]
-    return t, y, u, yl, _dense_metrics(
-        t, y, u, yl, lambda s: at(sy, s), lambda s: at(su, s), yf, uss
+    return (
+        t,
+        y,
+        u,
+        yl,
+        _dense_metrics(t, y, u, yl, lambda s: at(sy, s), lambda s: at(su, s), yf, uss),
     )
 
 
@@ -178,7 +186,12 @@ def _method_of_steps(plant: Rational, comp: Rational, t_end: float, r=1.0, d=0.0
         sol = None
         if npl + nc:
             sol = integrate.solve_ivp(
-                rhs, (t, t + tau), x0, method="DOP853", rtol=1e-11, atol=1e-13,
+                rhs,
+                (t, t + tau),
+                x0,
+                method="DOP853",
+                rtol=1e-11,
+                atol=1e-13,
                 dense_output=True,
             )
             x0 = sol.y[:, -1]
@@ -204,9 +217,7 @@ def _mos_metrics(plant, comp, t_end, yf, uss, n=20001):
     t = np.linspace(0.0, t_end, n)
     y, u = ev(t)
     yl, _ = evl(t)
-    return _dense_metrics(
-        t, y, u, yl, lambda s: ev(s)[0][0], lambda s: ev(s)[1][0], yf, uss
-    )
+    return _dense_metrics(t, y, u, yl, lambda s: ev(s)[0][0], lambda s: ev(s)[1][0], yf, uss)
 
 
 def _close(a, b, rel=0.0, abs_=0.0):
@@ -218,7 +229,10 @@ def _close(a, b, rel=0.0, abs_=0.0):
 # ======================================================================================
 FREE_LOOPS = {
     # Ogata 2010, Example 7-26 (the lead design as stated)
-    "lead_on_servo": (Rational(gain=4, poles=(0, -2)), Rational(gain=41.7, zeros=(-4.41,), poles=(-18.4,))),
+    "lead_on_servo": (
+        Rational(gain=4, poles=(0, -2)),
+        Rational(gain=41.7, zeros=(-4.41,), poles=(-18.4,)),
+    ),
     # lightly damped drive (ζ = 0.05 resonance at 3 rad/s) under slow PI
     "resonant_drive": (
         Rational(gain=9, poles=(-0.15 + 2.99624j, -0.15 - 2.99624j, -1)),
@@ -227,9 +241,15 @@ FREE_LOOPS = {
     # open-loop unstable balance stage stabilised by PI
     "unstable_stage": (Rational(gain=1, poles=(1,)), Rational(gain=4, zeros=(-0.5,), poles=(0,))),
     # non-minimum-phase boiler level (undershoot)
-    "nmp_level": (Rational(gain=-1, zeros=(1,), poles=(-1, -2)), Rational(gain=0.6, zeros=(-1,), poles=(0,))),
+    "nmp_level": (
+        Rational(gain=-1, zeros=(1,), poles=(-1, -2)),
+        Rational(gain=0.6, zeros=(-1,), poles=(0,)),
+    ),
     # biproper plant and compensator (direct feedthrough both ways), no integrator
-    "biproper_valve": (Rational(gain=2, zeros=(-3,), poles=(-1, -2)), Rational(gain=3, zeros=(-1,), poles=(-10,))),
+    "biproper_valve": (
+        Rational(gain=2, zeros=(-3,), poles=(-1, -2)),
+        Rational(gain=3, zeros=(-1,), poles=(-10,)),
+    ),
 }
 
 DELAY_LOOPS = {
@@ -244,7 +264,10 @@ DELAY_LOOPS = {
         Rational(gain=9.6, zeros=(-0.8, -1.25), poles=(0, -10)),
     ),
     # unstable dome drive + delay under PI
-    "dome_unstable": (Rational(gain=1, poles=(0.5,), delay_s=0.2), Rational(gain=2.0, zeros=(-0.3,), poles=(0,))),
+    "dome_unstable": (
+        Rational(gain=1, poles=(0.5,), delay_s=0.2),
+        Rational(gain=2.0, zeros=(-0.3,), poles=(0,)),
+    ),
     # non-minimum-phase damper + delay under PI
     "damper_nmp": (
         Rational(gain=-1.25, zeros=(2,), poles=(-1, -2.5), delay_s=0.3),
@@ -622,7 +645,9 @@ def test_improper_compensator_is_refused():
     with pytest.raises(DesignError):
         simulate_steps(plant, Rational(gain=1), t_end_s=-1.0)
     with pytest.raises(DesignError, match="ill-posed"):
-        step_metrics(Rational(gain=-1, zeros=(-2,), poles=(-1,)), Rational(gain=1, zeros=(-3,), poles=(-4,)))
+        step_metrics(
+            Rational(gain=-1, zeros=(-2,), poles=(-1,)), Rational(gain=1, zeros=(-3,), poles=(-4,))
+        )
 
 
 # ======================================================================================
