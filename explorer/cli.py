@@ -278,6 +278,11 @@ def main(argv: Sequence[str] | None = None) -> int:
             traceback.print_exc()
         print(f"loopscout: error: {_one_line(str(exc))}", file=sys.stderr)
         return 2
+    except BrokenPipeError:  # output piped into `head` and the like: not an error
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except KeyboardInterrupt:
         print("loopscout: interrupted", file=sys.stderr)
         return 130
