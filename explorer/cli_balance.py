@@ -61,7 +61,8 @@ def _run(args: argparse.Namespace) -> int:
         raise LoopscoutError(f"--trim-overshoot must be in (0, 100) %, got {args.trim_overshoot:g}")
     designs: list[dict[str, Any]] = []
     refused: list[dict[str, Any]] = []
-    for hd in hand_designs(study.plant, t, cancel_lightly_damped=study.search.cancel_lightly_damped):
+    for hd in hand_designs(study.plant, t, cancel_lightly_damped=study.search.cancel_lightly_damped,
+                           error_constant=t.error_constant):
         if hd.compensator is None:
             refused.append({"name": hd.name, "origin": hd.origin, "structure": hd.structure,
                             "reason": hd.reason, "steps": list(hd.steps)})

@@ -78,6 +78,7 @@ _TARGET_KEYS = (
     "settling_time",
     "settling_band",
     "pm_rule",
+    "error_constant",
 )
 _SEARCH_KEYS = ("max_order", "trials", "seed", "cancel_lightly_damped")
 
@@ -93,6 +94,9 @@ class Targets:
     phase_margin_deg: float | None
     integrators: int
     derived_from: tuple[str, ...] = ()
+    #: Required low-frequency loop gain lim s^m·L(s) (m = loop integrators): Kp, Kv or
+    #: Ka; used by the lag hand design. None when not required.
+    error_constant: float | None = None
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -185,6 +189,9 @@ def _targets(tab: Mapping[str, Any]) -> Targets:
     if "integrators" not in tab:
         raise StudyFileError("targets.integrators", "is required (free integrators of the loop)")
     integrators = _int(tab["integrators"], "targets.integrators", low=0)
+    ec = None
+    if "error_constant" in tab:
+        ec = _number(tab["error_constant"], "targets.error_constant", low=0.0, low_incl=False)
 
     has_os = "overshoot" in tab
     if has_os and "phase_margin" in tab:
@@ -211,7 +218,8 @@ def _targets(tab: Mapping[str, Any]) -> Targets:
         if "phase_margin" in tab:
             pm = _number(tab["phase_margin"], "targets.phase_margin", low=0.0, high=90.0,
                          low_incl=False, high_incl=False, unit=" deg")
-        return Targets(crossover_rad_s=crossover, phase_margin_deg=pm, integrators=integrators)
+        return Targets(crossover_rad_s=crossover, phase_margin_deg=pm, integrators=integrators,
+                       error_constant=ec)
 
     overshoot = _number(tab["overshoot"], "targets.overshoot", low=0.0, high=100.0,
                         low_incl=True, high_incl=False, unit=" %")
@@ -243,6 +251,7 @@ def _targets(tab: Mapping[str, Any]) -> Targets:
         phase_margin_deg=conv.phase_margin_deg,
         integrators=integrators,
         derived_from=conv.explanation,
+        error_constant=ec,
     )
 
 

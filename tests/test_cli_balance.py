@@ -54,3 +54,25 @@ def test_balance_needs_numeric_targets(capsys: pytest.CaptureFixture[str]) -> No
     assert main(["balance", str(ROOT / "studies" / "drum_level.toml")]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "targets.crossover" in err
+
+
+def test_lag_design_reaches_error_constant(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """`targets.error_constant` gives the lag hand design: Kv = lim s·L(s) reaches the
+    target exactly while ωc and PM hold (Kv from the roots form; PM by the engine)."""
+    f = tmp_path / "lag.toml"
+    f.write_text(
+        "[plant]\ngain = 2.0\npoles = [0, -1, -2]\n"
+        "[targets]\ncrossover = 0.5\nphase_margin = 40\nintegrators = 1\nerror_constant = 5\n"
+    )
+    assert main(["balance", str(f), "--json"]) == 0
+    obj = json.loads(capsys.readouterr().out)
+    lag = [d for d in obj["designs"] if d["name"] == "lag"]
+    assert len(lag) == 1
+    c = lag[0]["compensator"]
+    comp = Rational(gain=c["gain"], zeros=[complex(z) for z in c["zeros"]], poles=[complex(p) for p in c["poles"]])
+    loop = comp * Rational(gain=2.0, poles=(0.0, -1.0, -2.0))
+    assert loop.dc_gain() == pytest.approx(5.0, rel=1e-6)
+    assert lag[0]["metrics"]["phase_margin_deg"] == pytest.approx(40.0, abs=0.05)
+    f.write_text(f.read_text().replace("error_constant = 5", "error_constant = -1"))
+    assert main(["balance", str(f)]) == 2
+    assert "targets.error_constant" in capsys.readouterr().err
