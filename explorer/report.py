@@ -338,8 +338,10 @@ def chart_specs(study: Study, designs: Sequence[dict[str, Any]]) -> dict[str, al
         "sensitivity": sensitivity_chart(fr, ms, pick),
         "steps": step_charts(st, study, pick),
     }
-    for key in ("pareto_iae", "nichols", "sensitivity", "steps"):
-        out[key] = out[key].add_params(pick) if key != "steps" else out[key]
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="Automatically deduplicated")
+        for key in ("pareto_iae", "nichols", "sensitivity", "steps"):
+            out[key] = out[key].add_params(pick)
     return out
 
 
@@ -381,7 +383,9 @@ def export_charts(study: Study, designs: Sequence[dict[str, Any]], out_dir: Path
         for name, ch in chart_specs(study, designs).items():
             for fmt in formats:
                 p = out_dir / f"{name}.{fmt}"
-                _theme(ch).save(p, format=fmt, **({"scale_factor": 2} if fmt == "png" else {}))
+                with warnings.catch_warnings():
+                    warnings.filterwarnings("ignore", message="Automatically deduplicated")
+                    _theme(ch).save(p, format=fmt, **({"scale_factor": 2} if fmt == "png" else {}))
                 paths.append(p)
     return paths
 

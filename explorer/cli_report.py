@@ -1,0 +1,104 @@
+"""``loopscout report`` (offline HTML) and ``loopscout charts`` (PNG/SVG for slides).
+
+Designs come from a ``designs.json`` written by ``explore`` (``{"designs": [...]}``)
+or, without one, from the study's ``[[compensator]]`` entries evaluated like
+``check``. Bad input raises :class:`explorer.errors.LoopscoutError` (one line, exit 2).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+from typing import Any
+
+from explorer.errors import LoopscoutError
+
+__all__ = ["register", "load_designs", "given_designs"]
+
+
+def given_designs(study: Any) -> list[dict[str, Any]]:
+    """The study's [[compensator]] entries as DESIGN records (origin "given")."""
+    from explorer.evaluate import describe_structure, design_metrics, design_record, meets_targets
+
+    if not study.compensators:
+        raise LoopscoutError(f"{study.source}: no [[compensator]] entries and no --designs file")
+    out = []
+    for entry in study.compensators:
+        comp = entry.compensator
+        metrics = design_metrics(study.plant, comp)
+        ok, why = meets_targets(metrics, study.targets, study.limits,
+                                study.plant.n_integrators + comp.n_integrators)
+        out.append(design_record(name=entry.name, origin="given", structure=describe_structure(comp),
+                                 comp=comp, metrics=metrics, meets=ok, reasons=why))
+    return out
+
+
+def load_designs(path: str | Path) -> list[dict[str, Any]]:
+    """Read ``{"designs": [...]}``; one-line LoopscoutError on anything unreadable."""
+    try:
+        data = json.loads(Path(path).read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise LoopscoutError(f"--designs {path}: cannot read ({exc.strerror})") from None
+    except json.JSONDecodeError as exc:
+        raise LoopscoutError(f"--designs {path}: not JSON ({exc.msg}, line {exc.lineno})") from None
+    designs = data.get("designs") if isinstance(data, dict) else None
+    if not isinstance(designs, list) or not designs:
+        raise LoopscoutError(f"--designs {path}: expected an object with a non-empty 'designs' list")
+    for i, d in enumerate(designs):
+        missing = [k for k in ("name", "compensator", "metrics") if not isinstance(d, dict) or k not in d]
+        if missing:
+            raise LoopscoutError(f"--designs {path}: designs[{i}] lacks '{missing[0]}'")
+    return designs
+
+
+def _inputs(args: argparse.Namespace) -> tuple[Any, list[dict[str, Any]]]:
+    from explorer.study import load_study
+
+    study = load_study(args.study)
+    designs = load_designs(args.designs) if args.designs else given_designs(study)
+    return study, designs
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    from explorer.report import write_report
+
+    study, designs = _inputs(args)
+    out = write_report(study, designs, Path(args.out))
+    print(f"wrote {out}")
+    return 0
+
+
+def _cmd_charts(args: argparse.Namespace) -> int:
+    from explorer.report import export_charts
+
+    study, designs = _inputs(args)
+    for p in export_charts(study, designs, Path(args.out), formats=tuple(args.format)):
+        print(f"wrote {p}")
+    return 0
+
+
+def register(sub: Any, caution: str) -> None:
+    """Add ``report`` and ``charts`` to the CLI."""
+    common = dict(formatter_class=argparse.RawDescriptionHelpFormatter)
+    rep = sub.add_parser(
+        "report", help="write the offline HTML report (charts, ranked table, targets)",
+        description="One self-contained HTML page: Pareto views, loop gain and phase, gain-phase "
+        "chart with |T| contours and the Ms locus, |S| and |T|, step responses, ranked table.",
+        epilog="example:\n  loopscout report studies/kiln_damper.toml --out kiln.html\n\n" + caution, **common)
+    rep.add_argument("study", metavar="STUDY", help="study file (TOML)")
+    rep.add_argument("--designs", metavar="JSON", help="designs.json from explore (default: the study's [[compensator]] entries)")
+    rep.add_argument("--out", required=True, metavar="HTML", help="report file to write")
+    rep.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    rep.set_defaults(run=_cmd_report)
+
+    ch = sub.add_parser(
+        "charts", help="export each chart as PNG and/or SVG for slides",
+        description="Writes pareto_hf, pareto_iae, bode, nichols, sensitivity and steps charts.",
+        epilog="example:\n  loopscout charts studies/kiln_damper.toml --out slides --format svg\n\n" + caution, **common)
+    ch.add_argument("study", metavar="STUDY", help="study file (TOML)")
+    ch.add_argument("--designs", metavar="JSON", help="designs.json from explore (default: the study's [[compensator]] entries)")
+    ch.add_argument("--out", required=True, metavar="DIR", help="folder for the image files")
+    ch.add_argument("--format", nargs="+", default=["png", "svg"], choices=["png", "svg"], help="image formats")
+    ch.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    ch.set_defaults(run=_cmd_charts)
