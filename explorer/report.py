@@ -177,7 +177,7 @@ def _to_gain_phase(lv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 def m_contour_frame(m_db: Sequence[float] = (-6, -3, -1, 0.5, 1, 2, 3, 6, 12)) -> pd.DataFrame:
     """Closed-loop |T| = M contours in gain-phase coordinates (M-circles, module doc)."""
     parts = []
-    th = np.linspace(-math.pi, math.pi, 721)
+    th = np.linspace(-math.pi, math.pi, 361)
     for mdb in m_db:
         m = 10 ** (mdb / 20)
         c, r = -m * m / (m * m - 1), m / abs(m * m - 1)
