@@ -139,7 +139,10 @@ def _hand_records(study: Study) -> list[dict[str, Any]]:
     for hd in hds:
         if hd.compensator is None:
             continue
-        m = design_metrics(study.plant, hd.compensator)
+        try:
+            m = design_metrics(study.plant, hd.compensator)
+        except Exception:  # a reference design that cannot be evaluated is left out
+            continue
         ok, why = meets_targets(m, t, study.limits, study.plant.n_integrators + hd.compensator.n_integrators)
         out.append(design_record(name=hd.name, origin=hd.origin, structure=hd.structure, comp=hd.compensator,
                                  metrics=m, meets=ok, reasons=why))
@@ -188,7 +191,11 @@ def explore(study_or_path: Study | str | Path, out_dir: str | Path, *, trials: i
         kept = 0
         for r in _pick(recs, problem.searched_wc):
             comp = Rational(gain=r.gain, zeros=r.zeros, poles=r.poles)
-            m = design_metrics(study.plant, comp)
+            try:
+                m = design_metrics(study.plant, comp)
+            except Exception as exc:  # never report a design that could not be re-checked
+                why.setdefault(s.label, f"re-check of trial {r.number} failed: {type(exc).__name__}")
+                continue
             ok, miss = meets_targets(m, study.targets, study.limits,
                                      study.plant.n_integrators + comp.n_integrators)
             designs.append(design_record(name=f"{s.label} #{r.number}", origin="optimized", structure=s.label,
