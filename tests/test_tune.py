@@ -1,0 +1,81 @@
+"""Trial storage: SIGKILL mid-run then rerun gives exactly the budget, no trial lost
+or repeated; stored trials are read back per structure."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import optuna
+import pytest
+
+from explorer.study import load_study, parse_study
+from explorer.structures import candidate_structures
+from explorer.tune import study_names
+
+ROOT = Path(__file__).resolve().parents[1]
+STUDY_TOML = ('[plant]\ngain = 0.1333\npoles = [-0.3333, -2.0, -4.0]\n[targets]\ncrossover = 0.8\n'
+              'phase_margin = 55\nintegrators = 1\n[limits]\nsensitivity_peak = 1.6\n[search]\nmax_order = 2\n')
+
+
+def _count(out: Path, study_file: Path, budget: int) -> list[dict[str, int]]:
+    from optuna.storages.journal import JournalFileBackend, JournalStorage
+
+    st = load_study(study_file)
+    storage = JournalStorage(JournalFileBackend(str(out / "explore.journal")))
+    rows = []
+    for name in study_names(candidate_structures(st.plant, st.targets, st.search)):
+        trials = optuna.load_study(study_name=name, storage=storage).get_trials(deepcopy=False)
+        numbers = [t.number for t in trials if t.number < budget]
+        rows.append({"finished": sum(t.state.is_finished() for t in trials if t.number < budget),
+                     "unique": len(set(numbers)), "all": len(trials),
+                     "running": sum(t.state == optuna.trial.TrialState.RUNNING for t in trials)})
+    return rows
+
+
+def test_sigkill_then_resume_exact_budget(tmp_path: Path) -> None:
+    study = tmp_path / "s.toml"
+    study.write_text(STUDY_TOML)
+    out = tmp_path / "o"
+    budget = 150
+    cmd = [sys.executable, "-m", "explorer", "explore", str(study), "--out", str(out), "--trials", str(budget),
+           "--seed", "3", "--batch", "10"]
+    proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
+                            start_new_session=True)
+    # kill once trials are being written (the journal grows), before the run can finish
+    journal = out / "explore.journal"
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < 30:
+        if journal.exists() and journal.stat().st_size > 200_000:
+            break
+        time.sleep(0.02)
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    before = _count(out, study, budget)
+    assert sum(r["finished"] for r in before) < budget * len(before), "run finished before the kill"
+    r = subprocess.run(cmd, cwd=ROOT, capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    after = _count(out, study, budget)
+    for row in after:
+        assert row == {"finished": budget, "unique": budget, "all": budget, "running": 0}
+
+
+def test_rerun_adds_only_missing_trials(tmp_path: Path) -> None:
+    from explorer.explore import explore
+
+    study = parse_study({"plant": {"gain": 2.0, "poles": [-1.0, -5.0]},
+                         "targets": {"crossover": 1.0, "phase_margin": 50, "integrators": 1},
+                         "search": {"max_order": 1}})
+    explore(study, tmp_path, trials=10, seed=1, batch=4, progress=False)
+    explore(study, tmp_path, trials=25, seed=1, batch=4, progress=False)
+    from optuna.storages.journal import JournalFileBackend, JournalStorage
+
+    storage = JournalStorage(JournalFileBackend(str(tmp_path / "explore.journal")))
+    for name in study_names(candidate_structures(study.plant, study.targets, study.search)):
+        trials = optuna.load_study(study_name=name, storage=storage).trials
+        assert sorted(t.number for t in trials) == list(range(25))
+        assert all(t.state.is_finished() for t in trials)
