@@ -212,8 +212,8 @@ def _opacity(pick: alt.Parameter) -> Any:
 def pareto_chart(df: pd.DataFrame, x: str, x_title: str, pick: alt.Parameter) -> alt.LayerChart:
     """Ms against one objective; colour = structure (grey if targets missed), shape = order."""
     base = alt.Chart(df).encode(
-        x=alt.X(f"{x}:Q", title=x_title, scale=alt.Scale(zero=False, nice=True)),
-        y=alt.Y("Ms:Q", title="Ms (sensitivity peak)", scale=alt.Scale(zero=False)),
+        x=alt.X(f"{x}:Q", title=x_title, scale=alt.Scale(zero=False, nice=True, padding=24)),
+        y=alt.Y("Ms:Q", title="Ms (sensitivity peak)", scale=alt.Scale(zero=False, padding=24)),
         tooltip=["name:N", "origin:N", "structure:N", "order:N", "status:N",
                  alt.Tooltip("Ms:Q", format=".3f"), alt.Tooltip(f"{x}:Q", format=".4g")],
     )
@@ -229,7 +229,8 @@ def pareto_chart(df: pd.DataFrame, x: str, x_title: str, pick: alt.Parameter) ->
     ring = base.transform_filter("datum.hand").mark_point(
         shape="diamond", filled=False, size=420, stroke=_INK, strokeWidth=1.8
     ).encode(opacity=_opacity(pick))
-    return (pts + ring).properties(width=330, height=240, title=f"Ms against {x_title}")
+    title = f"Ms against {x_title}" + ("" if len(df) else " — no design has a finite value")
+    return (pts + ring).properties(width=330, height=240, title=title)
 
 
 def _line(df: pd.DataFrame, y: str, y_title: str, pick: alt.Parameter, *, logx: bool = True,
@@ -479,7 +480,7 @@ h2{font-size:17px;font-weight:600;border-bottom:2px solid #d9822b;display:inline
 table{border-collapse:collapse;font-size:13px;background:#fff}
 th,td{border-bottom:1px solid #e6e2d6;padding:5px 8px;text-align:right;vertical-align:top}
 th{background:#f1eee4;font-weight:600}th span{display:block;font-weight:normal;color:#6b726e}
-td:nth-child(2),td:nth-child(3),td:nth-child(4){text-align:left}
+td:nth-child(2),td:nth-child(3),td:nth-child(4),th:nth-child(2),th:nth-child(3),th:nth-child(4){text-align:left}
 tr.miss td{color:#8a8f8b}.tf{font-family:ui-monospace,Menlo,Consolas,monospace;font-size:12px}
 .sub{font-size:12px;color:#6b726e}
 .caution{background:#fff4e0;border-left:5px solid #d9822b;padding:10px 16px}
