@@ -21,6 +21,7 @@ import math
 import os
 import socket
 import sys
+import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
@@ -55,6 +56,8 @@ optuna.logging.set_verbosity(optuna.logging.WARNING)
 #: Phase margin used when neither a target nor a limit gives one (common practice).
 DEFAULT_PM_DEG = 45.0
 _PENALTY = 1e9
+#: How long a worker waits for other workers' running trials before ranking (s).
+WAIT_FOR_OTHERS_S = 120.0
 _WORKER = f"{socket.gethostname()}:{os.getpid()}"
 
 
@@ -189,12 +192,23 @@ def open_storage(storage: str | None, out_dir: Path) -> optuna.storages.BaseStor
 
             out_dir.mkdir(parents=True, exist_ok=True)
             return JournalStorage(JournalFileBackend(str(out_dir / "explore.journal")))
-        return optuna.storages.RDBStorage(storage)
+        return optuna.storages.RDBStorage(_with_driver(storage))
     except LoopscoutError:
         raise
     except Exception as exc:
         raise LoopscoutError(f"storage {storage or str(out_dir / 'explore.journal')!r} cannot be opened: "
                              f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}") from None
+
+
+def _with_driver(url: str) -> str:
+    """``postgresql://`` means psycopg (3) to SQLAlchemy 2.1; fall back to psycopg2
+    when only that driver is installed."""
+    if url.startswith("postgresql://"):
+        import importlib.util
+
+        if importlib.util.find_spec("psycopg") is None and importlib.util.find_spec("psycopg2") is not None:
+            return "postgresql+psycopg2://" + url[len("postgresql://"):]
+    return url
 
 
 def study_names(structures: list[Structure]) -> list[str]:
@@ -306,7 +320,16 @@ def run_structures(problem: Problem, structures: list[Structure], studies: list[
             asked = [t for t in asked if t.number < trials]
             if asked:
                 _evaluate_and_tell(problem, s, st, asked, [t.params for t in asked], cnames)
-        # wait-free: another worker may still be finishing its RUNNING trials
+    # other workers may still be finishing trials of the budget: wait for them so every
+    # worker ranks the same stored trials (stale trials of dead local workers excepted)
+    for st in studies:
+        deadline = time.monotonic() + WAIT_FOR_OTHERS_S
+        while time.monotonic() < deadline:
+            running = [t for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
+                       if t.number < trials and not _dead_here(t.user_attrs.get("worker"))]
+            if not running:
+                break
+            time.sleep(0.05)
 
 
 def _evaluate_and_tell(problem: Problem, s: Structure, st: optuna.Study, tr: list[optuna.Trial],
