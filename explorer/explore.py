@@ -277,6 +277,9 @@ def _write(out: Path, study: Study, obj: dict[str, Any], frame: Any) -> None:
     except (ImportError, SyntaxError):  # the report module is optional here
         _fallback_report(out / "report.html", study, obj)
     else:
+        if not obj["designs"]:  # nothing to chart: the table page still says so
+            _fallback_report(out / "report.html", study, obj)
+            return
         write_report(study, obj["designs"], out / "report.html")
 
 
