@@ -37,6 +37,7 @@ def _count(out: Path, study_file: Path, budget: int) -> list[dict[str, int]]:
     return rows
 
 
+@pytest.mark.slow
 def test_sigkill_then_resume_exact_budget(tmp_path: Path) -> None:
     study = tmp_path / "s.toml"
     study.write_text(STUDY_TOML)
