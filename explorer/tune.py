@@ -279,9 +279,25 @@ def _dead_here(worker: str | None) -> bool:
     return False
 
 
+#: A RUNNING trial without a worker mark older than this is taken as interrupted (s).
+UNMARKED_STALE_S = 60.0
+
+
+def _is_stale(t: optuna.trial.FrozenTrial) -> bool:
+    worker = t.user_attrs.get("worker")
+    if worker is not None:
+        return _dead_here(worker)
+    start = t.datetime_start
+    if start is None:
+        return False
+    import datetime as _dt
+
+    return (_dt.datetime.now() - start).total_seconds() > UNMARKED_STALE_S
+
+
 def _stale_running(st: optuna.Study, budget: int) -> list[optuna.trial.FrozenTrial]:
     return [t for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
-            if t.number < budget and _dead_here(t.user_attrs.get("worker"))]
+            if t.number < budget and _is_stale(t)]
 
 
 def run_structures(problem: Problem, structures: list[Structure], studies: list[optuna.Study], *,
@@ -293,6 +309,11 @@ def run_structures(problem: Problem, structures: list[Structure], studies: list[
         dists = _distributions(s, problem)
         # finish trials a killed worker left RUNNING (same parameters, same number)
         stale = _stale_running(st, trials)
+        for t in [t for t in stale if set(t.params) != set(dists)]:  # killed before sampling finished
+            tr0 = optuna.Trial(st, t._trial_id)
+            tr0.set_user_attr("fail_reason", "interrupted before its parameters were sampled")
+            st.tell(tr0, state=TrialState.FAIL, skip_if_finished=True)
+        stale = [t for t in stale if set(t.params) == set(dists)]
         for k in range(0, len(stale), batch):
             chunk = stale[k:k + batch]
             tr = [optuna.Trial(st, t._trial_id) for t in chunk]
@@ -326,7 +347,7 @@ def run_structures(problem: Problem, structures: list[Structure], studies: list[
         deadline = time.monotonic() + WAIT_FOR_OTHERS_S
         while time.monotonic() < deadline:
             running = [t for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
-                       if t.number < trials and not _dead_here(t.user_attrs.get("worker"))]
+                       if t.number < trials and not _is_stale(t)]
             if not running:
                 break
             time.sleep(0.05)
