@@ -34,8 +34,10 @@ def main() -> None:
         t0 = time.perf_counter()
         res = explore(study, tmp, trials=100, seed=1, batch=batch, progress=False)
         dt = time.perf_counter() - t0
-        print(f"{n_struct} structures x 100 trials, batch {batch:>2}: {dt:6.2f} s wall "
-              f"({len(res.designs)} designs kept; {res.summary[0]})")
+        print(
+            f"{n_struct} structures x 100 trials, batch {batch:>2}: {dt:6.2f} s wall "
+            f"({len(res.designs)} designs kept; {res.summary[0]})"
+        )
         shutil.rmtree(tmp, ignore_errors=True)
     sys.stdout.flush()
 

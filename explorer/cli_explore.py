@@ -47,13 +47,28 @@ def register(sub: Any, caution: str) -> None:
     p.add_argument("study", metavar="STUDY", help="study file (TOML), see docs/study-file.md")
     p.add_argument("--out", metavar="DIR", required=True, help="output folder (created if missing)")
     p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    p.add_argument("--trials", type=int, metavar="N", default=None,
-                   help="trials per structure (default: [search] trials, else 100)")
-    p.add_argument("--seed", type=int, metavar="S", default=None, help="random seed (same seed, same designs)")
-    p.add_argument("--storage", metavar="URL", default=None,
-                   help="database URL for the trials (default: DIR/explore.journal)")
-    p.add_argument("--batch", type=int, metavar="N", default=32, help="trials evaluated together (default 32)")
-    p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    p.add_argument(
+        "--trials",
+        type=int,
+        metavar="N",
+        default=None,
+        help="trials per structure (default: [search] trials, else 100)",
+    )
+    p.add_argument(
+        "--seed", type=int, metavar="S", default=None, help="random seed (same seed, same designs)"
+    )
+    p.add_argument(
+        "--storage",
+        metavar="URL",
+        default=None,
+        help="database URL for the trials (default: DIR/explore.journal)",
+    )
+    p.add_argument(
+        "--batch", type=int, metavar="N", default=32, help="trials evaluated together (default 32)"
+    )
+    p.add_argument(
+        "--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS
+    )
     p.set_defaults(run=_run, caution=caution)
 
 
@@ -74,8 +89,16 @@ def ranked_table(designs: list[dict[str, Any]]) -> str:
     rows = []
     for d in designs:
         m = {**d["metrics"], "order": d["order"]}
-        rows.append([d["name"], d["origin"], d["structure"], *[_cell(m.get(k), f) for k, _, f in _COLUMNS],
-                     _cell(d["meets_targets"], ""), _cell(d["pareto"], "")])
+        rows.append(
+            [
+                d["name"],
+                d["origin"],
+                d["structure"],
+                *[_cell(m.get(k), f) for k, _, f in _COLUMNS],
+                _cell(d["meets_targets"], ""),
+                _cell(d["pareto"], ""),
+            ]
+        )
     widths = [max(len(str(r[i])) for r in [head, *rows]) for i in range(len(head))]
     lines = ["  ".join(str(c).ljust(w) for c, w in zip(r, widths)).rstrip() for r in [head, *rows]]
     lines.insert(1, "  ".join("-" * w for w in widths))
@@ -86,8 +109,15 @@ def _run(args: argparse.Namespace) -> int:
     from explorer.cli import _print_json
     from explorer.explore import explore
 
-    res = explore(args.study, args.out, trials=args.trials, seed=args.seed, storage=args.storage,
-                  batch=args.batch, progress=True)
+    res = explore(
+        args.study,
+        args.out,
+        trials=args.trials,
+        seed=args.seed,
+        storage=args.storage,
+        batch=args.batch,
+        progress=True,
+    )
     if args.json:
         _print_json(res.obj)
         return 0

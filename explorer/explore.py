@@ -62,16 +62,28 @@ def make_problem(study: Study):  # -> explorer.tune.Problem
         pm = study.limits.get("phase_margin_deg", DEFAULT_PM_DEG)
     wc = t.crossover_rad_s
     if isinstance(wc, (int, float)):
-        return Problem(plant=study.plant, targets=t, limits=study.limits, pm_deg=float(pm),
-                       wc_rad_s=float(wc), wc_range_rad_s=None)
+        return Problem(
+            plant=study.plant,
+            targets=t,
+            limits=study.limits,
+            pm_deg=float(pm),
+            wc_rad_s=float(wc),
+            wc_range_rad_s=None,
+        )
     if isinstance(wc, tuple):
         rng = (float(wc[0]), float(wc[1]))
     else:
         s0 = _plant_scale(study.plant)
         hi = 20.0 * s0 if study.plant.delay_s <= 0 else min(20.0 * s0, 2.0 / study.plant.delay_s)
         rng = (s0 / 50.0, hi)
-    return Problem(plant=study.plant, targets=t, limits=study.limits, pm_deg=float(pm), wc_rad_s=None,
-                   wc_range_rad_s=rng)
+    return Problem(
+        plant=study.plant,
+        targets=t,
+        limits=study.limits,
+        pm_deg=float(pm),
+        wc_rad_s=None,
+        wc_range_rad_s=rng,
+    )
 
 
 def _pick(records: list[Any], searched_wc: bool) -> list[Any]:
@@ -83,15 +95,28 @@ def _pick(records: list[Any], searched_wc: bool) -> list[Any]:
     if not feas:
         return []
     keys = ["sensitivity_peak", "hf_gain", "iae_load"]
-    x = np.array([[np.inf if r.metrics.get(k) is None else r.metrics[k] for k in keys]
-                  + ([-r.metrics.get("crossover_rad_s") or 0.0] if searched_wc else []) for r in feas], float)
+    x = np.array(
+        [
+            [np.inf if r.metrics.get(k) is None else r.metrics[k] for k in keys]
+            + ([-r.metrics.get("crossover_rad_s") or 0.0] if searched_wc else [])
+            for r in feas
+        ],
+        float,
+    )
     front = non_dominated_fronts(x)
     pareto = [r for r, f in zip(feas, front) if f == 0]
     chosen = [min(feas, key=lambda r: (r.metrics["sensitivity_peak"], r.number))]
     for k in keys[1:][:PARETO_PICKS]:
-        chosen.append(min(pareto, key=lambda r: (np.inf if r.metrics.get(k) is None else r.metrics[k], r.number)))
+        chosen.append(
+            min(
+                pareto,
+                key=lambda r: (np.inf if r.metrics.get(k) is None else r.metrics[k], r.number),
+            )
+        )
     if searched_wc:
-        chosen.append(max(pareto, key=lambda r: (r.metrics.get("crossover_rad_s") or 0.0, -r.number)))
+        chosen.append(
+            max(pareto, key=lambda r: (r.metrics.get("crossover_rad_s") or 0.0, -r.number))
+        )
     out, seen = [], set()
     for r in chosen:
         if r.number not in seen:
@@ -117,11 +142,19 @@ def _why_not(s: Structure, records: list[Any], pm_deg: float) -> str:
         fails = [r.reason for r in records if r.reason]
         return fails[0] if fails else "no feasible trial"
     worst = max(counts, key=lambda k: counts[k])
-    label = {"closed_loop_unstable": "closed loop unstable", "crossover_missed": "crossover not where targeted",
-             "phase_margin_short_deg": "smallest phase margin below target (another crossover)"}.get(
-        worst, worst.replace("limit:", "breaks the limit "))
-    best_ms = [r.metrics.get("sensitivity_peak") for r in records if r.metrics.get("sensitivity_peak")]
-    extra = f"; best Ms reached {min(best_ms):.3g}" if best_ms and worst == "limit:sensitivity_peak" else ""
+    label = {
+        "closed_loop_unstable": "closed loop unstable",
+        "crossover_missed": "crossover not where targeted",
+        "phase_margin_short_deg": "smallest phase margin below target (another crossover)",
+    }.get(worst, worst.replace("limit:", "breaks the limit "))
+    best_ms = [
+        r.metrics.get("sensitivity_peak") for r in records if r.metrics.get("sensitivity_peak")
+    ]
+    extra = (
+        f"; best Ms reached {min(best_ms):.3g}"
+        if best_ms and worst == "limit:sensitivity_peak"
+        else ""
+    )
     return f"{label} in {counts[worst]}/{len(records)} trials{extra}"
 
 
@@ -143,15 +176,33 @@ def _hand_records(study: Study) -> list[dict[str, Any]]:
             m = design_metrics(study.plant, hd.compensator)
         except Exception:  # a reference design that cannot be evaluated is left out
             continue
-        ok, why = meets_targets(m, t, study.limits, study.plant.n_integrators + hd.compensator.n_integrators)
-        out.append(design_record(name=hd.name, origin=hd.origin, structure=hd.structure, comp=hd.compensator,
-                                 metrics=m, meets=ok, reasons=why))
+        ok, why = meets_targets(
+            m, t, study.limits, study.plant.n_integrators + hd.compensator.n_integrators
+        )
+        out.append(
+            design_record(
+                name=hd.name,
+                origin=hd.origin,
+                structure=hd.structure,
+                comp=hd.compensator,
+                metrics=m,
+                meets=ok,
+                reasons=why,
+            )
+        )
     return out
 
 
-def explore(study_or_path: Study | str | Path, out_dir: str | Path, *, trials: int | None = None,
-            seed: int | None = None, storage: str | None = None, batch: int = 32,
-            progress: bool = True) -> ExploreResult:
+def explore(
+    study_or_path: Study | str | Path,
+    out_dir: str | Path,
+    *,
+    trials: int | None = None,
+    seed: int | None = None,
+    storage: str | None = None,
+    batch: int = 32,
+    progress: bool = True,
+) -> ExploreResult:
     """Run (or resume) the exploration of a study and write the result files."""
     from explorer import tune
     from explorer.ranking import rank_designs
@@ -169,8 +220,10 @@ def explore(study_or_path: Study | str | Path, out_dir: str | Path, *, trials: i
     problem = make_problem(study)
     structures = candidate_structures(study.plant, study.targets, study.search)
     if not structures:
-        raise LoopscoutError(f"{study.source}: no compensator structure fits `search.max_order` "
-                             f"{study.search.max_order} with {study.targets.integrators} integrator(s)")
+        raise LoopscoutError(
+            f"{study.source}: no compensator structure fits `search.max_order` "
+            f"{study.search.max_order} with {study.targets.integrators} integrator(s)"
+        )
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -194,13 +247,25 @@ def explore(study_or_path: Study | str | Path, out_dir: str | Path, *, trials: i
             try:
                 m = design_metrics(study.plant, comp)
             except Exception as exc:  # never report a design that could not be re-checked
-                why.setdefault(s.label, f"re-check of trial {r.number} failed: {type(exc).__name__}")
+                why.setdefault(
+                    s.label, f"re-check of trial {r.number} failed: {type(exc).__name__}"
+                )
                 continue
-            ok, miss = meets_targets(m, study.targets, study.limits,
-                                     study.plant.n_integrators + comp.n_integrators)
-            designs.append(design_record(name=f"{s.label} #{r.number}", origin="optimized", structure=s.label,
-                                         comp=comp, metrics=m, meets=ok, reasons=miss,
-                                         extra={"trial": r.number}))
+            ok, miss = meets_targets(
+                m, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
+            )
+            designs.append(
+                design_record(
+                    name=f"{s.label} #{r.number}",
+                    origin="optimized",
+                    structure=s.label,
+                    comp=comp,
+                    metrics=m,
+                    meets=ok,
+                    reasons=miss,
+                    extra={"trial": r.number},
+                )
+            )
             kept += ok
         if not kept:
             why[s.label] = _why_not(s, recs, problem.pm_deg)
@@ -215,23 +280,39 @@ def explore(study_or_path: Study | str | Path, out_dir: str | Path, *, trials: i
     order = {n: i for i, n in enumerate(frame["name"])} if len(frame) else {}
     designs.sort(key=lambda d: order.get(d["name"], 10**6))
     summary = _summary(study, structures, designs, why, n_trials)
-    obj = {"designs": designs, "study": _study_header(study), "summary": summary, "caution": CAUTION}
+    obj = {
+        "designs": designs,
+        "study": _study_header(study),
+        "summary": summary,
+        "caution": CAUTION,
+    }
     _write(out, study, obj, frame)
     return ExploreResult(designs=designs, frame=frame, summary=summary, obj=obj, out_dir=out)
 
 
-def _summary(study: Study, structures: list[Structure], designs: list[dict[str, Any]], why: dict[str, str],
-             n_trials: int) -> list[str]:
+def _summary(
+    study: Study,
+    structures: list[Structure],
+    designs: list[dict[str, Any]],
+    why: dict[str, str],
+    n_trials: int,
+) -> list[str]:
     lines = []
     ok = [d for d in designs if d["origin"] == "optimized" and d["meets_targets"]]
     if ok:
         low = min(d["order"] for d in ok)
-        best = min((d for d in ok if d["order"] == low), key=lambda d: d["metrics"]["sensitivity_peak"])
-        lines.append(f"answer: order {low} suffices — {best['structure']} ({best['name']}) meets the targets "
-                     f"and limits with Ms {best['metrics']['sensitivity_peak']:.3g}")
+        best = min(
+            (d for d in ok if d["order"] == low), key=lambda d: d["metrics"]["sensitivity_peak"]
+        )
+        lines.append(
+            f"answer: order {low} suffices — {best['structure']} ({best['name']}) meets the targets "
+            f"and limits with Ms {best['metrics']['sensitivity_peak']:.3g}"
+        )
     else:
-        lines.append("answer: no explored structure meets the targets and limits "
-                     f"(up to order {study.search.max_order})")
+        lines.append(
+            "answer: no explored structure meets the targets and limits "
+            f"(up to order {study.search.max_order})"
+        )
     lines.append(f"explored {len(structures)} structures x {n_trials} trials")
     for label, reason in why.items():
         lines.append(f"{label}: {reason}")
@@ -244,11 +325,18 @@ def _summary(study: Study, structures: list[Structure], designs: list[dict[str, 
 def _study_header(study: Study) -> dict[str, Any]:
     t = study.targets
     wc = list(t.crossover_rad_s) if isinstance(t.crossover_rad_s, tuple) else t.crossover_rad_s
-    return {"name": study.name, "source": study.source,
-            "plant": study.plant.to_dict() | {"delay": study.plant.delay_s},
-            "targets": {"crossover_rad_s": wc, "phase_margin_deg": t.phase_margin_deg,
-                        "integrators": t.integrators, "derived_from": list(t.derived_from)},
-            "limits": dict(study.limits)}
+    return {
+        "name": study.name,
+        "source": study.source,
+        "plant": study.plant.to_dict() | {"delay": study.plant.delay_s},
+        "targets": {
+            "crossover_rad_s": wc,
+            "phase_margin_deg": t.phase_margin_deg,
+            "integrators": t.integrators,
+            "derived_from": list(t.derived_from),
+        },
+        "limits": dict(study.limits),
+    }
 
 
 def _clean(v: Any) -> Any:
@@ -286,16 +374,33 @@ def _write(out: Path, study: Study, obj: dict[str, Any], frame: Any) -> None:
 def _fallback_report(path: Path, study: Study, obj: dict[str, Any]) -> None:
     from html import escape
 
-    cols = ["order", "crossover_rad_s", "phase_margin_deg", "sensitivity_peak", "hf_gain", "iae_load"]
-    head = "".join(f"<th>{escape(c)}</th>" for c in ["design", "origin", "structure", *cols, "meets", "pareto"])
+    cols = [
+        "order",
+        "crossover_rad_s",
+        "phase_margin_deg",
+        "sensitivity_peak",
+        "hf_gain",
+        "iae_load",
+    ]
+    head = "".join(
+        f"<th>{escape(c)}</th>" for c in ["design", "origin", "structure", *cols, "meets", "pareto"]
+    )
     body = []
     for d in obj["designs"]:
         m = {**d["metrics"], "order": d["order"]}
-        cells = [escape(d["name"]), escape(d["origin"]), escape(d["structure"]),
-                 *[("" if m.get(c) is None else f"{m[c]:.4g}") for c in cols], str(d["meets_targets"]),
-                 str(d["pareto"])]
+        cells = [
+            escape(d["name"]),
+            escape(d["origin"]),
+            escape(d["structure"]),
+            *[("" if m.get(c) is None else f"{m[c]:.4g}") for c in cols],
+            str(d["meets_targets"]),
+            str(d["pareto"]),
+        ]
         body.append("<tr>" + "".join(f"<td>{c}</td>" for c in cells) + "</tr>")
     lines = "".join(f"<p>{escape(s)}</p>" for s in obj["summary"])
-    path.write_text(f"<!doctype html><meta charset='utf-8'><title>{escape(study.name)}</title>"
-                    f"<h1>{escape(study.name)}</h1>{lines}<table border='1'><tr>{head}</tr>{''.join(body)}"
-                    f"</table><p><b>{escape(CAUTION)}</b></p>\n", encoding="utf-8")
+    path.write_text(
+        f"<!doctype html><meta charset='utf-8'><title>{escape(study.name)}</title>"
+        f"<h1>{escape(study.name)}</h1>{lines}<table border='1'><tr>{head}</tr>{''.join(body)}"
+        f"</table><p><b>{escape(CAUTION)}</b></p>\n",
+        encoding="utf-8",
+    )

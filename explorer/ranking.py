@@ -21,7 +21,10 @@ RANK_KEYS = ("order", "sensitivity_peak", "hf_gain", "iae_load")
 
 
 def _matrix(rows: list[dict[str, Any]]) -> np.ndarray:
-    m = np.array([[float("nan") if r.get(k) is None else float(r[k]) for k in RANK_KEYS] for r in rows], float)
+    m = np.array(
+        [[float("nan") if r.get(k) is None else float(r[k]) for k in RANK_KEYS] for r in rows],
+        float,
+    )
     return np.where(np.isnan(m), np.inf, m).reshape(len(rows), len(RANK_KEYS))
 
 
@@ -60,16 +63,32 @@ def rank_designs(designs: list[dict[str, Any]]) -> pd.DataFrame:
     designs not meeting), ``pareto``, ``dominates_hand`` (names)."""
     rows = []
     for d in designs:
-        row = {"name": d["name"], "origin": d["origin"], "structure": d["structure"], "order": d["order"],
-               "meets_targets": d.get("meets_targets")}
+        row = {
+            "name": d["name"],
+            "origin": d["origin"],
+            "structure": d["structure"],
+            "order": d["order"],
+            "meets_targets": d.get("meets_targets"),
+        }
         for k, v in d["metrics"].items():
             if k != "crossovers_rad_s":
                 row[k] = v
         rows.append(row)
     frame = pd.DataFrame(rows)
     if frame.empty:
-        return pd.DataFrame(columns=["name", "origin", "structure", "order", "meets_targets", "front", "pareto",
-                                     "dominates_hand", *RANK_KEYS[1:]])
+        return pd.DataFrame(
+            columns=[
+                "name",
+                "origin",
+                "structure",
+                "order",
+                "meets_targets",
+                "front",
+                "pareto",
+                "dominates_hand",
+                *RANK_KEYS[1:],
+            ]
+        )
     meets = np.array([bool(r["meets_targets"]) for r in rows])
     x = _matrix(rows)
     front = np.full(len(rows), -1)
@@ -88,6 +107,11 @@ def rank_designs(designs: list[dict[str, Any]]) -> pd.DataFrame:
     frame["pareto"] = front == 0
     frame["dominates_hand"] = dom_hand
     frame["_sort"] = np.where(meets, front, 10**6)
-    frame = frame.sort_values(["_sort", "order", "sensitivity_peak", "name"], kind="stable",
-                              na_position="last").drop(columns="_sort").reset_index(drop=True)
+    frame = (
+        frame.sort_values(
+            ["_sort", "order", "sensitivity_peak", "name"], kind="stable", na_position="last"
+        )
+        .drop(columns="_sort")
+        .reset_index(drop=True)
+    )
     return frame

@@ -55,7 +55,9 @@ class Structure(ABC):
     def params(self) -> dict[str, tuple[float, float]]: ...
 
     @abstractmethod
-    def roots(self, params: dict[str, np.ndarray], wc_rad_s: np.ndarray) -> tuple[np.ndarray, np.ndarray]: ...
+    def roots(
+        self, params: dict[str, np.ndarray], wc_rad_s: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]: ...
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -79,8 +81,13 @@ class RootStructure(Structure):
 
     @property
     def n_zeros(self) -> int:
-        return (self.free_zeros + len(self.cancel) + 2 * self.complex_zeros + 2 * (self.notch is not None)
-                + (self.balance_root == "zero"))
+        return (
+            self.free_zeros
+            + len(self.cancel)
+            + 2 * self.complex_zeros
+            + 2 * (self.notch is not None)
+            + (self.balance_root == "zero")
+        )
 
     @property
     def params(self) -> dict[str, tuple[float, float]]:
@@ -97,14 +104,22 @@ class RootStructure(Structure):
             p["notch_zeta"] = (max(self.notch[1], 0.01), 0.6)
         return p
 
-    def roots(self, params: dict[str, np.ndarray], wc_rad_s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def roots(
+        self, params: dict[str, np.ndarray], wc_rad_s: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
         wc = np.asarray(wc_rad_s, float)
         n = wc.shape[0]
         zs: list[np.ndarray] = [np.full(n, c, dtype=complex) for c in self.cancel]
-        zs += [-(wc * 10.0 ** np.asarray(params[f"zero{i + 1}"], float)) + 0j for i in range(self.free_zeros)]
+        zs += [
+            -(wc * 10.0 ** np.asarray(params[f"zero{i + 1}"], float)) + 0j
+            for i in range(self.free_zeros)
+        ]
         ps: list[np.ndarray] = [np.zeros(n, complex) for _ in range(self.integrators)]
-        ps += [-(wc * 10.0 ** np.asarray(params[f"pole{i + 1}"], float)) + 0j for i in range(self.free_poles)]
-        for key, wn_of in (("pair", lambda x: wc * 10.0 ** x), ("notch", None)):
+        ps += [
+            -(wc * 10.0 ** np.asarray(params[f"pole{i + 1}"], float)) + 0j
+            for i in range(self.free_poles)
+        ]
+        for key, wn_of in (("pair", lambda x: wc * 10.0**x), ("notch", None)):
             if key == "pair" and not self.complex_zeros:
                 continue
             if key == "notch":
@@ -149,8 +164,13 @@ def loop_phase_target_deg(pm_deg: float | np.ndarray) -> np.ndarray:
     return -180.0 + np.asarray(pm_deg, float)
 
 
-def balance(plant: Rational, s: Structure, params: dict[str, np.ndarray], wc_rad_s: np.ndarray,
-            pm_deg: float | np.ndarray) -> Balance:
+def balance(
+    plant: Rational,
+    s: Structure,
+    params: dict[str, np.ndarray],
+    wc_rad_s: np.ndarray,
+    pm_deg: float | np.ndarray,
+) -> Balance:
     """Solve the balancing root from ∠L(jωc) = −180° + PM (mod 360°) and the gain
     from |L(jωc)| = 1, for a batch. Infeasible rows get the shortfall in degrees
     (distance of the needed phase from what the balancing root can give within its
@@ -201,13 +221,17 @@ def _lightly_damped(plant: Rational) -> list[tuple[float, float]]:
     return modes
 
 
-def _label(ni: int, fz: int, fp: int, bal: str, *, cz: bool = False, notch: bool = False, nc: int = 0) -> str:
+def _label(
+    ni: int, fz: int, fp: int, bal: str, *, cz: bool = False, notch: bool = False, nc: int = 0
+) -> str:
     head = {0: "P", 1: "I"}.get(ni, f"I{ni}")
     zeros = fz + (bal == "zero") + (2 if cz else 0)
     poles = fp + (bal == "pole")
     parts = []
     if cz:
-        return f"PID·filter (complex zeros){'+roll-off' * max(poles - 1, 0)}".replace("+roll-off+roll-off", "+2 roll-off")
+        return f"PID·filter (complex zeros){'+roll-off' * max(poles - 1, 0)}".replace(
+            "+roll-off+roll-off", "+2 roll-off"
+        )
     if nc:
         parts.append("cancel" if nc == 1 else f"{nc} cancel")
     if notch:
@@ -231,7 +255,9 @@ def _label(ni: int, fz: int, fp: int, bal: str, *, cz: bool = False, notch: bool
     return "+".join([base, *parts])
 
 
-def candidate_structures(plant: Rational, targets: Targets, search: SearchOptions) -> list[Structure]:
+def candidate_structures(
+    plant: Rational, targets: Targets, search: SearchOptions
+) -> list[Structure]:
     """Structures up to ``search.max_order`` compensator poles, lowest order first.
 
     Required integrators = targets.integrators minus the plant's own. Families: real
@@ -247,8 +273,22 @@ def candidate_structures(plant: Rational, targets: Targets, search: SearchOption
     seen: set[tuple] = set()
 
     def add(s: RootStructure) -> None:
-        key = (s.integrators, s.free_zeros, s.free_poles, s.complex_zeros, s.notch, s.cancel, s.balance_root)
-        if key in seen or s.order > max_order or s.n_zeros > s.order or s.order == 0 and s.n_zeros == 0:
+        key = (
+            s.integrators,
+            s.free_zeros,
+            s.free_poles,
+            s.complex_zeros,
+            s.notch,
+            s.cancel,
+            s.balance_root,
+        )
+        if (
+            key in seen
+            or s.order > max_order
+            or s.n_zeros > s.order
+            or s.order == 0
+            and s.n_zeros == 0
+        ):
             return
         seen.add(key)
         out.append(s)
@@ -257,32 +297,67 @@ def candidate_structures(plant: Rational, targets: Targets, search: SearchOption
         for fz in range(0, extra_poles + ni + 1):
             # balancing zero: zeros = fz + 1, poles = extra_poles
             if fz + 1 <= ni + extra_poles:
-                add(RootStructure(label=_label(ni, fz, extra_poles, "zero"), integrators=ni,
-                                  free_zeros=fz, free_poles=extra_poles, balance_root="zero"))
+                add(
+                    RootStructure(
+                        label=_label(ni, fz, extra_poles, "zero"),
+                        integrators=ni,
+                        free_zeros=fz,
+                        free_poles=extra_poles,
+                        balance_root="zero",
+                    )
+                )
         # balancing pole with free zeros (a roll-off solved from phase)
         if extra_poles >= 1:
             fp = extra_poles - 1
             for fz in range(0, min(ni + extra_poles, 2) + 1):
                 if fz >= 1 or ni == 0:
-                    add(RootStructure(label=_label(ni, fz, fp, "pole"), integrators=ni,
-                                      free_zeros=fz, free_poles=fp, balance_root="pole"))
+                    add(
+                        RootStructure(
+                            label=_label(ni, fz, fp, "pole"),
+                            integrators=ni,
+                            free_zeros=fz,
+                            free_poles=fp,
+                            balance_root="pole",
+                        )
+                    )
     # PID with complex zeros and a balancing filter pole (+ roll-off)
     if ni >= 1:
         for fp in range(0, max_order - ni):
-            add(RootStructure(label=_label(ni, 0, fp, "pole", cz=True), integrators=ni, free_poles=fp,
-                              complex_zeros=True, balance_root="pole"))
+            add(
+                RootStructure(
+                    label=_label(ni, 0, fp, "pole", cz=True),
+                    integrators=ni,
+                    free_poles=fp,
+                    complex_zeros=True,
+                    balance_root="pole",
+                )
+            )
     # cancellation of slow stable plant poles, balancing pole
     slow = _slow_stable_real_poles(plant, wc)
     for nc in (1, 2):
         if len(slow) >= nc:
             for fp in range(0, max_order - ni):
-                add(RootStructure(label=_label(ni, 0, fp, "pole", nc=nc), integrators=ni, free_poles=fp,
-                                  cancel=tuple(slow[:nc]), balance_root="pole"))
+                add(
+                    RootStructure(
+                        label=_label(ni, 0, fp, "pole", nc=nc),
+                        integrators=ni,
+                        free_poles=fp,
+                        cancel=tuple(slow[:nc]),
+                        balance_root="pole",
+                    )
+                )
     # notch on a lightly damped mode: two roll-off poles and a balancing zero
     for mode in _lightly_damped(plant):
         for fp in range(2, max_order - ni + 1):
-            add(RootStructure(label=_label(ni, 0, fp, "zero", notch=True), integrators=ni, free_poles=fp,
-                              notch=mode, balance_root="zero"))
+            add(
+                RootStructure(
+                    label=_label(ni, 0, fp, "zero", notch=True),
+                    integrators=ni,
+                    free_poles=fp,
+                    notch=mode,
+                    balance_root="zero",
+                )
+            )
     # one structure per label: the same roots reached by another balancing root are dropped
     final: list[Structure] = []
     labels: set[str] = set()

@@ -22,9 +22,10 @@ import os
 import socket
 import sys
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 import optuna
@@ -95,16 +96,24 @@ class TrialRecord:
 
 
 def objective_names(searched_wc: bool) -> list[str]:
-    return ["sensitivity_peak", "hf_gain", "iae_load"] + (["neg_crossover_rad_s"] if searched_wc else [])
+    return ["sensitivity_peak", "hf_gain", "iae_load"] + (
+        ["neg_crossover_rad_s"] if searched_wc else []
+    )
 
 
 def constraint_names(limits: dict[str, float]) -> list[str]:
-    return ["phase_balance_deg", "closed_loop_unstable", "crossover_missed", "phase_margin_short_deg",
-            *[f"limit:{k}" for k in limits]]
+    return [
+        "phase_balance_deg",
+        "closed_loop_unstable",
+        "crossover_missed",
+        "phase_margin_short_deg",
+        *[f"limit:{k}" for k in limits],
+    ]
 
 
-def evaluate_batch(problem: Problem, s: Structure, params: dict[str, np.ndarray],
-                   wc_rad_s: np.ndarray) -> dict[str, Any]:
+def evaluate_batch(
+    problem: Problem, s: Structure, params: dict[str, np.ndarray], wc_rad_s: np.ndarray
+) -> dict[str, Any]:
     """Balance and evaluate a batch. Returns ``values`` (n, m) objectives,
     ``constraints`` (n, k), ``gain``, ``zeros``, ``poles``, ``metrics`` (dict of
     arrays), and ``fail`` (per-row reason or None)."""
@@ -114,9 +123,21 @@ def evaluate_batch(problem: Problem, s: Structure, params: dict[str, np.ndarray]
     b = balance(problem.plant, s, params, wc_rad_s, problem.pm_deg)
     ok = b.shortfall_deg == 0.0
     metrics: dict[str, np.ndarray] = {}
-    keys = ("crossover_rad_s", "phase_margin_deg", "gain_margin_db", "delay_margin_s", "sensitivity_peak",
-            "complementary_peak", "hf_gain", "integral_gain", "overshoot_pct", "settling_time_s",
-            "rise_time_s", "peak_control", "iae_load")
+    keys = (
+        "crossover_rad_s",
+        "phase_margin_deg",
+        "gain_margin_db",
+        "delay_margin_s",
+        "sensitivity_peak",
+        "complementary_peak",
+        "hf_gain",
+        "integral_gain",
+        "overshoot_pct",
+        "settling_time_s",
+        "rise_time_s",
+        "peak_control",
+        "iae_load",
+    )
     for k in keys:
         metrics[k] = np.full(n, np.nan)
     metrics["closed_loop_stable"] = np.zeros(n, bool)
@@ -147,13 +168,22 @@ def evaluate_batch(problem: Problem, s: Structure, params: dict[str, np.ndarray]
         b.shortfall_deg,
         np.where(ok & ~stable, 1.0, 0.0),
         np.where(ok, np.minimum(cross_ok, 1.0), 0.0),
-        np.where(ok, np.where(np.isnan(pm), 1.0, np.maximum(problem.pm_deg - PHASE_MARGIN_TOL_DEG - pm, 0.0)),
-                 0.0),
+        np.where(
+            ok,
+            np.where(
+                np.isnan(pm), 1.0, np.maximum(problem.pm_deg - PHASE_MARGIN_TOL_DEG - pm, 0.0)
+            ),
+            0.0,
+        ),
     ]
     wc_t = problem.targets.crossover_rad_s
     if isinstance(wc_t, tuple):
         c = metrics["crossover_rad_s"]
-        out_rng = np.where(np.isnan(c), 1.0, np.maximum(wc_t[0] - c, 0) / wc_t[0] + np.maximum(c - wc_t[1], 0) / wc_t[1])
+        out_rng = np.where(
+            np.isnan(c),
+            1.0,
+            np.maximum(wc_t[0] - c, 0) / wc_t[0] + np.maximum(c - wc_t[1], 0) / wc_t[1],
+        )
         cons[2] = np.where(ok, np.maximum(cons[2], out_rng), 0.0)
     for key, bound in problem.limits.items():
         v = metrics.get(key)
@@ -177,10 +207,21 @@ def evaluate_batch(problem: Problem, s: Structure, params: dict[str, np.ndarray]
     for i in np.flatnonzero(bad):
         if fail[i] is None:
             fail[i] = "NaN objective for a stable design: " + ", ".join(
-                nm for nm, v in zip(objective_names(problem.searched_wc), values[i]) if not np.isfinite(v))
+                nm
+                for nm, v in zip(objective_names(problem.searched_wc), values[i])
+                if not np.isfinite(v)
+            )
     values = np.where(np.isfinite(values), values, _PENALTY)
-    return {"values": values, "constraints": constraints, "gain": b.gain, "zeros": b.zeros, "poles": b.poles,
-            "metrics": metrics, "fail": fail, "feasible": np.all(constraints <= 0.0, axis=1)}
+    return {
+        "values": values,
+        "constraints": constraints,
+        "gain": b.gain,
+        "zeros": b.zeros,
+        "poles": b.poles,
+        "metrics": metrics,
+        "fail": fail,
+        "feasible": np.all(constraints <= 0.0, axis=1),
+    }
 
 
 # -- storage ---------------------------------------------------------------------------
@@ -196,8 +237,10 @@ def open_storage(storage: str | None, out_dir: Path) -> optuna.storages.BaseStor
     except LoopscoutError:
         raise
     except Exception as exc:
-        raise LoopscoutError(f"storage {storage or str(out_dir / 'explore.journal')!r} cannot be opened: "
-                             f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}") from None
+        raise LoopscoutError(
+            f"storage {storage or str(out_dir / 'explore.journal')!r} cannot be opened: "
+            f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
+        ) from None
 
 
 def _with_driver(url: str) -> str:
@@ -206,8 +249,11 @@ def _with_driver(url: str) -> str:
     if url.startswith("postgresql://"):
         import importlib.util
 
-        if importlib.util.find_spec("psycopg") is None and importlib.util.find_spec("psycopg2") is not None:
-            return "postgresql+psycopg2://" + url[len("postgresql://"):]
+        if (
+            importlib.util.find_spec("psycopg") is None
+            and importlib.util.find_spec("psycopg2") is not None
+        ):
+            return "postgresql+psycopg2://" + url[len("postgresql://") :]
     return url
 
 
@@ -221,15 +267,27 @@ def _sampler_seed(seed: int | None, index: int) -> int | None:
     return int(np.random.SeedSequence([int(seed) & 0xFFFFFFFF, index]).generate_state(1)[0])
 
 
-def create_studies(storage: optuna.storages.BaseStorage, structures: list[Structure], problem: Problem,
-                   seed: int | None, batch: int) -> list[optuna.Study]:
+def create_studies(
+    storage: optuna.storages.BaseStorage,
+    structures: list[Structure],
+    problem: Problem,
+    seed: int | None,
+    batch: int,
+) -> list[optuna.Study]:
     """Create (or load) every structure's study before any trial is asked."""
     out = []
     n_obj = len(objective_names(problem.searched_wc))
     for i, name in enumerate(study_names(structures)):
-        sampler = optuna.samplers.NSGAIISampler(population_size=max(batch, 8), seed=_sampler_seed(seed, i))
-        st = optuna.create_study(storage=storage, study_name=name, directions=["minimize"] * n_obj,
-                                 sampler=sampler, load_if_exists=True)
+        sampler = optuna.samplers.NSGAIISampler(
+            population_size=max(batch, 8), seed=_sampler_seed(seed, i)
+        )
+        st = optuna.create_study(
+            storage=storage,
+            study_name=name,
+            directions=["minimize"] * n_obj,
+            sampler=sampler,
+            load_if_exists=True,
+        )
         out.append(st)
     return out
 
@@ -246,16 +304,30 @@ def _root_json(r: complex) -> list[float]:
     return [float(r.real), float(r.imag)]
 
 
-def _tell(st: optuna.Study, trial: optuna.Trial, res: dict[str, Any], i: int, cnames: list[str]) -> None:
+def _tell(
+    st: optuna.Study, trial: optuna.Trial, res: dict[str, Any], i: int, cnames: list[str]
+) -> None:
     reason = res["fail"][i]
     for name, v in zip(cnames, res["constraints"][i]):
         trial.set_constraint(name, float(v))
-    rec = {"gain": None if not np.isfinite(res["gain"][i]) else float(res["gain"][i]),
-           "zeros": [_root_json(r) for r in res["zeros"][i]] if np.all(np.isfinite(res["zeros"][i])) else [],
-           "poles": [_root_json(r) for r in res["poles"][i]] if np.all(np.isfinite(res["poles"][i])) else [],
-           "metrics": {k: (None if (isinstance(v[i], float) and not math.isfinite(v[i])) else
-                           (bool(v[i]) if v.dtype == bool else float(v[i]))) for k, v in res["metrics"].items()},
-           "reason": reason}
+    rec = {
+        "gain": None if not np.isfinite(res["gain"][i]) else float(res["gain"][i]),
+        "zeros": [_root_json(r) for r in res["zeros"][i]]
+        if np.all(np.isfinite(res["zeros"][i]))
+        else [],
+        "poles": [_root_json(r) for r in res["poles"][i]]
+        if np.all(np.isfinite(res["poles"][i]))
+        else [],
+        "metrics": {
+            k: (
+                None
+                if (isinstance(v[i], float) and not math.isfinite(v[i]))
+                else (bool(v[i]) if v.dtype == bool else float(v[i]))
+            )
+            for k, v in res["metrics"].items()
+        },
+        "reason": reason,
+    }
     trial.set_user_attr("design", json.dumps(rec))
     if reason is not None:
         trial.set_user_attr("fail_reason", reason)
@@ -296,12 +368,22 @@ def _is_stale(t: optuna.trial.FrozenTrial) -> bool:
 
 
 def _stale_running(st: optuna.Study, budget: int) -> list[optuna.trial.FrozenTrial]:
-    return [t for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
-            if t.number < budget and _is_stale(t)]
+    return [
+        t
+        for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
+        if t.number < budget and _is_stale(t)
+    ]
 
 
-def run_structures(problem: Problem, structures: list[Structure], studies: list[optuna.Study], *,
-                   trials: int, batch: int, progress: Callable[[str], None] | None = None) -> None:
+def run_structures(
+    problem: Problem,
+    structures: list[Structure],
+    studies: list[optuna.Study],
+    *,
+    trials: int,
+    batch: int,
+    progress: Callable[[str], None] | None = None,
+) -> None:
     """Fill every structure's study up to ``trials`` finished trials numbered below
     the budget. Resumes: stale RUNNING trials of dead local workers are re-evaluated."""
     cnames = constraint_names(problem.limits)
@@ -309,13 +391,15 @@ def run_structures(problem: Problem, structures: list[Structure], studies: list[
         dists = _distributions(s, problem)
         # finish trials a killed worker left RUNNING (same parameters, same number)
         stale = _stale_running(st, trials)
-        for t in [t for t in stale if set(t.params) != set(dists)]:  # killed before sampling finished
+        for t in [
+            t for t in stale if set(t.params) != set(dists)
+        ]:  # killed before sampling finished
             tr0 = optuna.Trial(st, t._trial_id)
             tr0.set_user_attr("fail_reason", "interrupted before its parameters were sampled")
             st.tell(tr0, state=TrialState.FAIL, skip_if_finished=True)
         stale = [t for t in stale if set(t.params) == set(dists)]
         for k in range(0, len(stale), batch):
-            chunk = stale[k:k + batch]
+            chunk = stale[k : k + batch]
             tr = [optuna.Trial(st, t._trial_id) for t in chunk]
             for t in tr:
                 t.set_user_attr("worker", _WORKER)
@@ -346,15 +430,24 @@ def run_structures(problem: Problem, structures: list[Structure], studies: list[
     for st in studies:
         deadline = time.monotonic() + WAIT_FOR_OTHERS_S
         while time.monotonic() < deadline:
-            running = [t for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
-                       if t.number < trials and not _is_stale(t)]
+            running = [
+                t
+                for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
+                if t.number < trials and not _is_stale(t)
+            ]
             if not running:
                 break
             time.sleep(0.05)
 
 
-def _evaluate_and_tell(problem: Problem, s: Structure, st: optuna.Study, tr: list[optuna.Trial],
-                       params: list[dict[str, float]], cnames: list[str]) -> None:
+def _evaluate_and_tell(
+    problem: Problem,
+    s: Structure,
+    st: optuna.Study,
+    tr: list[optuna.Trial],
+    params: list[dict[str, float]],
+    cnames: list[str],
+) -> None:
     names = list(s.params)
     arr = {k: np.array([p[k] for p in params], float) for k in names}
     if problem.searched_wc:
@@ -380,15 +473,27 @@ def load_records(studies: list[optuna.Study], trials: int) -> list[TrialRecord]:
             if t.number >= trials or not t.state.is_finished():
                 continue
             raw = t.user_attrs.get("design")
-            rec = json.loads(raw) if raw else {"gain": None, "zeros": [], "poles": [], "metrics": {}, "reason": None}
+            rec = (
+                json.loads(raw)
+                if raw
+                else {"gain": None, "zeros": [], "poles": [], "metrics": {}, "reason": None}
+            )
             cons = {k: float(v) for k, v in (t.constraints or {}).items()}
             feasible = t.state == TrialState.COMPLETE and rec["gain"] is not None and _all_le0(t)
-            out.append(TrialRecord(
-                structure=si, number=t.number, state=t.state.name, feasible=feasible,
-                gain=rec["gain"], zeros=tuple(complex(*r) for r in rec["zeros"]),
-                poles=tuple(complex(*r) for r in rec["poles"]), metrics=rec["metrics"], constraints=cons,
-                reason=t.user_attrs.get("fail_reason") or rec.get("reason"),
-            ))
+            out.append(
+                TrialRecord(
+                    structure=si,
+                    number=t.number,
+                    state=t.state.name,
+                    feasible=feasible,
+                    gain=rec["gain"],
+                    zeros=tuple(complex(*r) for r in rec["zeros"]),
+                    poles=tuple(complex(*r) for r in rec["poles"]),
+                    metrics=rec["metrics"],
+                    constraints=cons,
+                    reason=t.user_attrs.get("fail_reason") or rec.get("reason"),
+                )
+            )
     return out
 
 
@@ -400,4 +505,5 @@ def progress_printer(stream: Any = sys.stderr) -> Callable[[str], None]:
     def show(line: str) -> None:
         stream.write("\r" + line[:100].ljust(100))
         stream.flush()
+
     return show

@@ -64,11 +64,30 @@ def postgres_url() -> Iterator[str]:
         os.chown(data, pw.pw_uid, pw.pw_gid)
     port = _free_port()
     try:
-        subprocess.run(_as_postgres([initdb, "-D", str(data), "-A", "trust", "-U", "postgres"]), check=True,
-                       capture_output=True, timeout=120)
-        subprocess.run(_as_postgres([pg_ctl, "-D", str(data), "-l", str(tmp / "log"), "-w", "-o",
-                                     f"-p {port} -k {tmp} -c listen_addresses=127.0.0.1", "start"]),
-                       check=True, capture_output=True, timeout=120)
+        subprocess.run(
+            _as_postgres([initdb, "-D", str(data), "-A", "trust", "-U", "postgres"]),
+            check=True,
+            capture_output=True,
+            timeout=120,
+        )
+        subprocess.run(
+            _as_postgres(
+                [
+                    pg_ctl,
+                    "-D",
+                    str(data),
+                    "-l",
+                    str(tmp / "log"),
+                    "-w",
+                    "-o",
+                    f"-p {port} -k {tmp} -c listen_addresses=127.0.0.1",
+                    "start",
+                ]
+            ),
+            check=True,
+            capture_output=True,
+            timeout=120,
+        )
     except (subprocess.CalledProcessError, subprocess.TimeoutExpired) as exc:
         shutil.rmtree(tmp, ignore_errors=True)
         pytest.skip(f"PostgreSQL could not be started: {exc}")
@@ -76,6 +95,9 @@ def postgres_url() -> Iterator[str]:
     try:
         yield f"postgresql://postgres@127.0.0.1:{port}/postgres"
     finally:
-        subprocess.run(_as_postgres([pg_ctl, "-D", str(data), "-m", "fast", "stop"]), capture_output=True,
-                       timeout=60)
+        subprocess.run(
+            _as_postgres([pg_ctl, "-D", str(data), "-m", "fast", "stop"]),
+            capture_output=True,
+            timeout=60,
+        )
         shutil.rmtree(tmp, ignore_errors=True)

@@ -29,9 +29,15 @@ def _recheck(study, designs) -> int:
     n = 0
     for d in designs:
         c = d["compensator"]
-        comp = Rational(gain=c["gain"], zeros=[complex(z) for z in c["zeros"]], poles=[complex(p) for p in c["poles"]])
+        comp = Rational(
+            gain=c["gain"],
+            zeros=[complex(z) for z in c["zeros"]],
+            poles=[complex(p) for p in c["poles"]],
+        )
         m = design_metrics(study.plant, comp)
-        ok, why = meets_targets(m, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators)
+        ok, why = meets_targets(
+            m, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
+        )
         assert ok == d["meets_targets"], (d["name"], why)
         n += bool(ok)
     return n
@@ -68,15 +74,22 @@ def test_pi_matches_simc_on_fopdt(tmp_path: Path) -> None:
     (b) With the crossover searched in [0.2, 1] and the same Ms limit 1.6, the best PI
     found reaches SIMC's integral gain within 2 % and its load IAE within 2 % (the
     Ms-limited optimum lies in a narrow band just above ωc = 0.5; 48 trials)."""
-    fixed = {"name": "FOPDT", "plant": {"gain": 1.0, "poles": [-1.0], "delay": 1.0},
-             "targets": {"crossover": 0.5, "phase_margin": 61.3464, "integrators": 1},
-             "limits": {"sensitivity_peak": 1.6}, "search": {"max_order": 1}}
+    fixed = {
+        "name": "FOPDT",
+        "plant": {"gain": 1.0, "poles": [-1.0], "delay": 1.0},
+        "targets": {"crossover": 0.5, "phase_margin": 61.3464, "integrators": 1},
+        "limits": {"sensitivity_peak": 1.6},
+        "search": {"max_order": 1},
+    }
     res = explore(parse_study(fixed), tmp_path / "a", trials=4, seed=2, batch=4, progress=False)
     pi = [d for d in res.designs if d["structure"] == "PI"][0]
     assert pi["meets_targets"]
     assert pi["compensator"]["gain"] == pytest.approx(0.5, rel=1e-3)
     assert pi["compensator"]["zeros"][0] == pytest.approx(-1.0, rel=1e-3)
-    data = {**fixed, "targets": {"crossover": [0.2, 1.0], "phase_margin": 61.3464, "integrators": 1}}
+    data = {
+        **fixed,
+        "targets": {"crossover": [0.2, 1.0], "phase_margin": 61.3464, "integrators": 1},
+    }
     study = parse_study(data)
     res = explore(study, tmp_path / "b", trials=48, seed=2, batch=16, progress=False)
     pis = [d for d in res.designs if d["structure"] == "PI" and d["meets_targets"]]
@@ -91,14 +104,47 @@ def test_pi_matches_simc_on_fopdt(tmp_path: Path) -> None:
 
 def test_cli_json_and_bad_input(tmp_path: Path) -> None:
     study = tmp_path / "s.toml"
-    study.write_text('[plant]\ngain = 2.0\npoles = [-1.0, -5.0]\n[targets]\ncrossover = 1.0\n'
-                     'phase_margin = 50\nintegrators = 1\n[search]\nmax_order = 1\n')
-    r = subprocess.run([sys.executable, "-m", "explorer", "explore", str(study), "--out", str(tmp_path / "o"),
-                        "--json", "--trials", "8", "--seed", "1"], capture_output=True, text=True, cwd=ROOT)
+    study.write_text(
+        "[plant]\ngain = 2.0\npoles = [-1.0, -5.0]\n[targets]\ncrossover = 1.0\n"
+        "phase_margin = 50\nintegrators = 1\n[search]\nmax_order = 1\n"
+    )
+    r = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "explorer",
+            "explore",
+            str(study),
+            "--out",
+            str(tmp_path / "o"),
+            "--json",
+            "--trials",
+            "8",
+            "--seed",
+            "1",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+    )
     assert r.returncode == 0, r.stderr
     obj = json.loads(r.stdout)
     assert set(obj) >= {"designs", "study", "summary", "caution"}
     assert obj == json.loads((tmp_path / "o" / "designs.json").read_text())
-    bad = subprocess.run([sys.executable, "-m", "explorer", "explore", str(study), "--out", str(tmp_path / "o"),
-                          "--trials", "0"], capture_output=True, text=True, cwd=ROOT)
+    bad = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "explorer",
+            "explore",
+            str(study),
+            "--out",
+            str(tmp_path / "o"),
+            "--trials",
+            "0",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+    )
     assert bad.returncode == 2 and bad.stderr.strip().count("\n") == 0 and "--trials" in bad.stderr

@@ -11,12 +11,18 @@ from explorer.structures import balance, candidate_structures
 from explorer.study import SearchOptions, Targets
 
 
-def _direct(plant: Rational, k: np.ndarray, z: np.ndarray, p: np.ndarray, w: np.ndarray) -> np.ndarray:
+def _direct(
+    plant: Rational, k: np.ndarray, z: np.ndarray, p: np.ndarray, w: np.ndarray
+) -> np.ndarray:
     s = 1j * w
     c = k * np.prod(s[:, None] - z, axis=1) / np.prod(s[:, None] - p, axis=1)
     pz = np.array(plant.zeros, complex)
     pp = np.array(plant.poles, complex)
-    g = plant.gain * np.prod(s[:, None] - pz[None, :], axis=1) / np.prod(s[:, None] - pp[None, :], axis=1)
+    g = (
+        plant.gain
+        * np.prod(s[:, None] - pz[None, :], axis=1)
+        / np.prod(s[:, None] - pp[None, :], axis=1)
+    )
     return c * g * np.exp(-s * plant.delay_s)
 
 
@@ -59,7 +65,7 @@ def test_impossible_phase_gives_shortfall_in_degrees() -> None:
     b = balance(plant, pi, {}, np.array([10.0]), 45.0)
     plant_deg = -3 * np.degrees(np.arctan(10.0))
     need = -180 + 45 - (plant_deg - 90)  # lead the zero must give
-    best = np.degrees(np.arctan(10 ** 2.5))
+    best = np.degrees(np.arctan(10**2.5))
     assert b.shortfall_deg[0] == pytest.approx(need - best, abs=1e-9)
     assert np.isnan(b.gain[0])
 

@@ -13,13 +13,15 @@ from pathlib import Path
 import optuna
 import pytest
 
-from explorer.study import load_study, parse_study
 from explorer.structures import candidate_structures
+from explorer.study import load_study, parse_study
 from explorer.tune import study_names
 
 ROOT = Path(__file__).resolve().parents[1]
-STUDY_TOML = ('[plant]\ngain = 0.1333\npoles = [-0.3333, -2.0, -4.0]\n[targets]\ncrossover = 0.8\n'
-              'phase_margin = 55\nintegrators = 1\n[limits]\nsensitivity_peak = 1.6\n[search]\nmax_order = 2\n')
+STUDY_TOML = (
+    "[plant]\ngain = 0.1333\npoles = [-0.3333, -2.0, -4.0]\n[targets]\ncrossover = 0.8\n"
+    "phase_margin = 55\nintegrators = 1\n[limits]\nsensitivity_peak = 1.6\n[search]\nmax_order = 2\n"
+)
 
 
 def _count(out: Path, study_file: Path, budget: int) -> list[dict[str, int]]:
@@ -31,9 +33,14 @@ def _count(out: Path, study_file: Path, budget: int) -> list[dict[str, int]]:
     for name in study_names(candidate_structures(st.plant, st.targets, st.search)):
         trials = optuna.load_study(study_name=name, storage=storage).get_trials(deepcopy=False)
         numbers = [t.number for t in trials if t.number < budget]
-        rows.append({"finished": sum(t.state.is_finished() for t in trials if t.number < budget),
-                     "unique": len(set(numbers)), "all": len(trials),
-                     "running": sum(t.state == optuna.trial.TrialState.RUNNING for t in trials)})
+        rows.append(
+            {
+                "finished": sum(t.state.is_finished() for t in trials if t.number < budget),
+                "unique": len(set(numbers)),
+                "all": len(trials),
+                "running": sum(t.state == optuna.trial.TrialState.RUNNING for t in trials),
+            }
+        )
     return rows
 
 
@@ -43,10 +50,24 @@ def test_sigkill_then_resume_exact_budget(tmp_path: Path) -> None:
     study.write_text(STUDY_TOML)
     out = tmp_path / "o"
     budget = 150
-    cmd = [sys.executable, "-m", "explorer", "explore", str(study), "--out", str(out), "--trials", str(budget),
-           "--seed", "3", "--batch", "10"]
-    proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
-                            start_new_session=True)
+    cmd = [
+        sys.executable,
+        "-m",
+        "explorer",
+        "explore",
+        str(study),
+        "--out",
+        str(out),
+        "--trials",
+        str(budget),
+        "--seed",
+        "3",
+        "--batch",
+        "10",
+    ]
+    proc = subprocess.Popen(
+        cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, start_new_session=True
+    )
     # kill once trials are being written (the journal grows), before the run can finish
     journal = out / "explore.journal"
     t0 = time.monotonic()
@@ -68,9 +89,13 @@ def test_sigkill_then_resume_exact_budget(tmp_path: Path) -> None:
 def test_rerun_adds_only_missing_trials(tmp_path: Path) -> None:
     from explorer.explore import explore
 
-    study = parse_study({"plant": {"gain": 2.0, "poles": [-1.0, -5.0]},
-                         "targets": {"crossover": 1.0, "phase_margin": 50, "integrators": 1},
-                         "search": {"max_order": 1}})
+    study = parse_study(
+        {
+            "plant": {"gain": 2.0, "poles": [-1.0, -5.0]},
+            "targets": {"crossover": 1.0, "phase_margin": 50, "integrators": 1},
+            "search": {"max_order": 1},
+        }
+    )
     explore(study, tmp_path, trials=10, seed=1, batch=4, progress=False)
     explore(study, tmp_path, trials=25, seed=1, batch=4, progress=False)
     from optuna.storages.journal import JournalFileBackend, JournalStorage
@@ -97,12 +122,37 @@ def test_two_workers_on_postgres(tmp_path: Path, postgres_url: str) -> None:
     st = load_study(study_file)
     structs = candidate_structures(st.plant, st.targets, st.search)
     budget = 64
-    storage = open_storage(postgres_url, tmp_path)  # schema and studies created once, before workers
+    storage = open_storage(
+        postgres_url, tmp_path
+    )  # schema and studies created once, before workers
     create_studies(storage, structs, make_problem(st), 5, 8)
-    cmd = [sys.executable, "-m", "explorer", "explore", str(study_file), "--trials", str(budget), "--seed", "5",
-           "--batch", "8", "--storage", postgres_url, "--json", "--out"]
-    procs = [subprocess.Popen([*cmd, str(tmp_path / f"w{i}")], cwd=ROOT, stdout=subprocess.PIPE,
-                              stderr=subprocess.PIPE, text=True) for i in range(2)]
+    cmd = [
+        sys.executable,
+        "-m",
+        "explorer",
+        "explore",
+        str(study_file),
+        "--trials",
+        str(budget),
+        "--seed",
+        "5",
+        "--batch",
+        "8",
+        "--storage",
+        postgres_url,
+        "--json",
+        "--out",
+    ]
+    procs = [
+        subprocess.Popen(
+            [*cmd, str(tmp_path / f"w{i}")],
+            cwd=ROOT,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        for i in range(2)
+    ]
     outs = [p.communicate(timeout=300) for p in procs]
     assert all(p.returncode == 0 for p in procs), [o[1][-500:] for o in outs]
     for name in study_names(structs):
@@ -112,7 +162,9 @@ def test_two_workers_on_postgres(tmp_path: Path, postgres_url: str) -> None:
         assert all(t.state.is_finished() for t in inside)
         extra = [t for t in trials if t.number >= budget]  # asked in a race, never evaluated
         assert all(t.user_attrs.get("fail_reason", "").startswith("surplus") for t in extra)
-    single = subprocess.run([*cmd, str(tmp_path / "single")], cwd=ROOT, capture_output=True, text=True)
+    single = subprocess.run(
+        [*cmd, str(tmp_path / "single")], cwd=ROOT, capture_output=True, text=True
+    )
     assert single.returncode == 0, single.stderr[-500:]
     ref = [(d["name"], d["compensator"]) for d in json.loads(single.stdout)["designs"]]
     for out, _ in outs:
