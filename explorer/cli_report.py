@@ -27,10 +27,20 @@ def given_designs(study: Any) -> list[dict[str, Any]]:
     for entry in study.compensators:
         comp = entry.compensator
         metrics = design_metrics(study.plant, comp)
-        ok, why = meets_targets(metrics, study.targets, study.limits,
-                                study.plant.n_integrators + comp.n_integrators)
-        out.append(design_record(name=entry.name, origin="given", structure=describe_structure(comp),
-                                 comp=comp, metrics=metrics, meets=ok, reasons=why))
+        ok, why = meets_targets(
+            metrics, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
+        )
+        out.append(
+            design_record(
+                name=entry.name,
+                origin="given",
+                structure=describe_structure(comp),
+                comp=comp,
+                metrics=metrics,
+                meets=ok,
+                reasons=why,
+            )
+        )
     return out
 
 
@@ -44,9 +54,13 @@ def load_designs(path: str | Path) -> list[dict[str, Any]]:
         raise LoopscoutError(f"--designs {path}: not JSON ({exc.msg}, line {exc.lineno})") from None
     designs = data.get("designs") if isinstance(data, dict) else None
     if not isinstance(designs, list) or not designs:
-        raise LoopscoutError(f"--designs {path}: expected an object with a non-empty 'designs' list")
+        raise LoopscoutError(
+            f"--designs {path}: expected an object with a non-empty 'designs' list"
+        )
     for i, d in enumerate(designs):
-        missing = [k for k in ("name", "compensator", "metrics") if not isinstance(d, dict) or k not in d]
+        missing = [
+            k for k in ("name", "compensator", "metrics") if not isinstance(d, dict) or k not in d
+        ]
         if missing:
             raise LoopscoutError(f"--designs {path}: designs[{i}] lacks '{missing[0]}'")
     return designs
@@ -82,23 +96,45 @@ def register(sub: Any, caution: str) -> None:
     """Add ``report`` and ``charts`` to the CLI."""
     common = dict(formatter_class=argparse.RawDescriptionHelpFormatter)
     rep = sub.add_parser(
-        "report", help="write the offline HTML report (charts, ranked table, targets)",
+        "report",
+        help="write the offline HTML report (charts, ranked table, targets)",
         description="One self-contained HTML page: Pareto views, loop gain and phase, gain-phase "
         "chart with |T| contours and the Ms locus, |S| and |T|, step responses, ranked table.",
-        epilog="example:\n  loopscout report studies/kiln_damper.toml --out kiln.html\n\n" + caution, **common)
+        epilog="example:\n  loopscout report studies/kiln_damper.toml --out kiln.html\n\n"
+        + caution,
+        **common,
+    )
     rep.add_argument("study", metavar="STUDY", help="study file (TOML)")
-    rep.add_argument("--designs", metavar="JSON", help="designs.json from explore (default: the study's [[compensator]] entries)")
+    rep.add_argument(
+        "--designs",
+        metavar="JSON",
+        help="designs.json from explore (default: the study's [[compensator]] entries)",
+    )
     rep.add_argument("--out", required=True, metavar="HTML", help="report file to write")
-    rep.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    rep.add_argument(
+        "--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS
+    )
     rep.set_defaults(run=_cmd_report)
 
     ch = sub.add_parser(
-        "charts", help="export each chart as PNG and/or SVG for slides",
+        "charts",
+        help="export each chart as PNG and/or SVG for slides",
         description="Writes pareto_hf, pareto_iae, bode, nichols, sensitivity and steps charts.",
-        epilog="example:\n  loopscout charts studies/kiln_damper.toml --out slides --format svg\n\n" + caution, **common)
+        epilog="example:\n  loopscout charts studies/kiln_damper.toml --out slides --format svg\n\n"
+        + caution,
+        **common,
+    )
     ch.add_argument("study", metavar="STUDY", help="study file (TOML)")
-    ch.add_argument("--designs", metavar="JSON", help="designs.json from explore (default: the study's [[compensator]] entries)")
+    ch.add_argument(
+        "--designs",
+        metavar="JSON",
+        help="designs.json from explore (default: the study's [[compensator]] entries)",
+    )
     ch.add_argument("--out", required=True, metavar="DIR", help="folder for the image files")
-    ch.add_argument("--format", nargs="+", default=["png", "svg"], choices=["png", "svg"], help="image formats")
-    ch.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    ch.add_argument(
+        "--format", nargs="+", default=["png", "svg"], choices=["png", "svg"], help="image formats"
+    )
+    ch.add_argument(
+        "--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS
+    )
     ch.set_defaults(run=_cmd_charts)

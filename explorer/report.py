@@ -75,8 +75,11 @@ def _root(v: Any) -> complex:
 def _comp(d: dict[str, Any]) -> Rational:
     try:
         c = d["compensator"]
-        return Rational(gain=float(c["gain"]), zeros=[_root(z) for z in c["zeros"]],
-                        poles=[_root(p) for p in c["poles"]])
+        return Rational(
+            gain=float(c["gain"]),
+            zeros=[_root(z) for z in c["zeros"]],
+            poles=[_root(p) for p in c["poles"]],
+        )
     except (KeyError, TypeError) as exc:
         raise LoopscoutError(f"design {d.get('name', '?')!r}: bad compensator ({exc})") from None
 
@@ -92,22 +95,24 @@ def design_frame(designs: Sequence[dict[str, Any]]) -> pd.DataFrame:
         if not isinstance(d, dict) or "name" not in d or "metrics" not in d:
             raise LoopscoutError("every design needs at least 'name' and 'metrics'")
         m = d["metrics"]
-        rows.append({
-            "name": str(d["name"]),
-            "origin": str(d.get("origin", "given")),
-            "structure": str(d.get("structure", "?")),
-            "order": f"order {int(d.get('order', 0))}",
-            "meets": bool(d.get("meets_targets")),
-            "pareto": bool(d.get("pareto")),
-            "hand": d.get("origin") in _HAND,
-            "status": "meets targets" if d.get("meets_targets") else "misses targets",
-            "Ms": _num(m.get("sensitivity_peak")),
-            "hf_gain": _num(m.get("hf_gain")),
-            "iae_load": _num(m.get("iae_load")),
-            "crossover_rad_s": _num(m.get("crossover_rad_s")),
-            "phase_margin_deg": _num(m.get("phase_margin_deg")),
-            "overshoot_pct": _num(m.get("overshoot_pct")),
-        })
+        rows.append(
+            {
+                "name": str(d["name"]),
+                "origin": str(d.get("origin", "given")),
+                "structure": str(d.get("structure", "?")),
+                "order": f"order {int(d.get('order', 0))}",
+                "meets": bool(d.get("meets_targets")),
+                "pareto": bool(d.get("pareto")),
+                "hand": d.get("origin") in _HAND,
+                "status": "meets targets" if d.get("meets_targets") else "misses targets",
+                "Ms": _num(m.get("sensitivity_peak")),
+                "hf_gain": _num(m.get("hf_gain")),
+                "iae_load": _num(m.get("iae_load")),
+                "crossover_rad_s": _num(m.get("crossover_rad_s")),
+                "phase_margin_deg": _num(m.get("phase_margin_deg")),
+                "overshoot_pct": _num(m.get("overshoot_pct")),
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -137,19 +142,28 @@ def frequency_frame(study: Study, designs: Sequence[dict[str, Any]]) -> pd.DataF
         loop = study.plant * _comp(d)
         lv = loop.freqresp(w)
         with np.errstate(divide="ignore"):
-            parts.append(pd.DataFrame({
-                "name": str(d["name"]),
-                "omega_rad_s": w,
-                "mag_db": 20 * np.log10(np.abs(lv)),
-                "phase_deg": np.degrees(loop.phase_rad(w)),
-                "S_db": -20 * np.log10(np.abs(1 + lv)),
-                "T_db": 20 * np.log10(np.abs(lv / (1 + lv))),
-            }))
-    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
-        columns=["name", "omega_rad_s", "mag_db", "phase_deg", "S_db", "T_db"])
+            parts.append(
+                pd.DataFrame(
+                    {
+                        "name": str(d["name"]),
+                        "omega_rad_s": w,
+                        "mag_db": 20 * np.log10(np.abs(lv)),
+                        "phase_deg": np.degrees(loop.phase_rad(w)),
+                        "S_db": -20 * np.log10(np.abs(1 + lv)),
+                        "T_db": 20 * np.log10(np.abs(lv / (1 + lv))),
+                    }
+                )
+            )
+    return (
+        pd.concat(parts, ignore_index=True)
+        if parts
+        else pd.DataFrame(columns=["name", "omega_rad_s", "mag_db", "phase_deg", "S_db", "T_db"])
+    )
 
 
-def step_frame(study: Study, designs: Sequence[dict[str, Any]], n_points: int = 400) -> pd.DataFrame:
+def step_frame(
+    study: Study, designs: Sequence[dict[str, Any]], n_points: int = 400
+) -> pd.DataFrame:
     """Long frame: name, t_s, y, u for the unit reference step of each stable design."""
     from explorer.timeresp import simulate_steps
 
@@ -161,10 +175,16 @@ def step_frame(study: Study, designs: Sequence[dict[str, Any]], n_points: int = 
     for d in stable:
         r = simulate_steps(study.plant, _comp(d), t_end_s=t_end)
         idx = np.unique(np.linspace(0, r.t_s.size - 1, min(n_points, r.t_s.size)).astype(int))
-        parts.append(pd.DataFrame({"name": str(d["name"]), "t_s": r.t_s[idx],
-                                   "y": r.y_ref[idx], "u": r.u_ref[idx]}))
-    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
-        columns=["name", "t_s", "y", "u"])
+        parts.append(
+            pd.DataFrame(
+                {"name": str(d["name"]), "t_s": r.t_s[idx], "y": r.y_ref[idx], "u": r.u_ref[idx]}
+            )
+        )
+    return (
+        pd.concat(parts, ignore_index=True)
+        if parts
+        else pd.DataFrame(columns=["name", "t_s", "y", "u"])
+    )
 
 
 def _to_gain_phase(lv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -184,9 +204,18 @@ def m_contour_frame(m_db: Sequence[float] = (-6, -3, -1, 0.5, 1, 2, 3, 6, 12)) -
         ph, mag = _to_gain_phase(c + r * np.exp(1j * th))
         seg = np.concatenate([[0], np.cumsum(np.abs(np.diff(ph)) > 180)])
         keep = np.isfinite(mag) & (mag > -40) & (mag < 40)
-        parts.append(pd.DataFrame({"M_db": mdb, "label": f"|T| {mdb:g} dB",
-                                   "curve": [f"{mdb:g}/{s}" for s in seg],
-                                   "k": np.arange(th.size), "phase_deg": ph, "mag_db": mag})[keep])
+        parts.append(
+            pd.DataFrame(
+                {
+                    "M_db": mdb,
+                    "label": f"|T| {mdb:g} dB",
+                    "curve": [f"{mdb:g}/{s}" for s in seg],
+                    "k": np.arange(th.size),
+                    "phase_deg": ph,
+                    "mag_db": mag,
+                }
+            )[keep]
+        )
     return pd.concat(parts, ignore_index=True)
 
 
@@ -194,8 +223,9 @@ def ms_circle_frame(ms: float) -> pd.DataFrame:
     """The locus |1 + L| = 1/Ms in gain-phase coordinates."""
     th = np.linspace(-math.pi, math.pi, 361)
     ph, mag = _to_gain_phase(-1 + np.exp(1j * th) / ms)
-    return pd.DataFrame({"k": np.arange(th.size), "phase_deg": ph, "mag_db": mag,
-                         "label": f"Ms = {ms:g}"})
+    return pd.DataFrame(
+        {"k": np.arange(th.size), "phase_deg": ph, "mag_db": mag, "label": f"Ms = {ms:g}"}
+    )
 
 
 # ------------------------------------------------------------------------------------
@@ -214,42 +244,78 @@ def pareto_chart(df: pd.DataFrame, x: str, x_title: str, pick: alt.Parameter) ->
     base = alt.Chart(df).encode(
         x=alt.X(f"{x}:Q", title=x_title, scale=alt.Scale(zero=False, nice=True, padding=24)),
         y=alt.Y("Ms:Q", title="Ms (sensitivity peak)", scale=alt.Scale(zero=False, padding=24)),
-        tooltip=["name:N", "origin:N", "structure:N", "order:N", "status:N",
-                 alt.Tooltip("Ms:Q", format=".3f"), alt.Tooltip(f"{x}:Q", format=".4g")],
+        tooltip=[
+            "name:N",
+            "origin:N",
+            "structure:N",
+            "order:N",
+            "status:N",
+            alt.Tooltip("Ms:Q", format=".3f"),
+            alt.Tooltip(f"{x}:Q", format=".4g"),
+        ],
     )
     pts = base.mark_point(filled=True, size=110, stroke=_INK, strokeWidth=0.6).encode(
-        color=alt.condition("datum.meets", alt.Color("structure:N", title="structure",
-                                                     scale=alt.Scale(range=_PALETTE)),
-                            alt.value(_MISS_GREY)),
+        color=alt.condition(
+            "datum.meets",
+            alt.Color("structure:N", title="structure", scale=alt.Scale(range=_PALETTE)),
+            alt.value(_MISS_GREY),
+        ),
         shape=alt.Shape("order:N", title="order"),
         opacity=_opacity(pick),
     )
     if x == "hf_gain":
         pts = pts.add_params(pick)
-    ring = base.transform_filter("datum.hand").mark_point(
-        shape="diamond", filled=False, size=420, stroke=_INK, strokeWidth=1.8
-    ).encode(opacity=_opacity(pick))
+    ring = (
+        base.transform_filter("datum.hand")
+        .mark_point(shape="diamond", filled=False, size=420, stroke=_INK, strokeWidth=1.8)
+        .encode(opacity=_opacity(pick))
+    )
     title = f"Ms against {x_title}" + ("" if len(df) else " — no design has a finite value")
     return (pts + ring).properties(width=330, height=240, title=title)
 
 
-def _line(df: pd.DataFrame, y: str, y_title: str, pick: alt.Parameter, *, logx: bool = True,
-          x: str = "omega_rad_s", x_title: str = "frequency ω (rad/s)") -> alt.Chart:
-    return alt.Chart(df).mark_line(strokeWidth=2).encode(
-        x=alt.X(f"{x}:Q", title=x_title, scale=alt.Scale(type="log") if logx else alt.Scale(),
-                axis=alt.Axis(format="~g", labelOverlap="greedy")),
-        y=alt.Y(f"{y}:Q", title=y_title, scale=alt.Scale(zero=False)),
-        color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
-        opacity=_opacity(pick),
-        tooltip=["name:N", alt.Tooltip(f"{x}:Q", format=".4g"), alt.Tooltip(f"{y}:Q", format=".4g")],
+def _line(
+    df: pd.DataFrame,
+    y: str,
+    y_title: str,
+    pick: alt.Parameter,
+    *,
+    logx: bool = True,
+    x: str = "omega_rad_s",
+    x_title: str = "frequency ω (rad/s)",
+) -> alt.Chart:
+    return (
+        alt.Chart(df)
+        .mark_line(strokeWidth=2)
+        .encode(
+            x=alt.X(
+                f"{x}:Q",
+                title=x_title,
+                scale=alt.Scale(type="log") if logx else alt.Scale(),
+                axis=alt.Axis(format="~g", labelOverlap="greedy"),
+            ),
+            y=alt.Y(f"{y}:Q", title=y_title, scale=alt.Scale(zero=False)),
+            color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
+            opacity=_opacity(pick),
+            tooltip=[
+                "name:N",
+                alt.Tooltip(f"{x}:Q", format=".4g"),
+                alt.Tooltip(f"{y}:Q", format=".4g"),
+            ],
+        )
     )
 
 
-def _rules(values: Sequence[float], axis: str, label: str, dash: Sequence[int] = (5, 4)) -> alt.Chart:
+def _rules(
+    values: Sequence[float], axis: str, label: str, dash: Sequence[int] = (5, 4)
+) -> alt.Chart:
     df = pd.DataFrame({"v": list(values), "label": label})
     enc = {axis: alt.X("v:Q") if axis == "x" else alt.Y("v:Q")}
-    return alt.Chart(df).mark_rule(color=_INK, strokeDash=list(dash), strokeWidth=1.2).encode(
-        **enc, tooltip=["label:N", alt.Tooltip("v:Q", format=".4g")])
+    return (
+        alt.Chart(df)
+        .mark_rule(color=_INK, strokeDash=list(dash), strokeWidth=1.2)
+        .encode(**enc, tooltip=["label:N", alt.Tooltip("v:Q", format=".4g")])
+    )
 
 
 def bode_charts(fr: pd.DataFrame, study: Study, pick: alt.Parameter) -> alt.VConcatChart:
@@ -265,56 +331,90 @@ def bode_charts(fr: pd.DataFrame, study: Study, pick: alt.Parameter) -> alt.VCon
     pm = study.targets.phase_margin_deg or study.limits.get("phase_margin_deg")
     if pm is not None:
         ph = ph + _rules([-180.0 + pm], "y", f"-180° + PM target ({pm:g}°)", (2, 3))
-    return alt.vconcat(mag.properties(width=420, height=200, title="Loop gain"),
-                       ph.properties(width=420, height=200, title="Loop phase (continuous)"))
+    return alt.vconcat(
+        mag.properties(width=420, height=200, title="Loop gain"),
+        ph.properties(width=420, height=200, title="Loop phase (continuous)"),
+    )
 
 
 def nichols_chart(fr: pd.DataFrame, ms: float, pick: alt.Parameter) -> alt.LayerChart:
     """Gain-phase chart: loops, |T| contours and the Ms locus."""
     sub = fr[(fr["mag_db"] > -30) & (fr["mag_db"] < 30)]
-    cont = alt.Chart(m_contour_frame()).mark_line(color="#9aa7a3", strokeWidth=0.8, clip=True).encode(
-        x="phase_deg:Q", y="mag_db:Q", detail="curve:N", order="k:Q", tooltip=["label:N"])
-    msl = alt.Chart(ms_circle_frame(ms)).mark_line(color="#b8404f", strokeWidth=2, clip=True,
-                                                   strokeDash=[6, 3]).encode(
-        x="phase_deg:Q", y="mag_db:Q", order="k:Q", tooltip=["label:N"])
-    loops = alt.Chart(sub).mark_line(strokeWidth=2, clip=True).encode(
-        x=alt.X("phase_deg:Q", title="phase of L (deg)", scale=alt.Scale(domain=[-360, 0], nice=False)),
-        y=alt.Y("mag_db:Q", title="|L| (dB)", scale=alt.Scale(domain=[-30, 30])),
-        color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
-        order="omega_rad_s:Q", opacity=_opacity(pick),
-        tooltip=["name:N", alt.Tooltip("omega_rad_s:Q", format=".4g")])
+    cont = (
+        alt.Chart(m_contour_frame())
+        .mark_line(color="#9aa7a3", strokeWidth=0.8, clip=True)
+        .encode(x="phase_deg:Q", y="mag_db:Q", detail="curve:N", order="k:Q", tooltip=["label:N"])
+    )
+    msl = (
+        alt.Chart(ms_circle_frame(ms))
+        .mark_line(color="#b8404f", strokeWidth=2, clip=True, strokeDash=[6, 3])
+        .encode(x="phase_deg:Q", y="mag_db:Q", order="k:Q", tooltip=["label:N"])
+    )
+    loops = (
+        alt.Chart(sub)
+        .mark_line(strokeWidth=2, clip=True)
+        .encode(
+            x=alt.X(
+                "phase_deg:Q",
+                title="phase of L (deg)",
+                scale=alt.Scale(domain=[-360, 0], nice=False),
+            ),
+            y=alt.Y("mag_db:Q", title="|L| (dB)", scale=alt.Scale(domain=[-30, 30])),
+            color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
+            order="omega_rad_s:Q",
+            opacity=_opacity(pick),
+            tooltip=["name:N", alt.Tooltip("omega_rad_s:Q", format=".4g")],
+        )
+    )
     return (cont + msl + loops).properties(
-        width=420, height=300, title=f"Gain-phase chart, |T| contours, Ms = {ms:g} locus (red)")
+        width=420, height=300, title=f"Gain-phase chart, |T| contours, Ms = {ms:g} locus (red)"
+    )
 
 
 def sensitivity_chart(fr: pd.DataFrame, ms: float, pick: alt.Parameter) -> alt.LayerChart:
     """|S| and |T| (dB) against log ω; solid |S|, dashed |T|."""
-    long = fr.melt(id_vars=["name", "omega_rad_s"], value_vars=["S_db", "T_db"],
-                   var_name="fn", value_name="db")
+    long = fr.melt(
+        id_vars=["name", "omega_rad_s"], value_vars=["S_db", "T_db"], var_name="fn", value_name="db"
+    )
     long.loc[:, "fn"] = long["fn"].map({"S_db": "|S|", "T_db": "|T|"})
     ch = _line(long, "db", "magnitude (dB)", pick).encode(
-        strokeDash=alt.StrokeDash("fn:N", title="function"), detail="fn:N")
+        strokeDash=alt.StrokeDash("fn:N", title="function"), detail="fn:N"
+    )
     return (ch + _rules([20 * math.log10(ms)], "y", f"Ms = {ms:g}")).properties(
-        width=420, height=220, title="Sensitivity |S| and complementary |T|")
+        width=420, height=220, title="Sensitivity |S| and complementary |T|"
+    )
 
 
 def step_charts(st: pd.DataFrame, study: Study, pick: alt.Parameter) -> alt.VConcatChart:
     """Unit reference step: output y with the ±2 % band and peaks, control signal u."""
     t_max = float(st["t_s"].max()) if len(st) else 1.0
-    band = alt.Chart(pd.DataFrame({"t0": [0.0], "t1": [t_max], "lo": [0.98], "hi": [1.02]})).mark_rect(
-        color="#1b6f6a", opacity=0.13).encode(x="t0:Q", x2="t1:Q", y="lo:Q", y2="hi:Q")
+    band = (
+        alt.Chart(pd.DataFrame({"t0": [0.0], "t1": [t_max], "lo": [0.98], "hi": [1.02]}))
+        .mark_rect(color="#1b6f6a", opacity=0.13)
+        .encode(x="t0:Q", x2="t1:Q", y="lo:Q", y2="hi:Q")
+    )
     y = _line(st, "y", "output y", pick, logx=False, x="t_s", x_title="time (s)")
     peaks = st.loc[st.groupby("name")["y"].idxmax()] if len(st) else st
-    pk = alt.Chart(peaks).mark_point(shape="triangle-down", filled=True, size=70).encode(
-        x="t_s:Q", y="y:Q", color=alt.Color("name:N", scale=alt.Scale(range=_PALETTE)),
-        opacity=_opacity(pick), tooltip=["name:N", alt.Tooltip("y:Q", format=".4f", title="peak y")])
+    pk = (
+        alt.Chart(peaks)
+        .mark_point(shape="triangle-down", filled=True, size=70)
+        .encode(
+            x="t_s:Q",
+            y="y:Q",
+            color=alt.Color("name:N", scale=alt.Scale(range=_PALETTE)),
+            opacity=_opacity(pick),
+            tooltip=["name:N", alt.Tooltip("y:Q", format=".4f", title="peak y")],
+        )
+    )
     layers = band + y + pk
     os_lim = study.limits.get("overshoot_pct")
     if os_lim is not None:
         layers = layers + _rules([1 + os_lim / 100], "y", f"overshoot limit {os_lim:g} %", (2, 3))
     u = _line(st, "u", "control u", pick, logx=False, x="t_s", x_title="time (s)")
-    return alt.vconcat(layers.properties(width=420, height=220, title="Reference step: output (±2 % band)"),
-                       u.properties(width=420, height=180, title="Reference step: control signal"))
+    return alt.vconcat(
+        layers.properties(width=420, height=220, title="Reference step: output (±2 % band)"),
+        u.properties(width=420, height=180, title="Reference step: control signal"),
+    )
 
 
 def _ms(study: Study) -> float:
@@ -333,7 +433,9 @@ def chart_specs(study: Study, designs: Sequence[dict[str, Any]]) -> dict[str, al
     pick = _pick()
     out: dict[str, Any] = {
         "pareto_hf": pareto_chart(df, "hf_gain", "hf_gain (noise gain)", pick),
-        "pareto_iae": pareto_chart(df.dropna(subset=["iae_load"]), "iae_load", "iae_load (load IAE)", pick),
+        "pareto_iae": pareto_chart(
+            df.dropna(subset=["iae_load"]), "iae_load", "iae_load (load IAE)", pick
+        ),
         "bode": bode_charts(fr, study, pick),
         "nichols": nichols_chart(fr, ms, pick),
         "sensitivity": sensitivity_chart(fr, ms, pick),
@@ -347,12 +449,21 @@ def chart_specs(study: Study, designs: Sequence[dict[str, Any]]) -> dict[str, al
 
 
 def _theme(ch: alt.TopLevelMixin) -> alt.TopLevelMixin:
-    return ch.configure(font=_FONT, background="#fbfaf6").configure_view(
-        stroke="#d8d4c8", fill="#ffffff").configure_axis(
-        labelColor=_INK, titleColor=_INK, gridColor="#ecebe4", domainColor="#8d958f",
-        labelFontSize=11, titleFontSize=12, titleFontWeight="normal").configure_title(
-        color=_INK, fontSize=14, anchor="start", fontWeight=600).configure_legend(
-        labelColor=_INK, titleColor=_INK, orient="right")
+    return (
+        ch.configure(font=_FONT, background="#fbfaf6")
+        .configure_view(stroke="#d8d4c8", fill="#ffffff")
+        .configure_axis(
+            labelColor=_INK,
+            titleColor=_INK,
+            gridColor="#ecebe4",
+            domainColor="#8d958f",
+            labelFontSize=11,
+            titleFontSize=12,
+            titleFontWeight="normal",
+        )
+        .configure_title(color=_INK, fontSize=14, anchor="start", fontWeight=600)
+        .configure_legend(labelColor=_INK, titleColor=_INK, orient="right")
+    )
 
 
 def dashboard(study: Study, designs: Sequence[dict[str, Any]]) -> alt.TopLevelMixin:
@@ -362,17 +473,24 @@ def dashboard(study: Study, designs: Sequence[dict[str, Any]]) -> alt.TopLevelMi
     df = design_frame(designs)
     sel = response_designs(designs)
     fr, st, ms, pick = frequency_frame(study, sel), step_frame(study, sel), _ms(study), _pick()
-    top = alt.hconcat(pareto_chart(df, "hf_gain", "hf_gain (noise gain)", pick),
-                      pareto_chart(df.dropna(subset=["iae_load"]), "iae_load", "iae_load (load IAE)", pick))
+    top = alt.hconcat(
+        pareto_chart(df, "hf_gain", "hf_gain (noise gain)", pick),
+        pareto_chart(df.dropna(subset=["iae_load"]), "iae_load", "iae_load (load IAE)", pick),
+    )
     mid = alt.hconcat(bode_charts(fr, study, pick), nichols_chart(fr, ms, pick))
     low = alt.hconcat(sensitivity_chart(fr, ms, pick), step_charts(st, study, pick))
-    ch = alt.vconcat(top, mid, low).resolve_scale(color="independent", shape="independent",
-                                                    strokeDash="independent")
+    ch = alt.vconcat(top, mid, low).resolve_scale(
+        color="independent", shape="independent", strokeDash="independent"
+    )
     return _theme(ch)
 
 
-def export_charts(study: Study, designs: Sequence[dict[str, Any]], out_dir: Path,
-                  formats: Sequence[str] = ("png", "svg")) -> list[Path]:
+def export_charts(
+    study: Study,
+    designs: Sequence[dict[str, Any]],
+    out_dir: Path,
+    formats: Sequence[str] = ("png", "svg"),
+) -> list[Path]:
     """Each chart as ``<name>.<fmt>`` in ``out_dir`` (png, svg) for slides."""
     bad = [f for f in formats if f not in ("png", "svg")]
     if bad:
@@ -409,7 +527,9 @@ def _fmt_roots(roots: Sequence[Any]) -> str:
         elif c.imag == 0:
             out.append(f"(s {'+' if c.real < 0 else '−'} {abs(c.real):.4g})")
         elif c.imag > 0:
-            out.append(f"(s² {'+' if c.real < 0 else '−'} {abs(2 * c.real):.4g}s + {abs(c) ** 2:.4g})")
+            out.append(
+                f"(s² {'+' if c.real < 0 else '−'} {abs(2 * c.real):.4g}s + {abs(c) ** 2:.4g})"
+            )
     return " ".join(out) or "1"
 
 
@@ -420,8 +540,16 @@ def factored(comp: dict[str, Any]) -> str:
     return g if num == den == "1" else f"{g} · {num} / {den}" if den != "1" else f"{g} · {num}"
 
 
-_TABLE_KEYS = ("crossover_rad_s", "phase_margin_deg", "gain_margin_db", "sensitivity_peak",
-               "hf_gain", "iae_load", "overshoot_pct", "settling_time_s")
+_TABLE_KEYS = (
+    "crossover_rad_s",
+    "phase_margin_deg",
+    "gain_margin_db",
+    "sensitivity_peak",
+    "hf_gain",
+    "iae_load",
+    "overshoot_pct",
+    "settling_time_s",
+)
 
 
 def _cell(v: Any) -> str:
@@ -433,11 +561,21 @@ def _cell(v: Any) -> str:
 
 
 def _table(designs: Sequence[dict[str, Any]]) -> str:
-    ranked = sorted(designs, key=lambda d: (not d.get("meets_targets"), not d.get("pareto"),
-                                            _num(d["metrics"].get("sensitivity_peak")) if
-                                            d["metrics"].get("sensitivity_peak") is not None else 1e9))
-    head = "".join(f"<th>{html.escape(METRIC_UNITS.get(k, (k, ''))[0])}"
-                   f"<span>{html.escape(METRIC_UNITS.get(k, (k, ''))[1])}</span></th>" for k in _TABLE_KEYS)
+    ranked = sorted(
+        designs,
+        key=lambda d: (
+            not d.get("meets_targets"),
+            not d.get("pareto"),
+            _num(d["metrics"].get("sensitivity_peak"))
+            if d["metrics"].get("sensitivity_peak") is not None
+            else 1e9,
+        ),
+    )
+    head = "".join(
+        f"<th>{html.escape(METRIC_UNITS.get(k, (k, ''))[0])}"
+        f"<span>{html.escape(METRIC_UNITS.get(k, (k, ''))[1])}</span></th>"
+        for k in _TABLE_KEYS
+    )
     rows = []
     for i, d in enumerate(ranked, 1):
         cls = "ok" if d.get("meets_targets") else "miss"
@@ -448,9 +586,12 @@ def _table(designs: Sequence[dict[str, Any]]) -> str:
             f"<div class='sub'>{html.escape(str(d.get('origin', '')))} · {html.escape(str(d.get('structure', '')))}"
             f"</div></td><td class='tf'>{html.escape(factored(d['compensator']))}</td>"
             f"<td>{'yes' if d.get('meets_targets') else 'no'}"
-            f"{'<div class=sub>' + html.escape(why) + '</div>' if why else ''}</td>{cells}</tr>")
-    return (f"<table><thead><tr><th>#</th><th>design</th><th>compensator C(s)</th><th>meets</th>{head}"
-            f"</tr></thead><tbody>{''.join(rows)}</tbody></table>")
+            f"{'<div class=sub>' + html.escape(why) + '</div>' if why else ''}</td>{cells}</tr>"
+        )
+    return (
+        f"<table><thead><tr><th>#</th><th>design</th><th>compensator C(s)</th><th>meets</th>{head}"
+        f"</tr></thead><tbody>{''.join(rows)}</tbody></table>"
+    )
 
 
 def _targets_html(study: Study) -> str:
@@ -462,8 +603,16 @@ def _targets_html(study: Study) -> str:
         f"integrators in the loop: {t.integrators}",
     ] + [f"limit {k}: {v:g}" for k, v in study.limits.items()]
     conv = "".join(f"<li>{html.escape(s)}</li>" for s in t.derived_from)
-    return ("<ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in items) + "</ul>"
-            + (f"<p class='sub'>How the targets were obtained:</p><ul class='sub'>{conv}</ul>" if conv else ""))
+    return (
+        "<ul>"
+        + "".join(f"<li>{html.escape(s)}</li>" for s in items)
+        + "</ul>"
+        + (
+            f"<p class='sub'>How the targets were obtained:</p><ul class='sub'>{conv}</ul>"
+            if conv
+            else ""
+        )
+    )
 
 
 _CSS = """

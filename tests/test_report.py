@@ -89,7 +89,8 @@ def test_lowest_order_and_factored_form(kiln):
     assert lowest_order_meeting(ds) == (min(meeting) if meeting else None)
     assert lowest_order_meeting([{"order": 1, "meets_targets": False}]) is None
     assert factored({"gain": 2.0, "zeros": [-1.0, "-2+3j", "-2-3j"], "poles": [0.0]}) == (
-        "2 · (s + 1) (s² + 4s + 13) / s")
+        "2 · (s + 1) (s² + 4s + 13) / s"
+    )
 
 
 def test_chart_specs_layers_encodings_params(kiln):
@@ -101,21 +102,33 @@ def test_chart_specs_layers_encodings_params(kiln):
     enc = ph["layer"][0]["encoding"]
     assert enc["x"]["field"] == "hf_gain" and enc["y"]["field"] == "Ms"
     assert enc["shape"]["field"] == "order"
-    assert enc["color"]["condition"]["field"] == "structure" and enc["color"]["condition"]["test"] == "datum.meets"
-    assert any(p.get("name") == "pick" for p in ph.get("params", []) + ph["layer"][0].get("params", []))
+    assert (
+        enc["color"]["condition"]["field"] == "structure"
+        and enc["color"]["condition"]["test"] == "datum.meets"
+    )
+    assert any(
+        p.get("name") == "pick" for p in ph.get("params", []) + ph["layer"][0].get("params", [])
+    )
     # hand designs get their own outlined layer
     assert ph["layer"][1]["mark"]["filled"] is False
     assert specs["pareto_iae"]["layer"][0]["encoding"]["x"]["field"] == "iae_load"
     # every chart uses the pick selection in an opacity condition
     for name, spec in specs.items():
-        conds = [d["opacity"]["condition"] for d in _walk(spec) if isinstance(d.get("opacity"), dict)
-                 and "condition" in d["opacity"]]
+        conds = [
+            d["opacity"]["condition"]
+            for d in _walk(spec)
+            if isinstance(d.get("opacity"), dict) and "condition" in d["opacity"]
+        ]
         assert any(c.get("param") == "pick" for c in conds), name
     # Bode: log frequency axis, target crossover rule at 0.06 rad/s, -180+PM rule
     bode = json.dumps(specs["bode"])
     assert '"type": "log"' in bode and "target crossover" in bode and "PM target (55" in bode
-    rules = [d for d in _walk(specs["bode"]) if d.get("mark", {}) == {"type": "rule"} or (
-        isinstance(d.get("mark"), dict) and d["mark"].get("type") == "rule")]
+    rules = [
+        d
+        for d in _walk(specs["bode"])
+        if d.get("mark", {}) == {"type": "rule"}
+        or (isinstance(d.get("mark"), dict) and d["mark"].get("type") == "rule")
+    ]
     assert rules
     datasets = specs["bode"]["datasets"]
     vals = [r["v"] for rows in datasets.values() for r in rows if "label" in r and "v" in r]
@@ -207,34 +220,81 @@ def test_png_svg_export(kiln, tmp_path):
             assert ET.parse(p).getroot().tag.endswith("svg")
 
 
-CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None)
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-         "--disable-background-networking", "--disable-component-update", "--disable-sync",
-         "--proxy-server=127.0.0.1:9", "--host-resolver-rules=MAP * ~NOTFOUND"]
+CHROMIUM = shutil.which("chromium") or (
+    "/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None
+)
+FLAGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--proxy-server=127.0.0.1:9",
+    "--host-resolver-rules=MAP * ~NOTFOUND",
+]
 
 
 @pytest.mark.slow
-@pytest.mark.skipif(CHROMIUM is None, reason="chromium not installed (CI installs it from Debian packages)")
+@pytest.mark.skipif(
+    CHROMIUM is None, reason="chromium not installed (CI installs it from Debian packages)"
+)
 def test_renders_in_headless_chromium(kiln, tmp_path):
     study, ds = kiln
     page = write_report(study, ds, tmp_path / "r.html")
     with tempfile.TemporaryDirectory() as prof:
-        dom = subprocess.run([CHROMIUM, *FLAGS, f"--user-data-dir={prof}", "--virtual-time-budget=8000",
-                              "--dump-dom", page.as_uri()], capture_output=True, text=True, timeout=120).stdout
+        dom = subprocess.run(
+            [
+                CHROMIUM,
+                *FLAGS,
+                f"--user-data-dir={prof}",
+                "--virtual-time-budget=8000",
+                "--dump-dom",
+                page.as_uri(),
+            ],
+            capture_output=True,
+            text=True,
+            timeout=120,
+        ).stdout
     assert 'data-rendered="yes"' in dom, "vega-embed did not finish"
     errors = re.search(r'<pre id="errors">(.*?)</pre>', dom, re.S)
-    assert errors is not None and errors.group(1).strip() == "", errors.group(1) if errors else dom[-500:]
-    dash = dom[dom.index('id="dash"'):]
+    assert errors is not None and errors.group(1).strip() == "", (
+        errors.group(1) if errors else dom[-500:]
+    )
+    dash = dom[dom.index('id="dash"') :]
     svg = re.search(r"<svg.*?</svg>", dash, re.S)
     assert svg is not None
     # every sub-chart drew its marks: one role-mark group per layer, with paths
-    assert svg.group(0).count('class="mark-line') >= 8 and svg.group(0).count('class="mark-symbol') >= 3
-    for title in ("Loop gain", "Loop phase", "Gain-phase chart", "Sensitivity", "Reference step: output",
-                  "Reference step: control", "Ms against hf_gain", "Ms against iae_load"):
+    assert (
+        svg.group(0).count('class="mark-line') >= 8
+        and svg.group(0).count('class="mark-symbol') >= 3
+    )
+    for title in (
+        "Loop gain",
+        "Loop phase",
+        "Gain-phase chart",
+        "Sensitivity",
+        "Reference step: output",
+        "Reference step: control",
+        "Ms against hf_gain",
+        "Ms against iae_load",
+    ):
         assert title in svg.group(0), title
     with tempfile.TemporaryDirectory() as prof:
         shot = tmp_path / "shot.png"
-        subprocess.run([CHROMIUM, *FLAGS, f"--user-data-dir={prof}", "--virtual-time-budget=8000",
-                        f"--screenshot={shot}", "--window-size=1400,3000", page.as_uri()],
-                       capture_output=True, timeout=120)
+        subprocess.run(
+            [
+                CHROMIUM,
+                *FLAGS,
+                f"--user-data-dir={prof}",
+                "--virtual-time-budget=8000",
+                f"--screenshot={shot}",
+                "--window-size=1400,3000",
+                page.as_uri(),
+            ],
+            capture_output=True,
+            timeout=120,
+        )
     assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
