@@ -19,10 +19,7 @@ from explorer.evaluate import METRIC_UNITS
 
 __all__ = ["main", "build_parser"]
 
-CAUTION = (
-    "Caution: results are model-based. Validate on the real system with limits and "
-    "interlocks in place; defer to applicable codes, standards and licensed practice."
-)
+from explorer.caution import CAUTION  # noqa: E402  (one text for CLI, README, report)
 
 _EXAMPLES = """\
 examples:
