@@ -292,7 +292,8 @@ def _line(
                 f"{x}:Q",
                 title=x_title,
                 scale=alt.Scale(type="log") if logx else alt.Scale(),
-                axis=alt.Axis(format="~g", labelOverlap="greedy"),
+                # "~g" only on log axes: on a linear time axis it printed "1e+2"
+                axis=alt.Axis(format="~g", labelOverlap="greedy") if logx else alt.Axis(labelOverlap=True),
             ),
             y=alt.Y(f"{y}:Q", title=y_title, scale=alt.Scale(zero=False)),
             color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
