@@ -87,47 +87,19 @@ _COMMAND_MODULES = ("explorer.cli_balance", "explorer.cli_explore", "explorer.cl
 # commands
 # --------------------------------------------------------------------------------------
 def _study_header(study: Any) -> dict[str, Any]:
-    t = study.targets
-    wc = list(t.crossover_rad_s) if isinstance(t.crossover_rad_s, tuple) else t.crossover_rad_s
-    return {
-        "name": study.name,
-        "source": study.source,
-        "plant": study.plant.to_dict() | {"delay": study.plant.delay_s},
-        "targets": {
-            "crossover_rad_s": wc,
-            "phase_margin_deg": t.phase_margin_deg,
-            "integrators": t.integrators,
-            "derived_from": list(t.derived_from),
-        },
-        "limits": dict(study.limits),
-    }
+    from explorer.evaluate import study_header
+
+    return study_header(study)
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from explorer.evaluate import describe_structure, design_metrics, design_record, meets_targets
+    from explorer.evaluate import given_designs
     from explorer.study import load_study
 
     study = load_study(args.study)
     if not study.compensators:
         raise LoopscoutError(f"{study.source}: no [[compensator]] entries to check")
-    designs = []
-    for entry in study.compensators:
-        comp = entry.compensator
-        metrics = design_metrics(study.plant, comp)
-        loop_int = study.plant.n_integrators + comp.n_integrators
-        ok, why = meets_targets(metrics, study.targets, study.limits, loop_int)
-        designs.append(
-            design_record(
-                name=entry.name,
-                origin="given",
-                structure=describe_structure(comp),
-                comp=comp,
-                metrics=metrics,
-                meets=ok,
-                pareto=None,
-                reasons=why,
-            )
-        )
+    designs = given_designs(study)
     if args.json:
         _print_json({"designs": designs, "study": _study_header(study), "caution": CAUTION})
     else:

@@ -19,29 +19,11 @@ __all__ = ["register", "load_designs", "given_designs"]
 
 def given_designs(study: Any) -> list[dict[str, Any]]:
     """The study's [[compensator]] entries as DESIGN records (origin "given")."""
-    from explorer.evaluate import describe_structure, design_metrics, design_record, meets_targets
+    from explorer import evaluate
 
     if not study.compensators:
         raise LoopscoutError(f"{study.source}: no [[compensator]] entries and no --designs file")
-    out = []
-    for entry in study.compensators:
-        comp = entry.compensator
-        metrics = design_metrics(study.plant, comp)
-        ok, why = meets_targets(
-            metrics, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
-        )
-        out.append(
-            design_record(
-                name=entry.name,
-                origin="given",
-                structure=describe_structure(comp),
-                comp=comp,
-                metrics=metrics,
-                meets=ok,
-                reasons=why,
-            )
-        )
-    return out
+    return evaluate.given_designs(study)
 
 
 def load_designs(path: str | Path) -> list[dict[str, Any]]:

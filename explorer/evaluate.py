@@ -13,7 +13,7 @@ from typing import Any
 
 from explorer.loop import Rational
 from explorer.metrics import frequency_metrics
-from explorer.study import LIMIT_KEYS, Targets
+from explorer.study import LIMIT_KEYS, Study, Targets
 
 __all__ = [
     "METRIC_KEYS",
@@ -24,6 +24,8 @@ __all__ = [
     "meets_targets",
     "describe_structure",
     "design_record",
+    "given_designs",
+    "study_header",
 ]
 
 #: interface.md METRICS keys, in the order the tables show them.
@@ -191,3 +193,36 @@ def design_record(
     if extra:
         rec.update(extra)
     return rec
+
+
+def given_designs(study: Study) -> list[dict[str, Any]]:
+    """The study's ``[[compensator]]`` entries as DESIGN records (origin "given"),
+    each with every metric and the target check."""
+    out = []
+    for entry in study.compensators:
+        comp = entry.compensator
+        metrics = design_metrics(study.plant, comp)
+        ok, why = meets_targets(metrics, study.targets, study.limits,
+                                study.plant.n_integrators + comp.n_integrators)
+        out.append(design_record(name=entry.name, origin="given", structure=describe_structure(comp),
+                                 comp=comp, metrics=metrics, meets=ok, reasons=why))
+    return out
+
+
+def study_header(study: Study) -> dict[str, Any]:
+    """The ``study`` part of the JSON objects: name, plant, targets (with their
+    conversion lines) and limits."""
+    t = study.targets
+    wc = list(t.crossover_rad_s) if isinstance(t.crossover_rad_s, tuple) else t.crossover_rad_s
+    return {
+        "name": study.name,
+        "source": study.source,
+        "plant": study.plant.to_dict() | {"delay": study.plant.delay_s},
+        "targets": {
+            "crossover_rad_s": wc,
+            "phase_margin_deg": t.phase_margin_deg,
+            "integrators": t.integrators,
+            "derived_from": list(t.derived_from),
+        },
+        "limits": dict(study.limits),
+    }

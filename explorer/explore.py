@@ -323,20 +323,9 @@ def _summary(
 
 
 def _study_header(study: Study) -> dict[str, Any]:
-    t = study.targets
-    wc = list(t.crossover_rad_s) if isinstance(t.crossover_rad_s, tuple) else t.crossover_rad_s
-    return {
-        "name": study.name,
-        "source": study.source,
-        "plant": study.plant.to_dict() | {"delay": study.plant.delay_s},
-        "targets": {
-            "crossover_rad_s": wc,
-            "phase_margin_deg": t.phase_margin_deg,
-            "integrators": t.integrators,
-            "derived_from": list(t.derived_from),
-        },
-        "limits": dict(study.limits),
-    }
+    from explorer.evaluate import study_header
+
+    return study_header(study)
 
 
 def _clean(v: Any) -> Any:
