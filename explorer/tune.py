@@ -352,7 +352,9 @@ def _dead_here(worker: str | None) -> bool:
 
 
 #: A RUNNING trial without a worker mark older than this is taken as interrupted (s).
-UNMARKED_STALE_S = 60.0
+#: A live worker marks its trials milliseconds after asking; a mark can only be
+#: missing when a worker was killed in between.
+UNMARKED_STALE_S = 10.0
 
 
 def _is_stale(t: optuna.trial.FrozenTrial) -> bool:
@@ -375,6 +377,22 @@ def _stale_running(st: optuna.Study, budget: int) -> list[optuna.trial.FrozenTri
     ]
 
 
+def _wait_for_unmarked(
+    st: optuna.Study, budget: int, progress: Callable[[str], None] | None
+) -> None:
+    while True:
+        young = [
+            t
+            for t in st.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
+            if t.number < budget and "worker" not in t.user_attrs and not _is_stale(t)
+        ]
+        if not young:
+            return
+        if progress:
+            progress(f"waiting for {len(young)} unmarked running trial(s) to turn stale")
+        time.sleep(0.5)
+
+
 def run_structures(
     problem: Problem,
     structures: list[Structure],
@@ -389,6 +407,10 @@ def run_structures(
     cnames = constraint_names(problem.limits)
     for si, (s, st) in enumerate(zip(structures, studies)):
         dists = _distributions(s, problem)
+        # an unmarked RUNNING trial (a worker killed between ask and mark) is not known
+        # to be dead until it is UNMARKED_STALE_S old: wait for that rather than skip
+        # it, so a quick rerun still fills the whole budget
+        _wait_for_unmarked(st, trials, progress)
         # finish trials a killed worker left RUNNING (same parameters, same number)
         stale = _stale_running(st, trials)
         for t in [
