@@ -182,25 +182,17 @@ def _fmt_value(key: str, value: Any) -> str:
     return f"{value:.4g}"
 
 
-_TABLE_ROWS = (
-    "crossover_rad_s",
-    "crossovers_rad_s",
-    "phase_margin_deg",
-    "gain_margin_db",
-    "phase_crossover_rad_s",
-    "lower_gain_margin_db",
-    "delay_margin_s",
-    "sensitivity_peak",
-    "complementary_peak",
-    "closed_loop_stable",
-    "overshoot_pct",
-    "settling_time_s",
-    "rise_time_s",
-    "peak_control",
-    "iae_load",
-    "hf_gain",
-    "integral_gain",
-)
+def _table_rows() -> tuple[str, ...]:
+    """interface.md METRICS keys in their order, with the lower gain margin shown
+    right after the phase crossover."""
+    from explorer.evaluate import METRIC_KEYS
+
+    keys = list(METRIC_KEYS)
+    keys.insert(keys.index("phase_crossover_rad_s") + 1, "lower_gain_margin_db")
+    return tuple(keys)
+
+
+_TABLE_ROWS = _table_rows()
 
 
 def _design_table(designs: list[dict[str, Any]]) -> str:
