@@ -26,10 +26,8 @@ from explorer.study import Study, load_study
 
 __all__ = ["ExploreResult", "explore", "make_problem", "CAUTION", "PARETO_PICKS"]
 
-CAUTION = (
-    "Caution: results are model-based. Validate on the real system with limits and "
-    "interlocks in place; defer to applicable codes, standards and licensed practice."
-)
+from explorer.caution import CAUTION  # noqa: E402  (one text everywhere)
+
 #: Pareto-best designs kept per structure besides the best Ms (best hf_gain, best iae_load).
 PARETO_PICKS = 2
 
@@ -54,21 +52,29 @@ def _plant_scale(plant: Rational) -> float:
 
 
 def make_problem(study: Study):  # -> explorer.tune.Problem
-    from explorer.tune import DEFAULT_PM_DEG, Problem
+    """The tuning problem of a study. A phase-margin target is balanced exactly; without
+    one the margin is searched from the floor (``limits.phase_margin_deg``, else 30°)
+    to 85° (explorer.tune.PM_SEARCH_DEG); a crossover range (or none) is searched too."""
+    from explorer.tune import PM_SEARCH_DEG, Problem
 
     t = study.targets
-    pm = t.phase_margin_deg
-    if pm is None:
-        pm = study.limits.get("phase_margin_deg", DEFAULT_PM_DEG)
+    pm_range: tuple[float, float] | None = None
+    if t.phase_margin_deg is not None:
+        pm = float(t.phase_margin_deg)
+    else:
+        pm = float(study.limits.get("phase_margin_deg", PM_SEARCH_DEG[0]))
+        if pm < PM_SEARCH_DEG[1]:
+            pm_range = (pm, PM_SEARCH_DEG[1])
     wc = t.crossover_rad_s
     if isinstance(wc, (int, float)):
         return Problem(
             plant=study.plant,
             targets=t,
             limits=study.limits,
-            pm_deg=float(pm),
+            pm_deg=pm,
             wc_rad_s=float(wc),
             wc_range_rad_s=None,
+            pm_range_deg=pm_range,
         )
     if isinstance(wc, tuple):
         rng = (float(wc[0]), float(wc[1]))
@@ -80,15 +86,17 @@ def make_problem(study: Study):  # -> explorer.tune.Problem
         plant=study.plant,
         targets=t,
         limits=study.limits,
-        pm_deg=float(pm),
+        pm_deg=pm,
         wc_rad_s=None,
         wc_range_rad_s=rng,
+        pm_range_deg=pm_range,
     )
 
 
-def _pick(records: list[Any], searched_wc: bool) -> list[Any]:
+def _pick(records: list[Any], searched_wc: bool) -> list[tuple[Any, str]]:
     """Best Ms among feasible, then the best hf_gain and best iae_load of the
-    structure's feasible non-dominated set."""
+    structure's feasible non-dominated set (and the fastest crossover when it is
+    searched), each with the criterion it was picked for."""
     from explorer.ranking import non_dominated_fronts
 
     feas = [r for r in records if r.feasible]
@@ -105,23 +113,110 @@ def _pick(records: list[Any], searched_wc: bool) -> list[Any]:
     )
     front = non_dominated_fronts(x)
     pareto = [r for r, f in zip(feas, front) if f == 0]
-    chosen = [min(feas, key=lambda r: (r.metrics["sensitivity_peak"], r.number))]
+    chosen = [
+        (min(feas, key=lambda r: (r.metrics["sensitivity_peak"], r.number)), "sensitivity_peak")
+    ]
     for k in keys[1:][:PARETO_PICKS]:
+        if all(r.metrics.get(k) is None for r in pareto):
+            continue  # e.g. no design rejects a load step: nothing to pick by iae_load
         chosen.append(
-            min(
-                pareto,
-                key=lambda r: (np.inf if r.metrics.get(k) is None else r.metrics[k], r.number),
+            (
+                min(
+                    pareto,
+                    key=lambda r: (np.inf if r.metrics.get(k) is None else r.metrics[k], r.number),
+                ),
+                k,
             )
         )
     if searched_wc:
         chosen.append(
-            max(pareto, key=lambda r: (r.metrics.get("crossover_rad_s") or 0.0, -r.number))
+            (
+                max(pareto, key=lambda r: (r.metrics.get("crossover_rad_s") or 0.0, -r.number)),
+                "crossover_rad_s",
+            )
         )
     out, seen = [], set()
-    for r in chosen:
-        if r.number not in seen:
-            seen.add(r.number)
-            out.append(r)
+    for r, k in chosen:
+        if id(r) not in seen:
+            seen.add(id(r))
+            out.append((r, k))
+    return out
+
+
+def _refined(
+    problem: Any,
+    s: Structure,
+    si: int,
+    picks: list[tuple[Any, str]],
+    hand: list[Any],
+) -> list[tuple[Any, str]]:
+    """Locally refined versions (explorer.refine) of the picks, and of every hand
+    design that fits this structure, each as (record, name). A refined design is kept
+    only when it is feasible and better in its criterion than where it started."""
+    from explorer.refine import CRITERIA, Start, refine
+    from explorer.structures import locate
+    from explorer.tune import TrialRecord, evaluate_batch, row_design
+
+    starts: list[Start] = []
+    names: list[str] = []
+    base: list[float | None] = []
+    numbers: list[int] = []
+    for r, crit in picks:
+        if r.params and crit in CRITERIA:
+            starts.append(Start(params=dict(r.params), criterion=crit))
+            names.append(f"{s.label} #{r.number} refined")
+            base.append(r.metrics.get(crit))
+            numbers.append(r.number)
+    if not problem.searched_wc and not problem.searched_pm:
+        for hd in hand:
+            p = locate(s, hd.compensator.zeros, hd.compensator.poles, problem.wc_rad_s,
+                       check_bounds=False)
+            if p is not None:
+                starts.append(Start(params=p, criterion="sensitivity_peak"))
+                names.append(f"{s.label} refined from {hd.name}")
+                base.append(None)
+                numbers.append(-1)
+    if not starts:
+        return []
+    got = refine(problem, s, starts)
+    keep = [(i, p) for i, p in enumerate(got) if p is not None]
+    if not keep:
+        return []
+    wc = np.array(
+        [p.pop("wc_rad_s") if problem.searched_wc else problem.wc_rad_s for _, p in keep], float
+    )
+    pm = (
+        np.array([p.pop("pm_deg") for _, p in keep], float) if problem.searched_pm else None
+    )
+    arr = {k: np.array([p[k] for _, p in keep], float) for k in s.params}
+    res = evaluate_batch(problem, s, arr, wc, pm)
+    out = []
+    for j, (i, p) in enumerate(keep):
+        rec = row_design(res, j)
+        if not res["feasible"][j] or rec["reason"] is not None or rec["gain"] is None:
+            continue
+        crit = starts[i].criterion
+        v, b = rec["metrics"].get(crit), base[i]
+        if b is not None and (v is None or CRITERIA[crit] * (v - b) >= 0.0):
+            continue  # no better than the trial it started from
+        out.append(
+            (
+                TrialRecord(
+                    structure=si,
+                    number=numbers[i],
+                    state="REFINED",
+                    feasible=True,
+                    gain=rec["gain"],
+                    zeros=tuple(complex(*z) for z in rec["zeros"]),
+                    poles=tuple(complex(*q) for q in rec["poles"]),
+                    metrics=rec["metrics"],
+                    constraints={},
+                    reason=None,
+                    params=p,
+                ),
+                names[i],
+            )
+        )
     return out
 
 
@@ -158,7 +253,9 @@ def _why_not(s: Structure, records: list[Any], pm_deg: float) -> str:
     return f"{label} in {counts[worst]}/{len(records)} trials{extra}"
 
 
-def _hand_records(study: Study) -> list[dict[str, Any]]:
+def _hand_designs(study: Study) -> list[Any]:
+    """The hand designs (explorer.balance) with a compensator, for a fixed crossover
+    and phase-margin target; none otherwise."""
     t = study.targets
     if not isinstance(t.crossover_rad_s, (int, float)) or t.phase_margin_deg is None:
         return []
@@ -168,6 +265,11 @@ def _hand_records(study: Study) -> list[dict[str, Any]]:
         hds = hand_designs(study.plant, t, cancel_lightly_damped=study.search.cancel_lightly_damped)
     except Exception:  # the hand baselines are references; the exploration stands without them
         return []
+    return [hd for hd in hds if hd.compensator is not None]
+
+
+def _hand_records(study: Study, hds: list[Any]) -> list[dict[str, Any]]:
+    t = study.targets
     out = []
     for hd in hds:
         if hd.compensator is None:
@@ -237,18 +339,30 @@ def explore(
 
         sys.stderr.write("\n")
     records = tune.load_records(studies, n_trials)
+    hand = _hand_designs(study)
     designs: list[dict[str, Any]] = []
     why: dict[str, str] = {}
     for si, s in enumerate(structures):
+        if show:
+            show(f"refining structure {si + 1}/{len(structures)} {s.label}")
         recs = [r for r in records if r.structure == si]
         kept = 0
-        for r in _pick(recs, problem.searched_wc):
+        picks = _pick(recs, problem.searched_wc)
+        named = {id(r): f"{s.label} #{r.number}" for r, _ in picks}
+        try:
+            refined = _refined(problem, s, si, picks, hand)
+        except Exception as exc:  # the refinement adds designs; the trials stand without it
+            refined = []
+            why.setdefault(s.label, f"refinement failed: {type(exc).__name__}")
+        named.update({id(r): n for r, n in refined})
+        pool = [r for r, _ in picks] + [r for r, _ in refined]
+        for r, _ in _pick(pool, problem.searched_wc):
             comp = Rational(gain=r.gain, zeros=r.zeros, poles=r.poles)
             try:
                 m = design_metrics(study.plant, comp)
             except Exception as exc:  # never report a design that could not be re-checked
                 why.setdefault(
-                    s.label, f"re-check of trial {r.number} failed: {type(exc).__name__}"
+                    s.label, f"re-check of {named[id(r)]} failed: {type(exc).__name__}"
                 )
                 continue
             ok, miss = meets_targets(
@@ -256,20 +370,23 @@ def explore(
             )
             designs.append(
                 design_record(
-                    name=f"{s.label} #{r.number}",
+                    name=named[id(r)],
                     origin="optimized",
                     structure=s.label,
                     comp=comp,
                     metrics=m,
                     meets=ok,
                     reasons=miss,
-                    extra={"trial": r.number},
+                    extra={
+                        "trial": r.number if r.number >= 0 else None,
+                        "refined": r.state == "REFINED",
+                    },
                 )
             )
             kept += ok
         if not kept:
             why[s.label] = _why_not(s, recs, problem.pm_deg)
-    designs += _hand_records(study)
+    designs += _hand_records(study, hand)
     frame = rank_designs(designs)
     pareto = dict(zip(frame["name"], frame["pareto"])) if len(frame) else {}
     doms = dict(zip(frame["name"], frame["dominates_hand"])) if len(frame) else {}

@@ -29,6 +29,7 @@ __all__ = [
     "balance",
     "loop_phase_target_deg",
     "LIGHT_DAMPING",
+    "locate",
 ]
 
 #: Plant poles with a damping ratio below this count as lightly damped (common practice).
@@ -134,6 +135,75 @@ class RootStructure(Structure):
         z = np.stack(zs, axis=1) if zs else np.zeros((n, 0), complex)
         p = np.stack(ps, axis=1) if ps else np.zeros((n, 0), complex)
         return z, p
+
+
+def _log_ratio(r: complex, wc: float) -> float:
+    return float(np.log10(abs(r) / wc))
+
+
+def _within(x: float, lo_hi: tuple[float, float], tol: float = 1e-9) -> bool:
+    return lo_hi[0] - tol <= x <= lo_hi[1] + tol
+
+
+def locate(
+    s: Structure,
+    zeros: tuple[complex, ...],
+    poles: tuple[complex, ...],
+    wc_rad_s: float,
+    *,
+    check_bounds: bool = True,
+) -> dict[str, float] | None:
+    """The parameters of ``s`` that give a compensator with these roots at crossover
+    ``wc_rad_s`` (the balancing root then re-solves to the given one when the design
+    meets its phase condition), or None when the roots are not of this structure or
+    (with ``check_bounds``) a location lies outside the structure's bounds; the
+    balancing root must always lie within ``BALANCE_BOUNDS``. Used to start the local refinement
+    from a hand design. Real free roots only, plus the PID complex-zero pair; notch
+    structures are not located."""
+    if not isinstance(s, RootStructure) or s.notch is not None:
+        return None
+    tol = 1e-9 * max(1.0, wc_rad_s)
+    origin = [p for p in poles if abs(p) <= tol]
+    if len(origin) != s.integrators:
+        return None
+    rest_p = [p for p in poles if abs(p) > tol]
+    rest_z = list(zeros)
+    for c in s.cancel:
+        hit = [z for z in rest_z if abs(z - c) <= 1e-6 * abs(c)]
+        if not hit:
+            return None
+        rest_z.remove(hit[0])
+    out: dict[str, float] = {}
+    pair = [z for z in rest_z if z.imag > tol]
+    if s.complex_zeros:
+        if len(pair) != 1:
+            return None
+        wn = abs(pair[0])
+        out["pair_w"] = _log_ratio(pair[0], wc_rad_s)
+        out["pair_zeta"] = float(-pair[0].real / wn)
+        rest_z = [z for z in rest_z if abs(z.imag) <= tol]
+    if any(abs(r.imag) > tol or r.real >= 0 for r in (*rest_z, *rest_p)):
+        return None
+    zr = sorted(-r.real for r in rest_z)
+    pr = sorted(-r.real for r in rest_p)
+    nz = s.free_zeros + (s.balance_root == "zero")
+    npol = s.free_poles + (s.balance_root == "pole")
+    if len(zr) != nz or len(pr) != npol:
+        return None
+    free_z, free_p = (zr, pr)
+    bal_from = free_z if s.balance_root == "zero" else free_p
+    for k in range(len(bal_from)):  # any one of the real roots may be the balancing one
+        cand_rest = bal_from[:k] + bal_from[k + 1 :]
+        if not _within(np.log10(bal_from[k] / wc_rad_s), BALANCE_BOUNDS):
+            continue
+        fz = cand_rest if s.balance_root == "zero" else free_z
+        fp = cand_rest if s.balance_root == "pole" else free_p
+        got = dict(out)
+        got.update({f"zero{i + 1}": float(np.log10(a / wc_rad_s)) for i, a in enumerate(fz)})
+        got.update({f"pole{i + 1}": float(np.log10(a / wc_rad_s)) for i, a in enumerate(fp)})
+        if not check_bounds or all(_within(got[k2], b) for k2, b in s.params.items()):
+            return got
+    return None
 
 
 @dataclass(frozen=True, kw_only=True)

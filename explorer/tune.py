@@ -23,7 +23,7 @@ import socket
 import sys
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -47,15 +47,20 @@ __all__ = [
     "create_studies",
     "run_structures",
     "evaluate_batch",
+    "row_design",
+    "constraint_names",
     "load_records",
     "objective_names",
-    "DEFAULT_PM_DEG",
+    "PM_SEARCH_DEG",
+    "TIME_KEYS",
 ]
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
-#: Phase margin used when neither a target nor a limit gives one (common practice).
-DEFAULT_PM_DEG = 45.0
+#: Phase-margin range searched when the study sets no phase-margin target: from the
+#: study's floor (limits.phase_margin_deg, else 30°) up to 85° (common practice: below
+#: 30° a loop is fragile, above 85° the margin buys nothing but sluggishness).
+PM_SEARCH_DEG = (30.0, 85.0)
 _PENALTY = 1e9
 #: How long a worker waits for other workers' running trials before ranking (s).
 WAIT_FOR_OTHERS_S = 120.0
@@ -70,13 +75,24 @@ class Problem:
     plant: Rational
     targets: Targets
     limits: dict[str, float]
-    pm_deg: float
+    pm_deg: float  # the phase margin balanced for, or the floor when it is searched
     wc_rad_s: float | None  # fixed crossover, or None when searched
     wc_range_rad_s: tuple[float, float] | None
+    #: (floor, ceiling) deg when no phase-margin target is set: the margin is sampled
+    pm_range_deg: tuple[float, float] | None = None
 
     @property
     def searched_wc(self) -> bool:
         return self.wc_rad_s is None
+
+    @property
+    def searched_pm(self) -> bool:
+        return self.pm_range_deg is not None
+
+    @property
+    def time_limits(self) -> bool:
+        """True when a study limit needs the step responses."""
+        return any(k in TIME_KEYS for k in self.limits)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -93,6 +109,8 @@ class TrialRecord:
     metrics: dict[str, float | None]
     constraints: dict[str, float]
     reason: str | None
+    #: the sampled parameters (structure parameters, and wc_rad_s / pm_deg when searched)
+    params: dict[str, float] = field(default_factory=dict)
 
 
 def objective_names(searched_wc: bool) -> list[str]:
@@ -111,16 +129,32 @@ def constraint_names(limits: dict[str, float]) -> list[str]:
     ]
 
 
+#: Metrics that need the step responses.
+TIME_KEYS = frozenset(
+    {"overshoot_pct", "settling_time_s", "rise_time_s", "peak_control", "iae_load"}
+)
+
+
 def evaluate_batch(
-    problem: Problem, s: Structure, params: dict[str, np.ndarray], wc_rad_s: np.ndarray
+    problem: Problem,
+    s: Structure,
+    params: dict[str, np.ndarray],
+    wc_rad_s: np.ndarray,
+    pm_deg: np.ndarray | None = None,
+    *,
+    time_domain: bool = True,
 ) -> dict[str, Any]:
     """Balance and evaluate a batch. Returns ``values`` (n, m) objectives,
     ``constraints`` (n, k), ``gain``, ``zeros``, ``poles``, ``metrics`` (dict of
-    arrays), and ``fail`` (per-row reason or None)."""
+    arrays), and ``fail`` (per-row reason or None). ``pm_deg`` (per row) is the phase
+    margin balanced for, default ``problem.pm_deg``. ``time_domain=False`` skips the
+    step responses (their metrics stay NaN; a study limit on one is then not checked
+    here) — the cheap evaluation used by the local refinement."""
     from explorer.timeresp import step_metrics_batch
 
     n = wc_rad_s.shape[0]
-    b = balance(problem.plant, s, params, wc_rad_s, problem.pm_deg)
+    pm_row = np.full(n, problem.pm_deg) if pm_deg is None else np.asarray(pm_deg, float)
+    b = balance(problem.plant, s, params, wc_rad_s, pm_row)
     ok = b.shortfall_deg == 0.0
     metrics: dict[str, np.ndarray] = {}
     keys = (
@@ -149,7 +183,9 @@ def evaluate_batch(
             g, z, p = b.gain[idx], b.zeros[idx], b.poles[idx]
             fm = frequency_metrics_batch(problem.plant, g, z, p)
             stable = np.asarray(fm["closed_loop_stable"], bool)
-            tm = step_metrics_batch(problem.plant, g, z, p, stable=stable)
+            tm = (
+                step_metrics_batch(problem.plant, g, z, p, stable=stable) if time_domain else {}
+            )
             for k in keys:
                 src = fm if k in fm else tm
                 if k in src:
@@ -187,7 +223,8 @@ def evaluate_batch(
         cons[2] = np.where(ok, np.maximum(cons[2], out_rng), 0.0)
     for key, bound in problem.limits.items():
         v = metrics.get(key)
-        if v is None:  # a limit on a key we do not compute in the batch: checked at the end
+        if v is None or (not time_domain and key in TIME_KEYS):
+            # a limit on a key not computed in this batch: checked at the end
             cons.append(np.zeros(n))
             continue
         scale = max(abs(bound), 1e-9)
@@ -202,8 +239,13 @@ def evaluate_batch(
         vals.append(-wc_rad_s)
     values = np.stack(vals, axis=1)
     # infeasible / unstable designs: penalty objectives (constraints decide); a feasible
-    # stable design with a NaN objective is a failed evaluation
-    bad = ok & stable & ~np.all(np.isfinite(values), axis=1)
+    # stable design with a NaN objective is a failed evaluation — except iae_load, which
+    # is null by definition when the load error does not vanish (no integrator where the
+    # load enters) or when the step responses were skipped: that is the worst value,
+    # not a failure
+    finite = np.isfinite(values)
+    finite[:, 2] = True
+    bad = ok & stable & ~np.all(finite, axis=1)
     for i in np.flatnonzero(bad):
         if fail[i] is None:
             fail[i] = "NaN objective for a stable design: " + ", ".join(
@@ -297,6 +339,9 @@ def _distributions(s: Structure, problem: Problem) -> dict[str, FloatDistributio
     if problem.searched_wc:
         lo, hi = problem.wc_range_rad_s  # type: ignore[misc]
         d["wc_rad_s"] = FloatDistribution(lo, hi, log=True)
+    if problem.searched_pm:
+        lo, hi = problem.pm_range_deg  # type: ignore[misc]
+        d["pm_deg"] = FloatDistribution(lo, hi)
     return d
 
 
@@ -304,13 +349,10 @@ def _root_json(r: complex) -> list[float]:
     return [float(r.real), float(r.imag)]
 
 
-def _tell(
-    st: optuna.Study, trial: optuna.Trial, res: dict[str, Any], i: int, cnames: list[str]
-) -> None:
-    reason = res["fail"][i]
-    for name, v in zip(cnames, res["constraints"][i]):
-        trial.set_constraint(name, float(v))
-    rec = {
+def row_design(res: dict[str, Any], i: int) -> dict[str, Any]:
+    """Row ``i`` of an ``evaluate_batch`` result as the stored design record (JSON
+    types: gain, zeros and poles as [re, im] pairs, metrics with None for NaN)."""
+    return {
         "gain": None if not np.isfinite(res["gain"][i]) else float(res["gain"][i]),
         "zeros": [_root_json(r) for r in res["zeros"][i]]
         if np.all(np.isfinite(res["zeros"][i]))
@@ -326,9 +368,17 @@ def _tell(
             )
             for k, v in res["metrics"].items()
         },
-        "reason": reason,
+        "reason": res["fail"][i],
     }
-    trial.set_user_attr("design", json.dumps(rec))
+
+
+def _tell(
+    st: optuna.Study, trial: optuna.Trial, res: dict[str, Any], i: int, cnames: list[str]
+) -> None:
+    reason = res["fail"][i]
+    for name, v in zip(cnames, res["constraints"][i]):
+        trial.set_constraint(name, float(v))
+    trial.set_user_attr("design", json.dumps(row_design(res, i)))
     if reason is not None:
         trial.set_user_attr("fail_reason", reason)
         st.tell(trial, state=TrialState.FAIL, skip_if_finished=True)
@@ -476,8 +526,9 @@ def _evaluate_and_tell(
         wc = np.array([p["wc_rad_s"] for p in params], float)
     else:
         wc = np.full(len(params), float(problem.wc_rad_s))  # type: ignore[arg-type]
+    pm = np.array([p["pm_deg"] for p in params], float) if problem.searched_pm else None
     try:
-        res = evaluate_batch(problem, s, arr, wc)
+        res = evaluate_batch(problem, s, arr, wc, pm)
     except Exception as exc:
         for t in tr:
             t.set_user_attr("fail_reason", f"evaluation failed: {type(exc).__name__}: {exc}")
@@ -514,6 +565,7 @@ def load_records(studies: list[optuna.Study], trials: int) -> list[TrialRecord]:
                     metrics=rec["metrics"],
                     constraints=cons,
                     reason=t.user_attrs.get("fail_reason") or rec.get("reason"),
+                    params={k: float(v) for k, v in t.params.items()},
                 )
             )
     return out

@@ -1,0 +1,166 @@
+"""Local refinement of chosen designs: a batched compass search with pattern moves.
+
+The Optuna search samples; the best designs it finds usually sit a little inside the
+active limit (an Ms ceiling, the crossover range). From each start point this module
+minimises one criterion in the structure's parameter space (the sampled location
+parameters, plus log ωc and the phase margin when those are searched) while every
+constraint of :func:`explorer.tune.evaluate_batch` holds — an infeasible point is
+never accepted ("extreme barrier"). Directions ±e_i (and ±e_i ± e_j when there are at
+most three parameters), plus a pattern move along the last successful step (Hooke &
+Jeeves, "Direct search solution of numerical and statistical problems", J. ACM 8(2),
+1961); the step halves when no direction improves (compass search: Kolda, Lewis &
+Torczon, "Optimization by direct search", SIAM Review 45(3), 2003, §3). Every start of
+one structure is evaluated in one batch per iteration. Deterministic: the same starts
+give the same result, so workers sharing an exploration rank the same designs.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from explorer.structures import Structure
+from explorer.tune import Problem, evaluate_batch
+
+__all__ = ["CRITERIA", "Start", "coordinates", "refine", "evaluate_points"]
+
+#: Criteria the refinement can optimise: +1 minimise, −1 maximise.
+CRITERIA = {
+    "sensitivity_peak": +1.0,
+    "hf_gain": +1.0,
+    "integral_gain": -1.0,
+    "crossover_rad_s": -1.0,
+    "iae_load": +1.0,
+}
+#: Initial and final step, as fractions of each parameter's range.
+STEP0 = 1.0 / 8.0
+MIN_STEP = 1.0 / 2048.0
+MAX_ITER = 60
+
+
+@dataclass(frozen=True, kw_only=True)
+class Start:
+    """A start point (parameter name → value, wc_rad_s in rad/s, pm_deg in deg) and the
+    criterion to optimise from it (a key of ``CRITERIA``)."""
+
+    params: dict[str, float]
+    criterion: str
+
+
+def coordinates(problem: Problem, s: Structure) -> list[tuple[str, float, float, bool]]:
+    """(name, low, high, log) of every refined coordinate."""
+    out = [(k, lo, hi, False) for k, (lo, hi) in s.params.items()]
+    if problem.searched_wc:
+        lo, hi = problem.wc_range_rad_s  # type: ignore[misc]
+        out.append(("wc_rad_s", float(np.log10(lo)), float(np.log10(hi)), True))
+    if problem.searched_pm:
+        lo, hi = problem.pm_range_deg  # type: ignore[misc]
+        out.append(("pm_deg", float(lo), float(hi), False))
+    return out
+
+
+def _to_x(coords, params: dict[str, float]) -> np.ndarray:
+    return np.array(
+        [np.log10(params[k]) if log else params[k] for k, _, _, log in coords], float
+    )
+
+
+def _to_params(coords, x: np.ndarray) -> dict[str, np.ndarray]:
+    return {k: (10.0 ** x[:, i] if log else x[:, i]) for i, (k, _, _, log) in enumerate(coords)}
+
+
+def evaluate_points(
+    problem: Problem, s: Structure, coords, x: np.ndarray, *, time_domain: bool
+) -> dict[str, Any]:
+    """``evaluate_batch`` at coordinate rows ``x`` (n, d)."""
+    p = _to_params(coords, x)
+    n = x.shape[0]
+    wc = p.pop("wc_rad_s") if problem.searched_wc else np.full(n, float(problem.wc_rad_s))  # type: ignore[arg-type]
+    pm = p.pop("pm_deg") if problem.searched_pm else None
+    return evaluate_batch(problem, s, p, wc, pm, time_domain=time_domain)
+
+
+def _scores(res: dict[str, Any], crit: list[str]) -> np.ndarray:
+    """Signed criterion per row (lower is better); +inf where not acceptable."""
+    f = np.array(
+        [CRITERIA[c] * float(res["metrics"][c][i]) for i, c in enumerate(crit)], float
+    )
+    ok = res["feasible"] & np.array([r is None for r in res["fail"]]) & np.isfinite(f)
+    return np.where(ok, f, np.inf)
+
+
+def _directions(d: int) -> np.ndarray:
+    dirs = [v for i in range(d) for v in (np.eye(d)[i], -np.eye(d)[i])]
+    if d <= 3:
+        for i, j in itertools.combinations(range(d), 2):
+            for a, b in ((1, 1), (1, -1), (-1, 1), (-1, -1)):
+                v = np.zeros(d)
+                v[i], v[j] = a, b
+                dirs.append(v)
+    return np.array(dirs, float).reshape(-1, d)
+
+
+def refine(
+    problem: Problem,
+    s: Structure,
+    starts: list[Start],
+    *,
+    step0: float = STEP0,
+    min_step: float = MIN_STEP,
+    max_iter: int = MAX_ITER,
+) -> list[dict[str, float] | None]:
+    """Refined parameters per start (the start itself when nothing better is found),
+    or None for a start that is not feasible. Time-domain metrics are computed only
+    when a study limit needs them (``problem.time_limits``); the caller re-evaluates
+    the result fully."""
+    coords = coordinates(problem, s)
+    d = len(coords)
+    if not starts:
+        return []
+    td = problem.time_limits or any(st.criterion == "iae_load" for st in starts)
+    x = np.array([_to_x(coords, st.params) for st in starts], float).reshape(len(starts), d)
+    crit = [st.criterion for st in starts]
+    f = _scores(evaluate_points(problem, s, coords, x, time_domain=td), crit)
+    if d == 0:
+        return [dict(st.params) if np.isfinite(fi) else None for st, fi in zip(starts, f)]
+    lo = np.array([c[1] for c in coords])
+    hi = np.array([c[2] for c in coords])
+    lo_k = np.minimum(lo[None, :], x)  # a start outside the bounds (a hand design) widens them
+    hi_k = np.maximum(hi[None, :], x)
+    span = np.where(hi_k > lo_k, hi_k - lo_k, 1.0)
+    dirs = _directions(d)
+    step = np.where(np.isfinite(f), step0, 0.0)
+    last = np.zeros_like(x)
+    for _ in range(max_iter):
+        act = np.flatnonzero(step >= min_step)
+        if act.size == 0:
+            break
+        cand = x[act, None, :] + step[act, None, None] * span[act, None, :] * dirs[None]
+        cand = np.concatenate([cand, (x[act] + 2.0 * last[act])[:, None, :]], axis=1)
+        cand = np.clip(cand, lo_k[act, None, :], hi_k[act, None, :])
+        m = cand.shape[1]
+        flat = cand.reshape(-1, d)
+        res = evaluate_points(problem, s, coords, flat, time_domain=td)
+        fc = _scores(res, [crit[k] for k in act for _ in range(m)]).reshape(act.size, m)
+        best = np.argmin(fc, axis=1)
+        fb = fc[np.arange(act.size), best]
+        better = fb < f[act] - 1e-10 * np.maximum(1.0, np.abs(f[act]))
+        for j, k in enumerate(act):
+            if better[j]:
+                new = cand[j, best[j]]
+                last[k] = new - x[k]  # a pattern move doubles the last step
+                x[k], f[k] = new, fb[j]
+            else:
+                last[k] = 0.0
+                step[k] *= 0.5
+    out: list[dict[str, float] | None] = []
+    for k in range(len(starts)):
+        if not np.isfinite(f[k]):
+            out.append(None)
+            continue
+        p = _to_params(coords, x[k : k + 1])
+        out.append({name: float(v[0]) for name, v in p.items()})
+    return out
