@@ -10,7 +10,9 @@ most three parameters), plus a pattern move along the last successful step (Hook
 Jeeves, "Direct search solution of numerical and statistical problems", J. ACM 8(2),
 1961); the step halves when no direction improves (compass search: Kolda, Lewis &
 Torczon, "Optimization by direct search", SIAM Review 45(3), 2003, §3). Every start of
-one structure is evaluated in one batch per iteration. Deterministic: the same starts
+one structure is evaluated in one batch per iteration; each iteration also polls a
+turning orthonormal basis so that a design pressed against a curved limit can slide
+along it (the step doubles after a success, halves after a failure). Deterministic: the same starts
 give the same result, so workers sharing an exploration rank the same designs.
 """
 
@@ -38,7 +40,7 @@ CRITERIA = {
 #: Initial and final step, as fractions of each parameter's range.
 STEP0 = 1.0 / 8.0
 MIN_STEP = 1.0 / 2048.0
-MAX_ITER = 60
+MAX_ITER = 80
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -92,6 +94,36 @@ def _scores(res: dict[str, Any], crit: list[str]) -> np.ndarray:
     return np.where(ok, f, np.inf)
 
 
+def _halton(k: int, d: int) -> np.ndarray:
+    """Point k ≥ 1 of the d-dimensional Halton sequence (radical inverses in the first
+    d primes)."""
+    primes = [2, 3, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37, 41, 43, 47, 53][:d]
+    out = np.zeros(d)
+    for j, b in enumerate(primes):
+        f, n, x = 1.0, k, 0.0
+        while n > 0:
+            f /= b
+            x += f * (n % b)
+            n //= b
+        out[j] = x
+    return out
+
+
+def _rotated(k: int, d: int) -> np.ndarray:
+    """±columns of the Householder matrix I − 2vvᵀ/vᵀv of the k-th Halton direction:
+    a deterministic orthonormal basis that turns from one iteration to the next, so
+    the polled directions become dense (OrthoMADS: Abramson, Audet, Dennis & Le
+    Digabel, SIAM J. Optim. 20(2), 2009)."""
+    if d < 2:
+        return np.zeros((0, d))
+    v = 2.0 * _halton(k, d) - 1.0
+    nv = float(v @ v)
+    if nv == 0.0:
+        return np.zeros((0, d))
+    h = np.eye(d) - 2.0 * np.outer(v, v) / nv
+    return np.concatenate([h, -h], axis=0)
+
+
 def _directions(d: int) -> np.ndarray:
     dirs = [v for i in range(d) for v in (np.eye(d)[i], -np.eye(d)[i])]
     if d <= 3:
@@ -131,13 +163,14 @@ def refine(
     lo_k = np.minimum(lo[None, :], x)  # a start outside the bounds (a hand design) widens them
     hi_k = np.maximum(hi[None, :], x)
     span = np.where(hi_k > lo_k, hi_k - lo_k, 1.0)
-    dirs = _directions(d)
+    fixed = _directions(d)
     step = np.where(np.isfinite(f), step0, 0.0)
     last = np.zeros_like(x)
-    for _ in range(max_iter):
+    for it in range(max_iter):
         act = np.flatnonzero(step >= min_step)
         if act.size == 0:
             break
+        dirs = np.concatenate([fixed, _rotated(it + 1, d)], axis=0)
         cand = x[act, None, :] + step[act, None, None] * span[act, None, :] * dirs[None]
         cand = np.concatenate([cand, (x[act] + 2.0 * last[act])[:, None, :]], axis=1)
         cand = np.clip(cand, lo_k[act, None, :], hi_k[act, None, :])
@@ -153,6 +186,7 @@ def refine(
                 new = cand[j, best[j]]
                 last[k] = new - x[k]  # a pattern move doubles the last step
                 x[k], f[k] = new, fb[j]
+                step[k] = min(2.0 * step[k], step0)  # success: coarser mesh (MADS)
             else:
                 last[k] = 0.0
                 step[k] *= 0.5

@@ -71,9 +71,10 @@ def test_pi_matches_simc_on_fopdt(tmp_path: Path) -> None:
     1.5905 in references.md §3).
 
     (a) At SIMC's crossover and PM, the eliminated PI is SIMC's PI (gain and zero).
-    (b) With the crossover searched in [0.2, 1] and the same Ms limit 1.6, the best PI
-    found reaches SIMC's integral gain within 2 % and its load IAE within 2 % (the
-    Ms-limited optimum lies in a narrow band just above ωc = 0.5; 48 trials)."""
+    (b) The published setting: crossover searched in [0.2, 1], no phase-margin target
+    (so the margin is searched too) and the same Ms limit 1.6. SIMC's PI is a feasible
+    point of that problem, so the best PI found must match or beat it: its load IAE
+    is no higher than SIMC's."""
     fixed = {
         "name": "FOPDT",
         "plant": {"gain": 1.0, "poles": [-1.0], "delay": 1.0},
@@ -86,10 +87,7 @@ def test_pi_matches_simc_on_fopdt(tmp_path: Path) -> None:
     assert pi["meets_targets"]
     assert pi["compensator"]["gain"] == pytest.approx(0.5, rel=1e-3)
     assert pi["compensator"]["zeros"][0] == pytest.approx(-1.0, rel=1e-3)
-    data = {
-        **fixed,
-        "targets": {"crossover": [0.2, 1.0], "phase_margin": 61.3464, "integrators": 1},
-    }
+    data = {**fixed, "targets": {"crossover": [0.2, 1.0], "integrators": 1}}
     study = parse_study(data)
     res = explore(study, tmp_path / "b", trials=48, seed=2, batch=16, progress=False)
     pis = [d for d in res.designs if d["structure"] == "PI" and d["meets_targets"]]
@@ -98,8 +96,9 @@ def test_pi_matches_simc_on_fopdt(tmp_path: Path) -> None:
     simc = design_metrics(study.plant, Rational(gain=0.5, zeros=(-1.0,), poles=(0.0,)))
     assert simc["integral_gain"] == pytest.approx(0.5)
     assert simc["sensitivity_peak"] == pytest.approx(1.5905, abs=2e-3)
-    assert max(d["metrics"]["integral_gain"] for d in pis) >= 0.5 * 0.98
-    assert min(d["metrics"]["iae_load"] for d in pis) <= simc["iae_load"] * 1.02
+    best = min(pis, key=lambda d: d["metrics"]["iae_load"])
+    assert best["metrics"]["iae_load"] <= simc["iae_load"]
+    assert best["metrics"]["sensitivity_peak"] <= 1.6
 
 
 def test_cli_json_and_bad_input(tmp_path: Path) -> None:
