@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from explorer.caution import CAUTION
-from explorer.errors import LoopscoutError
+from explorer.errors import DesignError, LoopscoutError
 from explorer.evaluate import METRIC_UNITS
 from explorer.loop import Rational
 from explorer.study import Study
@@ -173,7 +173,10 @@ def step_frame(
     t_end = 1.5 * max(ts) if ts else None
     parts = []
     for d in stable:
-        r = simulate_steps(study.plant, _comp(d), t_end_s=t_end)
+        try:
+            r = simulate_steps(study.plant, _comp(d), t_end_s=t_end)
+        except DesignError:  # a response the simulator cannot resolve is left out
+            continue
         idx = np.unique(np.linspace(0, r.t_s.size - 1, min(n_points, r.t_s.size)).astype(int))
         parts.append(
             pd.DataFrame(

@@ -52,6 +52,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from explorer.errors import DesignError
+from explorer.farroots import ModelGroup, fold_far_roots
 from explorer.loop import LoopBatch, Rational
 
 __all__ = [
@@ -79,6 +80,13 @@ _HW_DELAY = 0.2
 _MAX_INTERVALS = 2**17  # per design: the horizon cap is _MAX_INTERVALS · h
 _CHUNK_FLOATS = 2**22  # working-set budget per chunk of designs (floats)
 _MIN_INTERVALS = 64
+# Samples per delay: above _SUB_FOLD, roots beyond ω_far = _HW_DELAY·_SUB_FOLD/τ are
+# folded into the delay (explorer.farroots); a row still needing more than _MAX_SUB
+# (the delay-line map holds ~12·N² floats per design) is not simulated (None).
+_SUB_FOLD = 512
+_MAX_SUB = 1024
+# A folded model is trusted while its highest gain crossover stays below ω_far/10.
+_FOLD_SEPARATION = 10.0
 
 
 # ======================================================================================
@@ -1065,6 +1073,7 @@ class _Plan:
     rows: _Rows
     unstable: np.ndarray  # rows known unstable (not simulated)
     uniform: bool  # a fixed step was asked for (no step growth without delay)
+    w_hi: np.ndarray  # highest gain crossover per row, rad/s (NaN: none)
 
 
 def _prepare(
@@ -1081,6 +1090,11 @@ def _prepare(
         raise DesignError(f"plant delay must be a finite number ≥ 0 s, got {plant.delay_s}")
     if dt_s is not None and not (math.isfinite(dt_s) and dt_s > 0):
         raise DesignError(f"dt_s must be a positive number, got {dt_s}")
+    if dt_s is not None and plant.delay_s > 0 and plant.delay_s / dt_s > _MAX_SUB * (1 + 1e-12):
+        raise DesignError(
+            f"dt_s = {dt_s:g} s is too fine for the {plant.delay_s:g} s delay: at most "
+            f"{_MAX_SUB} steps per delay (dt_s ≥ {plant.delay_s / _MAX_SUB:.3g} s)"
+        )
     bsz = comp_gain.shape[0]
     if comp_zeros.shape[1] > comp_poles.shape[1]:
         raise DesignError(
@@ -1150,7 +1164,7 @@ def _prepare(
         h_row = np.full(bsz, float(dt_s))
     unstable = unstable | invalid | ~np.isfinite(yf)
     rows = _Rows(yf, uss, lss, iae_ok, np.full(bsz, stable is None), lam)
-    return _Plan(P, C, tau, h_row, t0, rows, unstable, dt_s is not None)
+    return _Plan(P, C, tau, h_row, t0, rows, unstable, dt_s is not None, whi)
 
 
 def _run_chunk(plan: _Plan, idx: np.ndarray, band: float) -> dict[str, np.ndarray]:
@@ -1188,19 +1202,55 @@ def _chunk_size(d: int, n_sub: int) -> int:
     return int(max(1, min(256, _CHUNK_FLOATS // per_row)))
 
 
-def _simulate_batch(
+def _omega_far(tau_s: float) -> float:
+    """Fold threshold (rad/s) for a delay τ: roots above it would need > _SUB_FOLD
+    samples per delay."""
+    return _HW_DELAY * _SUB_FOLD / tau_s
+
+
+def _sub_per_delay(plan: _Plan, h: float) -> int:
+    """Samples per delay the simulation of a row with preferred step h would use."""
+    n = max(1, math.ceil(plan.tau / h * (1 - 1e-12)))
+    return n if plan.uniform else 2 ** math.ceil(math.log2(n))
+
+
+def _resolvable(plan: _Plan, folded: bool) -> np.ndarray:
+    """Rows the delayed-loop simulation can resolve within _MAX_SUB samples per delay
+    (and, for a folded model, whose crossovers stay well below the fold threshold)."""
+    if plan.tau == 0.0:
+        return np.ones(plan.h_row.shape, dtype=bool)
+    ok = np.array([_sub_per_delay(plan, float(h)) <= _MAX_SUB for h in plan.h_row])
+    if folded:
+        wf = _omega_far(plan.tau)
+        ok &= ~(plan.w_hi >= wf / _FOLD_SEPARATION)
+    return ok
+
+
+def _model_groups(
     plant: Rational,
     comp_gain: np.ndarray,
     comp_zeros: np.ndarray,
     comp_poles: np.ndarray,
-    stable: np.ndarray | None,
-    band: float,
     dt_s: float | None,
+) -> list[ModelGroup]:
+    """One group (the batch as given) unless far roots need folding (explorer.farroots)."""
+    if plant.delay_s > 0 and dt_s is None and math.isfinite(plant.delay_s):
+        return fold_far_roots(plant, comp_gain, comp_zeros, comp_poles, _omega_far(plant.delay_s))
+    rows = np.arange(comp_gain.shape[0])
+    return [ModelGroup(rows, plant, comp_gain, comp_zeros, comp_poles, False)]
+
+
+def _simulate_group(
+    grp: ModelGroup, stable: np.ndarray | None, band: float, dt_s: float | None
 ) -> dict[str, np.ndarray]:
-    plan = _prepare(plant, comp_gain, comp_zeros, comp_poles, stable, dt_s)
-    bsz = comp_gain.shape[0]
+    plan = _prepare(grp.plant, grp.gain, grp.zeros, grp.poles, stable, dt_s)
+    bsz = grp.gain.shape[0]
     res = {k: np.full(bsz, np.nan) for k in METRIC_KEYS}
-    todo = np.nonzero(~plan.unstable)[0]
+    resolvable = _resolvable(plan, grp.folded)
+    # an unresolvable row keeps only its final value (known from the s → 0 limits)
+    lost = ~plan.unstable & ~resolvable
+    res["final_value"][lost] = plan.rows.yf[lost]
+    todo = np.nonzero(~plan.unstable & resolvable)[0]
     # similar steps together, so that one fast design does not slow a whole chunk
     todo = todo[np.argsort(plan.h_row[todo], kind="stable")]
     pos = 0
@@ -1213,6 +1263,25 @@ def _simulate_batch(
         part = _run_chunk(plan, idx, band)
         for k in METRIC_KEYS:
             res[k][idx] = part[k]
+    return res
+
+
+def _simulate_batch(
+    plant: Rational,
+    comp_gain: np.ndarray,
+    comp_zeros: np.ndarray,
+    comp_poles: np.ndarray,
+    stable: np.ndarray | None,
+    band: float,
+    dt_s: float | None,
+) -> dict[str, np.ndarray]:
+    bsz = comp_gain.shape[0]
+    res = {k: np.full(bsz, np.nan) for k in METRIC_KEYS}
+    for grp in _model_groups(plant, comp_gain, comp_zeros, comp_poles, dt_s):
+        st = None if stable is None else stable[grp.rows]
+        part = _simulate_group(grp, st, band, dt_s)
+        for k in METRIC_KEYS:
+            res[k][grp.rows] = part[k]
     return res
 
 
@@ -1320,7 +1389,14 @@ def simulate_steps(
     if t_end_s is not None and not (math.isfinite(t_end_s) and t_end_s > 0):
         raise DesignError(f"t_end_s must be a positive number, got {t_end_s}")
     g, zc, pc = _comp_arrays(comp)
-    plan = _prepare(plant, g, zc, pc, np.array([True]), dt_s)
+    (grp,) = _model_groups(plant, g, zc, pc, dt_s)
+    plan = _prepare(grp.plant, grp.gain, grp.zeros, grp.poles, np.array([True]), dt_s)
+    if not _resolvable(plan, grp.folded)[0]:
+        raise DesignError(
+            "the step response cannot be resolved: the loop has a root or crossover "
+            f"above {_omega_far(plant.delay_s):.3g} rad/s that cannot be folded into the "
+            f"{plant.delay_s:g} s delay (it would need more than {_MAX_SUB} steps per delay)"
+        )
     sim = _Sim(plan, np.array([0]))
     if t_end_s is None:
         t_end = max(float(plan.t0_row[0]), _MIN_INTERVALS * sim.h)
