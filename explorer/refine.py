@@ -85,6 +85,37 @@ def evaluate_points(
     return evaluate_batch(problem, s, p, wc, pm, time_domain=time_domain)
 
 
+def _evaluate_lazily(
+    problem: Problem,
+    s: Structure,
+    coords,
+    x: np.ndarray,
+    crit: list[str],
+    f_now: np.ndarray,
+    td: bool,
+) -> dict[str, Any]:
+    """``evaluate_points`` with the step responses only where they can matter: a row
+    minimising ``iae_load`` needs them for its score; under a time-domain limit, a row
+    needs them only when its frequency-domain score beats ``f_now`` (the others cannot
+    be accepted anyway). The accepted points are the same as with full evaluation."""
+    res = evaluate_points(problem, s, coords, x, time_domain=False)
+    if not td:
+        return res
+    f_freq = _scores(res, [c if c != "iae_load" else "sensitivity_peak" for c in crit])
+    feasible_freq = np.isfinite(f_freq)
+    needs_iae = np.array([c == "iae_load" for c in crit]) & feasible_freq
+    need = needs_iae | (bool(problem.time_limits) & (_scores(res, crit) < f_now))
+    idx = np.flatnonzero(need)
+    if idx.size:
+        full = evaluate_points(problem, s, coords, x[idx], time_domain=True)
+        res["feasible"][idx] = full["feasible"]
+        for j, i in enumerate(idx):
+            res["fail"][i] = full["fail"][j]
+        for k, v in full["metrics"].items():
+            res["metrics"][k][idx] = v
+    return res
+
+
 def _scores(res: dict[str, Any], crit: list[str]) -> np.ndarray:
     """Signed criterion per row (lower is better); +inf where not acceptable."""
     f = np.array(
@@ -176,8 +207,9 @@ def refine(
         cand = np.clip(cand, lo_k[act, None, :], hi_k[act, None, :])
         m = cand.shape[1]
         flat = cand.reshape(-1, d)
-        res = evaluate_points(problem, s, coords, flat, time_domain=td)
-        fc = _scores(res, [crit[k] for k in act for _ in range(m)]).reshape(act.size, m)
+        rows_crit = [crit[k] for k in act for _ in range(m)]
+        res = _evaluate_lazily(problem, s, coords, flat, rows_crit, np.repeat(f[act], m), td)
+        fc = _scores(res, rows_crit).reshape(act.size, m)
         best = np.argmin(fc, axis=1)
         fb = fc[np.arange(act.size), best]
         better = fb < f[act] - 1e-10 * np.maximum(1.0, np.abs(f[act]))
