@@ -78,7 +78,9 @@ def plain_metrics(comp: Rational, plant: Rational) -> dict[str, float]:
     s = 1 / np.abs(1 + h)
     k = int(np.argmax(s))
     r = optimize.minimize_scalar(
-        lambda x: -1 / abs(1 + f(x)), bounds=(w[max(k - 1, 0)], w[min(k + 1, 999)]), method="bounded"
+        lambda x: -1 / abs(1 + f(x)),
+        bounds=(w[max(k - 1, 0)], w[min(k + 1, 999)]),
+        method="bounded",
     )
     out["sensitivity_peak"] = -r.fun
     t = np.abs(h) * s
@@ -118,7 +120,10 @@ def main() -> None:
     )
     rate_b = n / t_batch
     rate_p = n_plain / t_plain
-    print(f"designs: {n} batch, {n_plain} plain; stable fraction {np.mean(res['closed_loop_stable']):.2f}")
+    print(
+        f"designs: {n} batch, {n_plain} plain; "
+        f"stable fraction {np.mean(res['closed_loop_stable']):.2f}"
+    )
     print(f"batch : {rate_b:10.0f} designs/s ({1e6 / rate_b:.1f} us/design)")
     print(f"plain : {rate_p:10.0f} designs/s ({1e6 / rate_p:.1f} us/design)")
     print(f"ratio : {rate_b / rate_p:10.1f} x")

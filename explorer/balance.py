@@ -837,7 +837,7 @@ def check_loop(loop: Rational) -> LoopCheck:
     roots = np.concatenate([zeros, poles])
     tau = loop.delay_s
 
-    def logmag(w: np.ndarray) -> np.ndarray:
+    def logmag(w: float | np.ndarray) -> np.ndarray:
         w = np.atleast_1d(np.asarray(w, dtype=float))
         with np.errstate(divide="ignore"):
             return b.log_mag_at(np.zeros(w.size, dtype=np.intp), w)[0]
@@ -867,8 +867,8 @@ def check_loop(loop: Rational) -> LoopCheck:
     lo, hi = 1e-4 * min(scales), 1e4 * max(scales)
     m0 = loop.n_integrators
     for _ in range(40):
-        v = float(logmag(lo)[0])
-        if (m0 > 0 and v <= 0) or (m0 < 0 and v >= 0):
+        v_lo = float(logmag(lo)[0])
+        if (m0 > 0 and v_lo <= 0) or (m0 < 0 and v_lo >= 0):
             lo /= 1e3
         else:
             break
@@ -911,9 +911,9 @@ def check_loop(loop: Rational) -> LoopCheck:
 
     sgn = np.sign(v)
     xs: list[float] = [float(w[i]) for i in np.flatnonzero(sgn == 0)]
-    for i in np.flatnonzero(sgn[:-1] * sgn[1:] < 0):
-        a, c = math.log(w[i]), math.log(w[i + 1])
-        if not (np.isfinite(v[i]) and np.isfinite(v[i + 1])):
+    for j in np.flatnonzero(sgn[:-1] * sgn[1:] < 0):
+        a, c = math.log(w[j]), math.log(w[j + 1])
+        if not (np.isfinite(v[j]) and np.isfinite(v[j + 1])):
             xs.append(float(math.exp(0.5 * (a + c))))
             continue
         x = brentq(lambda t: float(logmag(math.exp(t))[0]), a, c, xtol=1e-15, rtol=1e-15)
@@ -1064,8 +1064,8 @@ def trim_gain_for_overshoot(plant: Rational, compensator: Rational, overshoot_pc
     got = os_of(f)
     steps.append(
         f"gain factor {_f(f)} (bracket [{_f(a)}, {_f(b_)}], brentq): overshoot {_f(got)} %, "
-        + (f"crossover {_f(wc)} rad/s, phase margin {_deg(pm)}" if wc is not None
-           else "no gain crossover")
+        + (f"crossover {_f(wc)} rad/s, phase margin {_deg(pm)}"
+           if wc is not None and pm is not None else "no gain crossover")
     )
     return TrimResult(compensator=comp, reason=None, gain_factor=f, overshoot_pct=got,
                       crossover_rad_s=wc, phase_margin_deg=pm, steps=tuple(steps))

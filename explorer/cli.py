@@ -61,7 +61,9 @@ def build_parser() -> argparse.ArgumentParser:
     )
     check.add_argument("study", metavar="STUDY", help="study file (TOML), see docs/study-file.md")
     check.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    check.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    check.add_argument(
+        "--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS
+    )
     check.set_defaults(run=_cmd_check)
     # commands that live in their own modules register themselves here; each module
     # exposes ``register(sub, caution)`` adding a subparser whose ``run`` default
@@ -139,11 +141,21 @@ def _print_study(study: Any) -> None:
     t = study.targets
     print(f"study: {study.name}  ({study.source})")
     p = study.plant
-    print(f"plant: {_factored(p.gain, p.zeros, p.poles)}" + (f" * exp(-{p.delay_s:g} s)" if p.delay_s else ""))
+    print(
+        f"plant: {_factored(p.gain, p.zeros, p.poles)}"
+        + (f" * exp(-{p.delay_s:g} s)" if p.delay_s else "")
+    )
     wc = t.crossover_rad_s
-    wc_s = "free" if wc is None else (f"[{wc[0]:.4g}, {wc[1]:.4g}]" if isinstance(wc, tuple) else f"{wc:.4g}")
+    wc_s = (
+        "free"
+        if wc is None
+        else (f"[{wc[0]:.4g}, {wc[1]:.4g}]" if isinstance(wc, tuple) else f"{wc:.4g}")
+    )
     pm_s = "none" if t.phase_margin_deg is None else f"{t.phase_margin_deg:.2f} deg"
-    print(f"targets: crossover {wc_s} rad/s, phase margin {pm_s}, loop integrators >= {t.integrators}")
+    print(
+        f"targets: crossover {wc_s} rad/s, phase margin {pm_s}, "
+        f"loop integrators >= {t.integrators}"
+    )
     for line in t.derived_from:
         print(f"  converted: {line}")
     if study.limits:
@@ -212,7 +224,12 @@ def _design_table(designs: list[dict[str, Any]]) -> str:
     widths = [max(len(r[i]) for r in table) for i in range(len(head))]
     lines = []
     for j, r in enumerate(table):
-        lines.append("  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in enumerate(zip(r, widths, strict=True))))
+        lines.append(
+            "  ".join(
+                c.ljust(w) if i == 0 else c.rjust(w)
+                for i, (c, w) in enumerate(zip(r, widths, strict=True))
+            )
+        )
         if j == 0:
             lines.append("  ".join("-" * w for w in widths))
     return "\n".join(lines)

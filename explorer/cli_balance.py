@@ -26,7 +26,8 @@ def register(sub: Any, caution: str) -> None:
         ),
         epilog=(
             "examples:\n  loopscout balance studies/kiln_damper.toml\n"
-            "  loopscout balance studies/conveyor_speed.toml --trim-overshoot 10 --json\n\n" + caution
+            "  loopscout balance studies/conveyor_speed.toml --trim-overshoot 10 --json\n\n"
+            + caution
         ),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
@@ -37,9 +38,14 @@ def register(sub: Any, caution: str) -> None:
         type=float,
         metavar="PCT",
         default=None,
-        help="also back the gain off until the step overshoot is PCT %% (reported beside the untrimmed design)",
+        help=(
+            "also back the gain off until the step overshoot is PCT %% "
+            "(reported beside the untrimmed design)"
+        ),
     )
-    p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    p.add_argument(
+        "--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS
+    )
     p.set_defaults(run=_run, caution=caution)
 
 
@@ -69,24 +75,49 @@ def _run(args: argparse.Namespace) -> int:
             continue
         comp = hd.compensator
         metrics = design_metrics(study.plant, comp)
-        ok, why = meets_targets(metrics, t, study.limits, study.plant.n_integrators + comp.n_integrators)
-        designs.append(design_record(name=hd.name, origin=hd.origin, structure=hd.structure, comp=comp,
-                                     metrics=metrics, meets=ok, reasons=why,
-                                     extra={"steps": list(hd.steps)}))
+        ok, why = meets_targets(
+            metrics, t, study.limits, study.plant.n_integrators + comp.n_integrators
+        )
+        designs.append(
+            design_record(
+                name=hd.name,
+                origin=hd.origin,
+                structure=hd.structure,
+                comp=comp,
+                metrics=metrics,
+                meets=ok,
+                reasons=why,
+                extra={"steps": list(hd.steps)},
+            )
+        )
         if args.trim_overshoot is not None:
             tr = trim_gain_for_overshoot(study.plant, comp, args.trim_overshoot)
             if tr.compensator is None:
-                refused.append({"name": f"{hd.name} trimmed", "origin": hd.origin, "structure": hd.structure,
-                                "reason": tr.reason, "steps": list(tr.steps)})
+                refused.append(
+                    {
+                        "name": f"{hd.name} trimmed",
+                        "origin": hd.origin,
+                        "structure": hd.structure,
+                        "reason": tr.reason,
+                        "steps": list(tr.steps),
+                    }
+                )
             else:
                 m2 = design_metrics(study.plant, tr.compensator)
                 ok2, why2 = meets_targets(m2, t, study.limits,
                                           study.plant.n_integrators + tr.compensator.n_integrators)
-                designs.append(design_record(
-                    name=f"{hd.name} trimmed", origin=hd.origin, structure=hd.structure + ", gain trimmed",
-                    comp=tr.compensator, metrics=m2, meets=ok2, reasons=why2,
-                    extra={"steps": list(tr.steps), "gain_factor": tr.gain_factor},
-                ))
+                designs.append(
+                    design_record(
+                        name=f"{hd.name} trimmed",
+                        origin=hd.origin,
+                        structure=hd.structure + ", gain trimmed",
+                        comp=tr.compensator,
+                        metrics=m2,
+                        meets=ok2,
+                        reasons=why2,
+                        extra={"steps": list(tr.steps), "gain_factor": tr.gain_factor},
+                    )
+                )
     if args.json:
         _print_json({"designs": designs, "refused": refused, "study": _study_header(study),
                      "caution": args.caution})

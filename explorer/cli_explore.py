@@ -37,7 +37,8 @@ def register(sub: Any, caution: str) -> None:
             "designs and written to DIR. Rerunning the same command resumes."
         ),
         epilog=(
-            "examples:\n  loopscout explore studies/conveyor_speed.toml --out runs/conveyor --seed 7\n"
+            "examples:\n"
+            "  loopscout explore studies/conveyor_speed.toml --out runs/conveyor --seed 7\n"
             "  loopscout explore studies/kiln_damper.toml --out runs/kiln --trials 200 --json\n"
             "  loopscout explore studies/kiln_damper.toml --out runs/kiln "
             "--storage postgresql://user@dbhost/loops\n\n" + caution
@@ -100,7 +101,10 @@ def ranked_table(designs: list[dict[str, Any]]) -> str:
             ]
         )
     widths = [max(len(str(r[i])) for r in [head, *rows]) for i in range(len(head))]
-    lines = ["  ".join(str(c).ljust(w) for c, w in zip(r, widths)).rstrip() for r in [head, *rows]]
+    lines = [
+        "  ".join(str(c).ljust(w) for c, w in zip(r, widths, strict=True)).rstrip()
+        for r in [head, *rows]
+    ]
     lines.insert(1, "  ".join("-" * w for w in widths))
     return "\n".join(lines)
 

@@ -121,12 +121,18 @@ def meets_targets(
     elif isinstance(wc, tuple):
         c = metrics.get("crossover_rad_s")
         if c is None or not (wc[0] <= c <= wc[1]):
-            why.append(f"crossover {c if c is None else f'{c:.4g}'} outside [{wc[0]:.4g}, {wc[1]:.4g}] rad/s")
+            why.append(
+                f"crossover {c if c is None else f'{c:.4g}'} "
+                f"outside [{wc[0]:.4g}, {wc[1]:.4g}] rad/s"
+            )
     pm_t = targets.phase_margin_deg
     if pm_t is not None:
         pm = metrics.get("phase_margin_deg")
         if pm is None or pm < pm_t - PHASE_MARGIN_TOL_DEG:
-            why.append(f"phase margin {'none' if pm is None else f'{pm:.2f}'} deg < target {pm_t:.2f} deg")
+            why.append(
+                f"phase margin {'none' if pm is None else f'{pm:.2f}'} deg "
+                f"< target {pm_t:.2f} deg"
+            )
     for key, bound in limits.items():
         value = metrics.get(key)
         kind = LIMIT_KEYS[key]
@@ -204,8 +210,17 @@ def given_designs(study: Study) -> list[dict[str, Any]]:
         metrics = design_metrics(study.plant, comp)
         ok, why = meets_targets(metrics, study.targets, study.limits,
                                 study.plant.n_integrators + comp.n_integrators)
-        out.append(design_record(name=entry.name, origin="given", structure=describe_structure(comp),
-                                 comp=comp, metrics=metrics, meets=ok, reasons=why))
+        out.append(
+            design_record(
+                name=entry.name,
+                origin="given",
+                structure=describe_structure(comp),
+                comp=comp,
+                metrics=metrics,
+                meets=ok,
+                reasons=why,
+            )
+        )
     return out
 
 

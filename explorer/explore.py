@@ -112,7 +112,7 @@ def _pick(records: list[Any], searched_wc: bool) -> list[tuple[Any, str]]:
         float,
     )
     front = non_dominated_fronts(x)
-    pareto = [r for r, f in zip(feas, front) if f == 0]
+    pareto = [r for r, f in zip(feas, front, strict=True) if f == 0]
     chosen = [
         (min(feas, key=lambda r: (r.metrics["sensitivity_peak"], r.number)), "sensitivity_peak")
     ]
@@ -227,7 +227,10 @@ def _why_not(s: Structure, records: list[Any], pm_deg: float) -> str:
     bal = [r for r in records if r.constraints.get("phase_balance_deg", 0.0) > 0]
     if len(bal) == len(records):
         best = min(r.constraints["phase_balance_deg"] for r in bal)
-        return f"cannot reach the phase margin {pm_deg:.1f} deg at the crossover: best shortfall {best:.1f} deg"
+        return (
+            f"cannot reach the phase margin {pm_deg:.1f} deg at the crossover: "
+            f"best shortfall {best:.1f} deg"
+        )
     counts: dict[str, int] = {}
     for r in records:
         for k, v in r.constraints.items():
@@ -388,8 +391,8 @@ def explore(
             why[s.label] = _why_not(s, recs, problem.pm_deg)
     designs += _hand_records(study, hand)
     frame = rank_designs(designs)
-    pareto = dict(zip(frame["name"], frame["pareto"])) if len(frame) else {}
-    doms = dict(zip(frame["name"], frame["dominates_hand"])) if len(frame) else {}
+    pareto = dict(zip(frame["name"], frame["pareto"], strict=True)) if len(frame) else {}
+    doms = dict(zip(frame["name"], frame["dominates_hand"], strict=True)) if len(frame) else {}
     for d in designs:
         d["pareto"] = bool(pareto.get(d["name"], False))
         if d["origin"] == "optimized":
@@ -422,8 +425,8 @@ def _summary(
             (d for d in ok if d["order"] == low), key=lambda d: d["metrics"]["sensitivity_peak"]
         )
         lines.append(
-            f"answer: order {low} suffices — {best['structure']} ({best['name']}) meets the targets "
-            f"and limits with Ms {best['metrics']['sensitivity_peak']:.3g}"
+            f"answer: order {low} suffices — {best['structure']} ({best['name']}) "
+            f"meets the targets and limits with Ms {best['metrics']['sensitivity_peak']:.3g}"
         )
     else:
         lines.append(

@@ -324,7 +324,9 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     ``closed_loop_stable`` as bool and ``closed_loop_rhp_poles`` as int.
     """
     if loops.relative_degree < 0:
-        raise DesignError("loop is improper (more zeros than poles): its frequency response grows without bound")
+        raise DesignError(
+            "loop is improper (more zeros than poles): its frequency response grows without bound"
+        )
     n = loops.n
     grid = design_grid(loops)
     m = grid.shape[1]
@@ -349,7 +351,9 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
             v = loops.take(np.array([i])).freqresp(w_pair)[0]
             a0 = np.angle(v[0])
             a1 = np.angle(v[1])
-            axis_arc[i] += 2 * int(_arc_crossings(np.array([a0]), np.array([a1]), np.array([float(mult)]))[0])
+            axis_arc[i] += 2 * int(
+                _arc_crossings(np.array([a0]), np.array([a1]), np.array([float(mult)]))[0]
+            )
             # make sure the two grid points around b are where the arc starts/ends
             if 0 <= below < m - 1:
                 grid[i, below] = min(grid[i, below], w_pair[0])

@@ -97,7 +97,7 @@ def rank_designs(designs: list[dict[str, Any]]) -> pd.DataFrame:
     hand = np.array([r["origin"] in ("hand", "phase-balanced") for r in rows])
     dom = dominates(x, x)
     names = np.array([r["name"] for r in rows], dtype=object)
-    dom_hand = []
+    dom_hand: list[list[str]] = []
     for i in range(len(rows)):
         if rows[i]["origin"] != "optimized" or not meets[i]:
             dom_hand.append([])

@@ -22,7 +22,7 @@ import math
 import warnings
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal, cast
 
 import altair as alt
 import numpy as np
@@ -77,8 +77,8 @@ def _comp(d: dict[str, Any]) -> Rational:
         c = d["compensator"]
         return Rational(
             gain=float(c["gain"]),
-            zeros=[_root(z) for z in c["zeros"]],
-            poles=[_root(p) for p in c["poles"]],
+            zeros=tuple(_root(z) for z in c["zeros"]),
+            poles=tuple(_root(p) for p in c["poles"]),
         )
     except (KeyError, TypeError) as exc:
         raise LoopscoutError(f"design {d.get('name', '?')!r}: bad compensator ({exc})") from None
@@ -296,7 +296,11 @@ def _line(
                 title=x_title,
                 scale=alt.Scale(type="log") if logx else alt.Scale(),
                 # "~g" only on log axes: on a linear time axis it printed "1e+2"
-                axis=alt.Axis(format="~g", labelOverlap="greedy") if logx else alt.Axis(labelOverlap=True),
+                axis=(
+                    alt.Axis(format="~g", labelOverlap="greedy")
+                    if logx
+                    else alt.Axis(labelOverlap=True)
+                ),
             ),
             y=alt.Y(f"{y}:Q", title=y_title, scale=alt.Scale(zero=False)),
             color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
@@ -328,7 +332,9 @@ def bode_charts(fr: pd.DataFrame, study: Study, pick: alt.Parameter) -> alt.VCon
     wc = list(tc) if isinstance(tc, tuple) else ([] if tc is None else [float(tc)])
     mag = _line(fr, "mag_db", "|L| (dB)", pick).add_params(pick) + _rules([0.0], "y", "0 dB")
     # the delay drives the phase without bound; show down to -450 deg (one turn past -90)
-    ph = _line(fr[fr["phase_deg"] >= -450.0], "phase_deg", "phase of L (deg)", pick)
+    ph: alt.Chart | alt.LayerChart | alt.FacetChart = _line(
+        fr[fr["phase_deg"] >= -450.0], "phase_deg", "phase of L (deg)", pick
+    )
     if wc:
         mag = mag + _rules(wc, "x", "target crossover")
         ph = ph + _rules(wc, "x", "target crossover")
@@ -375,7 +381,9 @@ def nichols_chart(fr: pd.DataFrame, ms: float, pick: alt.Parameter) -> alt.Layer
     )
 
 
-def sensitivity_chart(fr: pd.DataFrame, ms: float, pick: alt.Parameter) -> alt.LayerChart:
+def sensitivity_chart(
+    fr: pd.DataFrame, ms: float, pick: alt.Parameter
+) -> alt.LayerChart | alt.FacetChart:
     """|S| and |T| (dB) against log ω; solid |S|, dashed |T|."""
     long = fr.melt(
         id_vars=["name", "omega_rad_s"], value_vars=["S_db", "T_db"], var_name="fn", value_name="db"
@@ -508,7 +516,9 @@ def export_charts(
                 p = out_dir / f"{name}.{fmt}"
                 with warnings.catch_warnings():
                     warnings.filterwarnings("ignore", message="Automatically deduplicated")
-                    _theme(ch).save(p, format=fmt, **({"scale_factor": 2} if fmt == "png" else {}))
+                    opts: dict[str, Any] = {"scale_factor": 2} if fmt == "png" else {}
+                    # fmt is "png" or "svg": checked above
+                    _theme(ch).save(p, format=cast(Literal["png", "svg"], fmt), **opts)
                 paths.append(p)
     return paths
 
@@ -587,7 +597,8 @@ def _table(designs: Sequence[dict[str, Any]]) -> str:
         cells = "".join(f"<td>{_cell(d['metrics'].get(k))}</td>" for k in _TABLE_KEYS)
         rows.append(
             f"<tr class='{cls}'><td>{i}</td><td><b>{html.escape(str(d['name']))}</b>"
-            f"<div class='sub'>{html.escape(str(d.get('origin', '')))} · {html.escape(str(d.get('structure', '')))}"
+            f"<div class='sub'>{html.escape(str(d.get('origin', '')))} · "
+            f"{html.escape(str(d.get('structure', '')))}"
             f"</div></td><td class='tf'>{html.escape(factored(d['compensator']))}</td>"
             f"<td>{'yes' if d.get('meets_targets') else 'no'}"
             f"{'<div class=sub>' + html.escape(why) + '</div>' if why else ''}</td>{cells}</tr>"
@@ -601,8 +612,12 @@ def _table(designs: Sequence[dict[str, Any]]) -> str:
 def _targets_html(study: Study) -> str:
     t = study.targets
     tc = t.crossover_rad_s
+    if isinstance(tc, tuple):
+        tc_txt = f"{tc[0]:g}–{tc[1]:g} rad/s"
+    else:
+        tc_txt = "free" if tc is None else f"{tc:g} rad/s"
     items = [
-        f"crossover: {('%g–%g rad/s' % tc) if isinstance(tc, tuple) else ('free' if tc is None else f'{tc:g} rad/s')}",
+        f"crossover: {tc_txt}",
         f"phase margin: {'—' if t.phase_margin_deg is None else f'{t.phase_margin_deg:g}°'}",
         f"integrators in the loop: {t.integrators}",
     ] + [f"limit {k}: {v:g}" for k, v in study.limits.items()]
@@ -620,13 +635,15 @@ def _targets_html(study: Study) -> str:
 
 
 _CSS = """
-body{margin:0;background:#fbfaf6;color:#24302e;font:15px/1.45 'Source Sans 3','Segoe UI',Helvetica,Arial,sans-serif}
+body{margin:0;background:#fbfaf6;color:#24302e;\
+font:15px/1.45 'Source Sans 3','Segoe UI',Helvetica,Arial,sans-serif}
 header{background:#1b3a38;color:#f3efe2;padding:22px 36px}
 header h1{margin:0;font-weight:600;font-size:26px;letter-spacing:.01em}
 header p{margin:4px 0 0;opacity:.8}
 main{padding:10px 36px 40px;max-width:1500px}
 section{margin:22px 0}
-h2{font-size:17px;font-weight:600;border-bottom:2px solid #d9822b;display:inline-block;padding-bottom:2px}
+h2{font-size:17px;font-weight:600;border-bottom:2px solid #d9822b;\
+display:inline-block;padding-bottom:2px}
 .cards{display:flex;gap:18px;flex-wrap:wrap}
 .card{background:#fff;border:1px solid #e0dccf;border-radius:6px;padding:10px 18px;min-width:260px}
 .big{font-size:22px;font-weight:600;color:#1b6f6a}
@@ -651,7 +668,10 @@ def write_report(study: Study, designs: list[dict[str, Any]], path: Path) -> Pat
         spec = dashboard(study, designs).to_dict()
     from altair.utils._importers import vl_version_for_vl_convert
 
-    bundle = vlc.javascript_bundle(vl_version=vl_version_for_vl_convert())
+    # vl_convert's stub (__init__.pyi) declares `snippet` required, but the compiled
+    # function defaults it to None (the default snippet, which puts vegaEmbed, vegaLite
+    # and vega on window and which the page relies on): the stub is wrong, not the call
+    bundle = vlc.javascript_bundle(vl_version=vl_version_for_vl_convert())  # type: ignore[call-arg]
     low = lowest_order_meeting(designs)
     low_txt = "none" if low is None else f"order {low}"
     n_meet = sum(bool(d.get("meets_targets")) for d in designs)
@@ -664,19 +684,26 @@ def write_report(study: Study, designs: list[dict[str, Any]], path: Path) -> Pat
 <script>window.__errors=[];window.addEventListener('error',function(e){{window.__errors.push(String(e.message))}});</script>
 <script>{bundle_js}</script>
 </head><body>
-<header><h1>{html.escape(study.name)}</h1><p>loopscout design report · {len(designs)} designs, {n_meet} meet the targets</p></header>
+<header><h1>{html.escape(study.name)}</h1>\
+<p>loopscout design report · {len(designs)} designs, {n_meet} meet the targets</p></header>
 <main>
 <section class="cards">
 <div class="card"><h2>Targets</h2>{_targets_html(study)}</div>
-<div class="card"><h2>Lowest order that meets spec</h2><div class="big" id="lowest-order">{low_txt}</div>
+<div class="card"><h2>Lowest order that meets spec</h2>\
+<div class="big" id="lowest-order">{low_txt}</div>
 <p class="sub">smallest compensator order among designs that meet every target and limit</p></div>
 <div class="card"><h2>Assumptions</h2><ul>
 <li>linear time-invariant plant model as given in the study</li>
-<li>the transport delay is exact in the frequency domain and a sampled transport delay in the step responses</li>
-<li>unit steps on the reference (and at the plant input for load IAE), applied at t = 0</li></ul></div>
+<li>the transport delay is exact in the frequency domain and a sampled transport delay \
+in the step responses</li>
+<li>unit steps on the reference (and at the plant input for load IAE), applied at t = 0</li>\
+</ul></div>
 </section>
-<section><h2>Designs, ranked</h2><p class="sub">meeting designs first, then Pareto designs, then by Ms</p>{_table(designs)}</section>
-<section><h2>Charts</h2><p class="sub">Click a design (point or curve) to highlight it everywhere; shift-click adds more; double-click clears. Grey points miss targets; diamonds mark hand designs.</p>
+<section><h2>Designs, ranked</h2>\
+<p class="sub">meeting designs first, then Pareto designs, then by Ms</p>{_table(designs)}</section>
+<section><h2>Charts</h2><p class="sub">Click a design (point or curve) to highlight it everywhere; \
+shift-click adds more; double-click clears. Grey points miss targets; \
+diamonds mark hand designs.</p>
 <div id="dash" class="vega-chart"></div></section>
 <section class="caution" id="caution"><b>{html.escape(CAUTION)}</b></section>
 <pre id="errors"></pre>

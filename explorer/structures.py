@@ -128,6 +128,7 @@ class RootStructure(Structure):
                     continue
                 wn = self.notch[0] * 10.0 ** np.asarray(params["notch_w"], float)
             else:
+                assert wn_of is not None  # only the "notch" entry has none
                 wn = wn_of(np.asarray(params["pair_w"], float))
             zeta = np.clip(np.asarray(params[f"{key}_zeta"], float), 0.0, 1.0)
             r = -zeta * wn + 1j * wn * np.sqrt(1.0 - zeta**2)

@@ -29,7 +29,7 @@ from typing import Any
 
 import numpy as np
 import optuna
-from optuna.distributions import FloatDistribution
+from optuna.distributions import BaseDistribution, FloatDistribution
 from optuna.trial import TrialState
 
 from explorer.errors import LoopscoutError
@@ -250,7 +250,7 @@ def evaluate_batch(
         if fail[i] is None:
             fail[i] = "NaN objective for a stable design: " + ", ".join(
                 nm
-                for nm, v in zip(objective_names(problem.searched_wc), values[i])
+                for nm, v in zip(objective_names(problem.searched_wc), values[i], strict=True)
                 if not np.isfinite(v)
             )
     values = np.where(np.isfinite(values), values, _PENALTY)
@@ -334,8 +334,10 @@ def create_studies(
     return out
 
 
-def _distributions(s: Structure, problem: Problem) -> dict[str, FloatDistribution]:
-    d = {k: FloatDistribution(lo, hi) for k, (lo, hi) in s.params.items()}
+def _distributions(s: Structure, problem: Problem) -> dict[str, BaseDistribution]:
+    d: dict[str, BaseDistribution] = {
+        k: FloatDistribution(lo, hi) for k, (lo, hi) in s.params.items()
+    }
     if problem.searched_wc:
         lo, hi = problem.wc_range_rad_s  # type: ignore[misc]
         d["wc_rad_s"] = FloatDistribution(lo, hi, log=True)
@@ -376,7 +378,7 @@ def _tell(
     st: optuna.Study, trial: optuna.Trial, res: dict[str, Any], i: int, cnames: list[str]
 ) -> None:
     reason = res["fail"][i]
-    for name, v in zip(cnames, res["constraints"][i]):
+    for name, v in zip(cnames, res["constraints"][i], strict=True):
         trial.set_constraint(name, float(v))
     trial.set_user_attr("design", json.dumps(row_design(res, i)))
     if reason is not None:
@@ -455,7 +457,7 @@ def run_structures(
     """Fill every structure's study up to ``trials`` finished trials numbered below
     the budget. Resumes: stale RUNNING trials of dead local workers are re-evaluated."""
     cnames = constraint_names(problem.limits)
-    for si, (s, st) in enumerate(zip(structures, studies)):
+    for si, (s, st) in enumerate(zip(structures, studies, strict=True)):
         dists = _distributions(s, problem)
         # an unmarked RUNNING trial (a worker killed between ask and mark) is not known
         # to be dead until it is UNMARKED_STALE_S old: wait for that rather than skip
@@ -463,10 +465,10 @@ def run_structures(
         _wait_for_unmarked(st, trials, progress)
         # finish trials a killed worker left RUNNING (same parameters, same number)
         stale = _stale_running(st, trials)
-        for t in [
+        for dead in [
             t for t in stale if set(t.params) != set(dists)
         ]:  # killed before sampling finished
-            tr0 = optuna.Trial(st, t._trial_id)
+            tr0 = optuna.Trial(st, dead._trial_id)
             tr0.set_user_attr("fail_reason", "interrupted before its parameters were sampled")
             st.tell(tr0, state=TrialState.FAIL, skip_if_finished=True)
         stale = [t for t in stale if set(t.params) == set(dists)]

@@ -50,7 +50,9 @@ def reference_metrics(loop: Rational, w_lo: float = 1e-4, w_hi: float = 1e4, poi
         pms.append(pm - 360.0 if pm > 180.0 else pm)
     # phase crossovers: Im L = 0 with Re L < 0
     im = h.imag
-    idx = np.flatnonzero((np.sign(im[:-1]) * np.sign(im[1:]) < 0) & (h.real[:-1] < 0) & (h.real[1:] < 0))
+    idx = np.flatnonzero(
+        (np.sign(im[:-1]) * np.sign(im[1:]) < 0) & (h.real[:-1] < 0) & (h.real[1:] < 0)
+    )
     wp = [
         optimize.brentq(lambda x: f(x)[0].imag, w[k], w[k + 1], xtol=1e-15, rtol=1e-15)
         for k in idx

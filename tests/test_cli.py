@@ -17,7 +17,16 @@ from explorer.study import load_study
 
 ROOT = Path(__file__).resolve().parents[1]
 STUDIES = sorted((ROOT / "studies").glob("*.toml"))
-DESIGN_KEYS = {"name", "origin", "structure", "order", "compensator", "meets_targets", "pareto", "metrics"}
+DESIGN_KEYS = {
+    "name",
+    "origin",
+    "structure",
+    "order",
+    "compensator",
+    "meets_targets",
+    "pareto",
+    "metrics",
+}
 
 
 def run(capsys: pytest.CaptureFixture[str], *argv: str) -> tuple[int, str, str]:
@@ -44,14 +53,25 @@ def test_check_json_follows_interface(path: Path, capsys: pytest.CaptureFixture[
         fm = frequency_metrics(study.plant, entry.compensator)
         assert design["metrics"]["phase_margin_deg"] == fm["phase_margin_deg"]
         c = design["compensator"]
-        again = Rational(gain=c["gain"], zeros=[complex(z) for z in c["zeros"]], poles=[complex(p) for p in c["poles"]])
+        again = Rational(
+            gain=c["gain"],
+            zeros=[complex(z) for z in c["zeros"]],
+            poles=[complex(p) for p in c["poles"]],
+        )
         assert again == entry.compensator
 
 
 def test_check_table_shows_units_and_caution(capsys: pytest.CaptureFixture[str]) -> None:
     code, out, _ = run(capsys, "check", str(ROOT / "studies" / "kiln_damper.toml"))
     assert code == 0
-    for text in ("phase margin [deg]", "crossover [rad/s]", "gain margin [dB]", "delay margin [s]", "Ms", "Caution"):
+    for text in (
+        "phase margin [deg]",
+        "crossover [rad/s]",
+        "gain margin [dB]",
+        "delay margin [s]",
+        "Ms",
+        "Caution",
+    ):
         assert text in out
 
 
@@ -68,10 +88,22 @@ def test_integral_gain_sign(capsys: pytest.CaptureFixture[str], tmp_path: Path) 
 
 
 BAD = {
-    "missing_integrators": ("[plant]\ngain=1\npoles=[-1]\n[targets]\ncrossover=1\n", "targets.integrators"),
-    "lone_complex": ('[plant]\ngain=1\npoles=[-1, "-2+1j"]\n[targets]\nintegrators=1\n', "plant.poles"),
-    "negative_delay": ("[plant]\ngain=1\npoles=[-1]\ndelay=-1\n[targets]\nintegrators=1\n", "plant.delay"),
-    "unknown_key": ("[plant]\ngain=1\npoles=[-1]\n[targets]\nintegrators=1\nfoo=2\n", "targets.foo"),
+    "missing_integrators": (
+        "[plant]\ngain=1\npoles=[-1]\n[targets]\ncrossover=1\n",
+        "targets.integrators",
+    ),
+    "lone_complex": (
+        '[plant]\ngain=1\npoles=[-1, "-2+1j"]\n[targets]\nintegrators=1\n',
+        "plant.poles",
+    ),
+    "negative_delay": (
+        "[plant]\ngain=1\npoles=[-1]\ndelay=-1\n[targets]\nintegrators=1\n",
+        "plant.delay",
+    ),
+    "unknown_key": (
+        "[plant]\ngain=1\npoles=[-1]\n[targets]\nintegrators=1\nfoo=2\n",
+        "targets.foo",
+    ),
     "nan": ("[plant]\ngain=nan\npoles=[-1]\n[targets]\nintegrators=1\n", "plant.gain"),
     "improper": ("[plant]\ngain=1\nzeros=[-1,-2]\npoles=[-1]\n[targets]\nintegrators=1\n", "plant"),
     "syntax": ("[plant\ngain=1\n", "TOML"),
@@ -80,7 +112,9 @@ BAD = {
 
 
 @pytest.mark.parametrize("case", sorted(BAD))
-def test_bad_study_one_line_exit_2(case: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_bad_study_one_line_exit_2(
+    case: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     text, needle = BAD[case]
     f = tmp_path / f"{case}.toml"
     f.write_text(text + '[[compensator]]\nname="a"\ngain=1\n' if case != "syntax" else text)
@@ -114,10 +148,16 @@ def test_help_has_an_example(capsys: pytest.CaptureFixture[str]) -> None:
 def test_python_dash_m_and_console_script_agree(tmp_path: Path) -> None:
     """`python -m explorer` behaves like `loopscout` (interface.md names)."""
     study = str(ROOT / "studies" / "dome_drive.toml")
-    res = subprocess.run([sys.executable, "-m", "explorer", "check", study, "--json"], capture_output=True, text=True)
+    res = subprocess.run(
+        [sys.executable, "-m", "explorer", "check", study, "--json"],
+        capture_output=True,
+        text=True,
+    )
     assert res.returncode == 0, res.stderr
     assert json.loads(res.stdout)["designs"]
     bad = tmp_path / "b.toml"
     bad.write_text("[plant]\ngain=1\n")
-    res = subprocess.run([sys.executable, "-m", "explorer", "check", str(bad)], capture_output=True, text=True)
+    res = subprocess.run(
+        [sys.executable, "-m", "explorer", "check", str(bad)], capture_output=True, text=True
+    )
     assert res.returncode == 2 and res.stderr.count("\n") == 1

@@ -29,12 +29,18 @@ def test_balance_json_designs_hit_targets(capsys: pytest.CaptureFixture[str]) ->
     for d in obj["designs"]:
         assert d["origin"] in ("phase-balanced", "hand")
         c = d["compensator"]
-        comp = Rational(gain=c["gain"], zeros=[complex(z) for z in c["zeros"]], poles=[complex(p) for p in c["poles"]])
+        comp = Rational(
+            gain=c["gain"],
+            zeros=[complex(z) for z in c["zeros"]],
+            poles=[complex(p) for p in c["poles"]],
+        )
         m = frequency_metrics(study.plant, comp)
         assert m["crossover_rad_s"] == pytest.approx(study.targets.crossover_rad_s, rel=1e-4)
         assert m["phase_margin_deg"] == pytest.approx(study.targets.phase_margin_deg, abs=0.05)
         assert m["closed_loop_stable"] is True
-        ok, why = meets_targets(d["metrics"], study.targets, {}, study.plant.n_integrators + comp.n_integrators)
+        ok, why = meets_targets(
+            d["metrics"], study.targets, {}, study.plant.n_integrators + comp.n_integrators
+        )
         assert ok, why
     for r in obj["refused"]:
         assert r["reason"]
@@ -56,7 +62,9 @@ def test_balance_needs_numeric_targets(capsys: pytest.CaptureFixture[str]) -> No
     assert err.count("\n") == 1 and "targets.crossover" in err
 
 
-def test_lag_design_reaches_error_constant(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_lag_design_reaches_error_constant(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     """`targets.error_constant` gives the lag hand design: Kv = lim s·L(s) reaches the
     target exactly while ωc and PM hold (Kv from the roots form; PM by the engine)."""
     f = tmp_path / "lag.toml"
@@ -69,7 +77,11 @@ def test_lag_design_reaches_error_constant(tmp_path: Path, capsys: pytest.Captur
     lag = [d for d in obj["designs"] if d["name"] == "lag"]
     assert len(lag) == 1
     c = lag[0]["compensator"]
-    comp = Rational(gain=c["gain"], zeros=[complex(z) for z in c["zeros"]], poles=[complex(p) for p in c["poles"]])
+    comp = Rational(
+        gain=c["gain"],
+        zeros=[complex(z) for z in c["zeros"]],
+        poles=[complex(p) for p in c["poles"]],
+    )
     loop = comp * Rational(gain=2.0, poles=(0.0, -1.0, -2.0))
     assert loop.dc_gain() == pytest.approx(5.0, rel=1e-6)
     assert lag[0]["metrics"]["phase_margin_deg"] == pytest.approx(40.0, abs=0.05)

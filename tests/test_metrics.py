@@ -44,7 +44,9 @@ def test_standard_second_order_loop(zeta: float, wn: float) -> None:
     root = math.sqrt(math.sqrt(1 + 4 * zeta**4) - 2 * zeta**2)
     assert m["crossover_rad_s"] == pytest.approx(wn * root, rel=1e-10)
     assert m["crossovers_rad_s"] == pytest.approx([wn * root], rel=1e-10)
-    assert m["phase_margin_deg"] == pytest.approx(math.degrees(math.atan(2 * zeta / root)), abs=1e-8)
+    assert m["phase_margin_deg"] == pytest.approx(
+        math.degrees(math.atan(2 * zeta / root)), abs=1e-8
+    )
     mr = 1 / (2 * zeta * math.sqrt(1 - zeta**2)) if zeta <= 1 / math.sqrt(2) else 1.0
     assert m["complementary_peak"] == pytest.approx(mr, rel=1e-9)
     assert m["gain_margin_db"] is None and m["phase_crossover_rad_s"] is None
@@ -87,8 +89,12 @@ def test_integrator_plus_delay(k: float, tau: float) -> None:
 def test_integrator_delay_stability_limit_both_sides() -> None:
     """kτ < π/2 is the exact stability limit (same closed form); probe ±1e-6."""
     lim = math.pi / 2
-    assert metrics_of(Rational(gain=lim * (1 - 1e-6), poles=(0.0,), delay_s=1.0))["closed_loop_stable"]
-    assert not metrics_of(Rational(gain=lim * (1 + 1e-6), poles=(0.0,), delay_s=1.0))["closed_loop_stable"]
+    assert metrics_of(Rational(gain=lim * (1 - 1e-6), poles=(0.0,), delay_s=1.0))[
+        "closed_loop_stable"
+    ]
+    assert not metrics_of(Rational(gain=lim * (1 + 1e-6), poles=(0.0,), delay_s=1.0))[
+        "closed_loop_stable"
+    ]
     # far beyond the limit several closed-loop pole pairs are unstable
     m = metrics_of(Rational(gain=9.0, poles=(0.0,), delay_s=1.0))
     assert m["closed_loop_rhp_poles"] == 2 * int((9.0 + math.pi / 2) // (2 * math.pi) + 1) or m[
@@ -174,7 +180,9 @@ def test_resonance_poking_through_gives_three_crossovers() -> None:
     listed ascending; the reported one has the smallest phase margin."""
     zeta, wn = 0.01, 5.0
     a, b = -zeta * wn, wn * math.sqrt(1 - zeta**2)
-    loop = Rational(gain=0.3 * wn**2, zeros=(-0.5,), poles=(0.0, 0.0, complex(a, b), complex(a, -b)))
+    loop = Rational(
+        gain=0.3 * wn**2, zeros=(-0.5,), poles=(0.0, 0.0, complex(a, b), complex(a, -b))
+    )
     m = metrics_of(loop)
     xs = m["crossovers_rad_s"]
     assert len(xs) == 3 and xs == sorted(xs)
@@ -219,7 +227,10 @@ def test_compensator_metrics() -> None:
     cm = compensator_metrics(pi_lead)
     assert cm["hf_gain"] == 3.0
     assert cm["integral_gain"] == pytest.approx(3.0 * 0.5 * 2.0 / 10.0)
-    assert compensator_metrics(Rational(gain=2.0, zeros=(-1.0,), poles=(-3.0, -4.0)))["hf_gain"] == 0.0
+    assert (
+        compensator_metrics(Rational(gain=2.0, zeros=(-1.0,), poles=(-3.0, -4.0)))["hf_gain"]
+        == 0.0
+    )
     assert compensator_metrics(Rational(gain=2.0, poles=(0.0, 0.0)))["integral_gain"] is None
 
 
@@ -262,7 +273,9 @@ def _pade(order: int, tau: float) -> tuple[np.ndarray, np.ndarray]:
     """[N/N] Padé approximant of e^(−sτ) (closed-form coefficients; Baker & Graves-
     Morris, Padé Approximants, 2nd ed., 1996, §1.2)."""
     c = [
-        factorial(2 * order - k) * factorial(order) / (factorial(2 * order) * factorial(k) * factorial(order - k))
+        factorial(2 * order - k)
+        * factorial(order)
+        / (factorial(2 * order) * factorial(k) * factorial(order - k))
         for k in range(order + 1)
     ]
     num = np.array([c[k] * (-tau) ** k for k in range(order + 1)])[::-1]
@@ -278,7 +291,9 @@ def test_frequency_response_matches_scipy_signal() -> None:
     loops = [_random_loop(rng, delay=False) for _ in range(30)]
     w = np.logspace(-2, 2, 300)
     for loop in loops:
-        _, h = signal.freqresp(signal.ZerosPolesGain(np.array(loop.zeros), np.array(loop.poles), loop.gain), w)
+        _, h = signal.freqresp(
+            signal.ZerosPolesGain(np.array(loop.zeros), np.array(loop.poles), loop.gain), w
+        )
         mask = np.isfinite(h)
         np.testing.assert_allclose(loop.freqresp(w)[mask], h[mask], rtol=1e-9)
 
@@ -369,7 +384,10 @@ def stable_plants(draw: st.DrawFn) -> Rational:
     if draw(st.booleans()):
         wn = draw(st.floats(min_value=0.2, max_value=10.0))
         zeta = draw(st.floats(min_value=0.02, max_value=0.7))
-        poles += [complex(-zeta * wn, wn * math.sqrt(1 - zeta**2)), complex(-zeta * wn, -wn * math.sqrt(1 - zeta**2))]
+        poles += [
+            complex(-zeta * wn, wn * math.sqrt(1 - zeta**2)),
+            complex(-zeta * wn, -wn * math.sqrt(1 - zeta**2)),
+        ]
     integ = draw(st.integers(min_value=0, max_value=1))
     poles += [0.0] * integ
     zeros = [-draw(real_pole)] if draw(st.booleans()) else []
@@ -407,8 +425,12 @@ def test_adding_delay_margin_is_marginal(loop: Rational) -> None:
         return
     vals = [abs(1 + loop.freqresp(w)[0] * np.exp(-1j * w * dm)) for w in m["crossovers_rad_s"]]
     assert min(vals) < 1e-9
-    less = Rational(gain=loop.gain, zeros=loop.zeros, poles=loop.poles, delay_s=loop.delay_s + dm * 0.999)
-    more = Rational(gain=loop.gain, zeros=loop.zeros, poles=loop.poles, delay_s=loop.delay_s + dm * 1.001)
+    less = Rational(
+        gain=loop.gain, zeros=loop.zeros, poles=loop.poles, delay_s=loop.delay_s + dm * 0.999
+    )
+    more = Rational(
+        gain=loop.gain, zeros=loop.zeros, poles=loop.poles, delay_s=loop.delay_s + dm * 1.001
+    )
     assert metrics_of(less)["closed_loop_stable"] is True
     assert metrics_of(more)["closed_loop_stable"] is False
 
@@ -429,7 +451,9 @@ def test_peaks_bound_every_frequency(loop: Rational, log_w: list[float]) -> None
 def test_batch_equals_one_by_one() -> None:
     """frequency_metrics_batch over 40 compensators == frequency_metrics one by one."""
     rng = np.random.default_rng(5)
-    plant = Rational(gain=2.0, poles=(-0.3, -1.5, complex(-0.2, 4.0), complex(-0.2, -4.0)), delay_s=0.4)
+    plant = Rational(
+        gain=2.0, poles=(-0.3, -1.5, complex(-0.2, 4.0), complex(-0.2, -4.0)), delay_s=0.4
+    )
     n = 40
     k = rng.uniform(0.05, 1.5, n)
     zeros = np.stack([-rng.uniform(0.1, 1.0, n), -rng.uniform(1.0, 5.0, n)], axis=1).astype(complex)

@@ -20,7 +20,8 @@ from explorer.tune import study_names
 ROOT = Path(__file__).resolve().parents[1]
 STUDY_TOML = (
     "[plant]\ngain = 0.1333\npoles = [-0.3333, -2.0, -4.0]\n[targets]\ncrossover = 0.8\n"
-    "phase_margin = 55\nintegrators = 1\n[limits]\nsensitivity_peak = 1.6\n[search]\nmax_order = 2\n"
+    "phase_margin = 55\nintegrators = 1\n[limits]\nsensitivity_peak = 1.6\n"
+    "[search]\nmax_order = 2\n"
 )
 
 
