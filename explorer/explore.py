@@ -338,9 +338,7 @@ def explore(
     show = tune.progress_printer() if progress else None
     tune.run_structures(problem, structures, studies, trials=n_trials, batch=batch, progress=show)
     if show:
-        import sys
-
-        sys.stderr.write("\n")
+        show.close()
     records = tune.load_records(studies, n_trials)
     hand = _hand_designs(study)
     designs: list[dict[str, Any]] = []
@@ -389,6 +387,8 @@ def explore(
             kept += ok
         if not kept:
             why[s.label] = _why_not(s, recs, problem.pm_deg)
+    if show:
+        show.close()
     designs += _hand_records(study, hand)
     frame = rank_designs(designs)
     pareto = dict(zip(frame["name"], frame["pareto"], strict=True)) if len(frame) else {}
@@ -424,8 +424,11 @@ def _summary(
         best = min(
             (d for d in ok if d["order"] == low), key=lambda d: d["metrics"]["sensitivity_peak"]
         )
+        who = best["name"]
+        if not who.startswith(best["structure"]):
+            who = f"{best['structure']} ({who})"
         lines.append(
-            f"answer: order {low} suffices — {best['structure']} ({best['name']}) "
+            f"answer: order {low} suffices — {who} "
             f"meets the targets and limits with Ms {best['metrics']['sensitivity_peak']:.3g}"
         )
     else:

@@ -19,6 +19,7 @@ from __future__ import annotations
 import json
 import math
 import os
+import re
 import socket
 import sys
 import time
@@ -577,9 +578,36 @@ def _all_le0(t: optuna.trial.FrozenTrial) -> bool:
     return all(float(v) <= 0.0 for v in (t.constraints or {}).values())
 
 
-def progress_printer(stream: Any = sys.stderr) -> Callable[[str], None]:
-    def show(line: str) -> None:
-        stream.write("\r" + line[:100].ljust(100))
-        stream.flush()
+class ProgressLine:
+    """Progress messages on ``stream`` (stderr). On a terminal, one line rewritten in
+    place; elsewhere (a log file, a pipe) only the messages that end a stage — a
+    structure's last "n/n trials" and messages without a trial count — one per line,
+    so a log stays readable. ``close()`` ends an open terminal line."""
 
-    return show
+    def __init__(self, stream: Any = sys.stderr) -> None:
+        self.stream = stream
+        isatty = getattr(stream, "isatty", None)
+        self.tty = bool(isatty()) if callable(isatty) else False
+        self._open = False
+
+    def __call__(self, line: str) -> None:
+        if self.tty:
+            self.stream.write("\r" + line[:100].ljust(100))
+            self._open = True
+        else:
+            m = re.search(r"(\d+)/(\d+) trials$", line)
+            if m is not None and m.group(1) != m.group(2):
+                return
+            self.stream.write(line + "\n")
+        self.stream.flush()
+
+    def close(self) -> None:
+        if self._open:
+            self.stream.write("\n")
+            self.stream.flush()
+            self._open = False
+
+
+def progress_printer(stream: Any = sys.stderr) -> ProgressLine:
+    """The progress display used by ``explore`` (see ProgressLine)."""
+    return ProgressLine(stream)

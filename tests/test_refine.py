@@ -160,3 +160,81 @@ def test_locate_recovers_the_parameters_of_a_balanced_design(structure) -> None:
     assert n >= 5
     # roots of another shape are not located
     assert locate(structure, (), (0.0,), wc) is None
+
+
+# -- the iae_load floor and the pruning it allows ------------------------------------
+def test_iae_floor_is_exact_for_a_non_oscillating_load_response() -> None:
+    """Closed form: C = k_i/s on P = 1/(s+1) gives Y_load = 1/(s² + s + k_i); for
+    k_i ≤ 1/4 the poles are real and the impulse response of 1/(s²+s+k_i) is
+    non-negative, so IAE = IE = 1/k_i exactly (final-value theorem)."""
+    from explorer.evaluate import design_metrics
+    from explorer.refine import iae_load_floor
+
+    plant = Rational(gain=1.0, poles=(-1.0,))
+    for ki in (0.05, 0.2, 0.25):
+        m = design_metrics(plant, Rational(gain=ki, poles=(0.0,)))
+        assert m["integral_gain"] == pytest.approx(ki)
+        floor = float(iae_load_floor(plant, np.array([m["integral_gain"]]))[0])
+        assert floor == pytest.approx(1.0 / ki, rel=1e-12)
+        # 2e-6: the IAE's measured accuracy is ~1e-6 (docs/time-response.md, accuracy table)
+        assert m["iae_load"] == pytest.approx(1.0 / ki, rel=2e-6)
+
+
+def test_iae_floor_bounds_every_computed_iae() -> None:
+    """IAE ≥ |IE| = 1/|k_i| on random stable PI and PID·filter loops of a delayed plant
+    (a bound from ∫|y| ≥ |∫y|, not from our simulation); 0 when P has a zero at 0."""
+    from explorer.evaluate import design_metrics
+    from explorer.refine import iae_load_floor
+
+    plant = Rational(gain=0.4, poles=(-0.5, -2.0), delay_s=0.7)
+    rng = np.random.default_rng(8)
+    checked = 0
+    for _ in range(40):
+        k = float(rng.uniform(0.05, 2.0))
+        z1, z2 = (float(v) for v in -rng.uniform(0.05, 2.0, 2))
+        comp = (
+            Rational(gain=k, zeros=(z1,), poles=(0.0,))
+            if rng.random() < 0.5
+            else Rational(gain=k * 5.0, zeros=(z1, z2), poles=(0.0, -5.0))
+        )
+        m = design_metrics(plant, comp)
+        if not m["closed_loop_stable"] or m["iae_load"] is None:
+            continue
+        floor = float(iae_load_floor(plant, np.array([m["integral_gain"]]))[0])
+        assert floor == pytest.approx(1.0 / abs(m["integral_gain"]))
+        assert m["iae_load"] >= floor * (1.0 - 2e-6)  # IAE accuracy ~1e-6 (docs/time-response.md)
+        checked += 1
+    assert checked >= 15
+    zero_at_origin = Rational(gain=1.0, zeros=(0.0,), poles=(-1.0, -2.0))
+    assert iae_load_floor(zero_at_origin, np.array([0.5]))[0] == 0.0
+
+
+def test_pruning_by_the_floor_saves_simulations_and_reaches_the_same_iae(monkeypatch) -> None:
+    """Skipping the step responses that the floor rules out costs no IAE. The paths
+    may part at rounding level (a batch's designs share one time grid, so a design's
+    IAE depends on its batch-mates to ~1e-7), hence the comparison of the IAE reached."""
+    import explorer.refine as refine_mod
+
+    _, problem, s = _pi_problem()
+    starts = [
+        Start(params={"wc_rad_s": 0.3, "pm_deg": 60.0}, criterion="iae_load"),
+        Start(params={"wc_rad_s": 0.5, "pm_deg": 45.0}, criterion="iae_load"),
+    ]
+    rows = {True: 0, False: 0}
+    plain = refine_mod.evaluate_points
+
+    def counting(problem_, s_, coords, x, *, time_domain):
+        if time_domain:
+            rows[refine_mod.PRUNE_BY_IE] += x.shape[0]
+        return plain(problem_, s_, coords, x, time_domain=time_domain)
+
+    monkeypatch.setattr(refine_mod, "evaluate_points", counting)
+    pruned = refine(problem, s, starts, max_iter=25)
+    monkeypatch.setattr(refine_mod, "PRUNE_BY_IE", False)
+    full = refine(problem, s, starts, max_iter=25)
+    assert pruned[1] is None and full[1] is None  # the second start breaks Ms ≤ 1.6
+    monkeypatch.setattr(refine_mod, "evaluate_points", plain)
+    iae = [float(_design(problem, s, p)["metrics"]["iae_load"][0]) for p in (pruned[0], full[0])]
+    assert iae[0] == pytest.approx(iae[1], rel=1e-3)
+    assert max(iae) < 0.6 * float(_design(problem, s, starts[0].params)["metrics"]["iae_load"][0])
+    assert rows[True] < rows[False]

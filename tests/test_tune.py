@@ -170,3 +170,27 @@ def test_two_workers_on_postgres(tmp_path: Path, postgres_url: str) -> None:
     ref = [(d["name"], d["compensator"]) for d in json.loads(single.stdout)["designs"]]
     for out, _ in outs:
         assert [(d["name"], d["compensator"]) for d in json.loads(out)["designs"]] == ref
+
+
+def test_progress_line_rewrites_on_a_terminal_and_logs_stage_ends_elsewhere() -> None:
+    import io
+
+    from explorer.tune import ProgressLine
+
+    class Terminal(io.StringIO):
+        def isatty(self) -> bool:
+            return True
+
+    msgs = ["structure 1/2 PI: 0/8 trials", "structure 1/2 PI: 8/8 trials",
+            "structure 2/2 I+lead: 4/8 trials", "structure 2/2 I+lead: 8/8 trials"]
+    term, log = Terminal(), io.StringIO()
+    for stream in (term, log):
+        show = ProgressLine(stream)
+        for m in msgs:
+            show(m)
+        show.close()
+        show("refining structure 1/2 PI")
+        show.close()
+    assert term.getvalue().count("\r") == 5 and term.getvalue().count("\n") == 2
+    assert term.getvalue().endswith("\n")
+    assert log.getvalue().splitlines() == [msgs[1], msgs[3], "refining structure 1/2 PI"]
