@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -143,6 +143,23 @@ def _pick(records: list[Any], searched_wc: bool) -> list[tuple[Any, str]]:
     return out
 
 
+def _near_misses(records: list[Any]) -> list[tuple[Any, str]]:
+    """When no trial is feasible: the lowest-Ms trial whose only broken constraint is
+    the Ms limit, to be refined for Ms (it may cross below the limit), else none."""
+    near = [
+        r
+        for r in records
+        if r.params
+        and r.constraints.get("limit:sensitivity_peak", 0.0) > 0.0
+        and all(v <= 0.0 for k, v in r.constraints.items() if k != "limit:sensitivity_peak")
+        and r.metrics.get("sensitivity_peak") is not None
+    ]
+    if not near:
+        return []
+    best = min(near, key=lambda r: (r.metrics["sensitivity_peak"], r.number))
+    return [(best, "sensitivity_peak")]
+
+
 def _refined(
     problem: Any,
     s: Structure,
@@ -178,7 +195,17 @@ def _refined(
                 numbers.append(-1)
     if not starts:
         return []
-    got = refine(problem, s, starts)
+    # Minimising Ms makes the Ms limit redundant from a start that meets it, and lets a
+    # start that breaks only that limit (a near miss, a hand design) cross below it;
+    # the re-evaluation below applies every limit again.
+    ms_only = replace(problem, limits={k: v for k, v in problem.limits.items()
+                                       if k != "sensitivity_peak"})
+    got: list[dict[str, float] | None] = [None] * len(starts)
+    for prob, want_ms in ((ms_only, True), (problem, False)):
+        sel = [i for i, st in enumerate(starts) if (st.criterion == "sensitivity_peak") == want_ms]
+        if sel:
+            for i, p in zip(sel, refine(prob, s, [starts[i] for i in sel]), strict=True):
+                got[i] = p
     keep = [(i, p) for i, p in enumerate(got) if p is not None]
     if not keep:
         return []
@@ -351,7 +378,7 @@ def explore(
         picks = _pick(recs, problem.searched_wc)
         named = {id(r): f"{s.label} #{r.number}" for r, _ in picks}
         try:
-            refined = _refined(problem, s, si, picks, hand)
+            refined = _refined(problem, s, si, picks or _near_misses(recs), hand)
         except Exception as exc:  # the refinement adds designs; the trials stand without it
             refined = []
             why.setdefault(s.label, f"refinement failed: {type(exc).__name__}")
@@ -434,7 +461,8 @@ def _summary(
     else:
         lines.append(
             "answer: no explored structure meets the targets and limits "
-            f"(up to order {study.search.max_order})"
+            f"(up to order {study.search.max_order}); try a higher search.max_order, a "
+            "lower crossover or a looser limit (the reasons per structure follow)"
         )
     lines.append(f"explored {len(structures)} structures x {n_trials} trials")
     for label, reason in why.items():

@@ -238,3 +238,35 @@ def test_pruning_by_the_floor_saves_simulations_and_reaches_the_same_iae(monkeyp
     assert iae[0] == pytest.approx(iae[1], rel=1e-3)
     assert max(iae) < 0.6 * float(_design(problem, s, starts[0].params)["metrics"]["iae_load"][0])
     assert rows[True] < rows[False]
+
+
+def test_a_near_miss_of_the_ms_limit_is_refined_below_it() -> None:
+    """No trial feasible, one breaking only Ms ≤ 1.6: the Ms refinement starts there
+    (without the Ms limit as a barrier) and the result meets the limit, checked by the
+    independent evaluator; the near miss itself is not reported."""
+    from explorer.explore import _near_misses, _refined
+    from explorer.tune import TrialRecord
+
+    _, problem, s = _pi_problem()
+    start = {"wc_rad_s": 0.95, "pm_deg": 31.0}
+    res = _design(problem, s, start)
+    assert float(res["metrics"]["sensitivity_peak"][0]) > 1.6
+    miss = TrialRecord(
+        structure=0, number=7, state="COMPLETE", feasible=False, gain=None, zeros=(),
+        poles=(), metrics={"sensitivity_peak": float(res["metrics"]["sensitivity_peak"][0])},
+        constraints={"phase_balance_deg": 0.0, "closed_loop_unstable": 0.0,
+                     "limit:sensitivity_peak": 0.4},
+        reason=None, params=start,
+    )
+    other = TrialRecord(**{**miss.__dict__, "number": 8, "constraints": {
+        "closed_loop_unstable": 1.0, "limit:sensitivity_peak": 0.1}})
+    picks = _near_misses([miss, other])
+    assert [(r.number, c) for r, c in picks] == [(7, "sensitivity_peak")]
+    out = _refined(problem, s, 0, picks, [])
+    assert len(out) == 1 and out[0][1] == "PI #7 refined"
+    rec = out[0][0]
+    kp = rec.gain
+    (z,) = rec.zeros
+    assert rec.poles == (0j,)
+    loop = Rational(gain=kp, zeros=(z.real,), poles=(0.0, -1.0), delay_s=1.0)
+    assert reference_metrics(loop, w_lo=1e-3, w_hi=30.0)["sensitivity_peak"] <= 1.6 + 1e-6

@@ -1,0 +1,166 @@
+"""On-demand sweep of explore's promises over randomly drawn loops of our own.
+
+For each drawn study (process loops with delay, motion axes with an integrating plant
+and sometimes a lightly damped mode, delay-free thermal lags; random targets and
+limits) it runs ``explore`` and checks:
+
+* every design claiming ``meets_targets`` is re-checked with the metric engine;
+* where a hand design (phase-balanced, lead, PI + lead) meets the targets and limits,
+  some optimized design meets them with an Ms no higher than the best such hand design;
+* where none does, whether explore still finds a design meeting them (reported).
+
+Run: ``python benchmarks/sweep_explore.py [N_CASES] [--trials T] [--jobs J]``
+(default 24 cases, 100 trials, 2 processes). Prints one line per case and a tally;
+the exit status is 1 when a promise is broken. Not a test: the cases are random.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import tempfile
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+
+def draw_study(k: int, rng: np.random.Generator) -> dict[str, Any]:
+    """Study k: one of three loop families, with random targets and limits."""
+    kind = ("process", "motion", "thermal")[k % 3]
+    pm = float(rng.uniform(45.0, 65.0))
+    limits: dict[str, float] = {}
+    if rng.random() < 0.5:
+        limits["sensitivity_peak"] = round(float(rng.uniform(1.5, 2.0)), 2)
+    if rng.random() < 0.3:
+        limits["gain_margin_db"] = 6.0
+    if kind == "process":
+        t1 = float(10 ** rng.uniform(0, 2))
+        poles = [-1.0 / t1]
+        if rng.random() < 0.6:
+            poles.append(-1.0 / (t1 * float(rng.uniform(0.05, 0.5))))
+        theta = t1 * float(rng.uniform(0.03, 0.4))
+        gain = float(10 ** rng.uniform(-1, 1)) * math.prod(-p for p in poles)
+        wc = float(rng.uniform(0.2, 0.7)) / theta
+        plant: dict[str, Any] = {"gain": gain, "poles": poles, "delay": theta}
+        integrators = 1
+    elif kind == "motion":
+        a = float(10 ** rng.uniform(-0.5, 1.5))
+        wc = a * float(10 ** rng.uniform(-0.3, 0.7))
+        poles_c: list[Any] = [0.0, -a]
+        gain = float(10 ** rng.uniform(-1, 1)) * a
+        if rng.random() < 0.5:
+            wr = wc * float(rng.uniform(3.0, 10.0))
+            z = float(rng.uniform(0.02, 0.1))
+            re, im = -z * wr, wr * math.sqrt(1 - z * z)
+            poles_c += [f"{re}+{im}j", f"{re}-{im}j"]
+            gain *= wr * wr
+        plant = {"gain": gain, "poles": poles_c}
+        if rng.random() < 0.5:
+            plant["delay"] = float(rng.uniform(0.0, 0.25)) / wc
+        integrators = 1 if rng.random() < 0.6 else 2
+    else:
+        ts = sorted(float(10 ** rng.uniform(0, 2.5)) for _ in range(3))
+        poles = [-1.0 / t for t in ts]
+        gain = float(10 ** rng.uniform(-1, 1)) * math.prod(-p for p in poles)
+        wc = float(10 ** rng.uniform(-0.3, 0.5)) / ts[1]
+        plant = {"gain": gain, "poles": poles}
+        integrators = 1
+    study: dict[str, Any] = {
+        "name": f"sweep case {k} ({kind})",
+        "plant": plant,
+        "targets": {"crossover": wc, "phase_margin": pm, "integrators": integrators},
+        "search": {"max_order": int(rng.choice([2, 3]))},
+    }
+    if limits:
+        study["limits"] = limits
+    return study
+
+
+def run_case(args: tuple[int, dict[str, Any], int]) -> dict[str, Any]:
+    from explorer.errors import LoopscoutError
+    from explorer.evaluate import design_metrics, meets_targets
+    from explorer.explore import explore
+    from explorer.loop import Rational
+    from explorer.study import parse_study
+
+    k, data, trials = args
+    study = parse_study(data)
+    with tempfile.TemporaryDirectory() as tmp:
+        try:
+            res = explore(study, Path(tmp), trials=trials, seed=1, progress=False)
+        except LoopscoutError as exc:
+            return {"k": k, "name": data["name"], "refused": str(exc)}
+    false_claims = []
+    for d in res.designs:
+        c = d["compensator"]
+        comp = Rational(
+            gain=c["gain"],
+            zeros=[complex(z) for z in c["zeros"]],
+            poles=[complex(p) for p in c["poles"]],
+        )
+        m = design_metrics(study.plant, comp)
+        ok, _ = meets_targets(
+            m, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
+        )
+        if ok != d["meets_targets"]:
+            false_claims.append(d["name"])
+    hand = [d for d in res.designs if d["origin"] != "optimized" and d["meets_targets"]]
+    opt = [d for d in res.designs if d["origin"] == "optimized" and d["meets_targets"]]
+    return {
+        "k": k,
+        "name": data["name"],
+        "hand_ms": min((d["metrics"]["sensitivity_peak"] for d in hand), default=None),
+        "opt_ms": min((d["metrics"]["sensitivity_peak"] for d in opt), default=None),
+        "opt_order": min((d["order"] for d in opt), default=None),
+        "false_claims": false_claims,
+    }
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("cases", nargs="?", type=int, default=24)
+    ap.add_argument("--trials", type=int, default=100)
+    ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--seed", type=int, default=2026)
+    a = ap.parse_args()
+    rng = np.random.default_rng(a.seed)
+    cases = [(k, draw_study(k, rng), a.trials) for k in range(a.cases)]
+    broken = hand_solved = hand_beaten = hand_refused = found_anyway = 0
+    with ProcessPoolExecutor(max_workers=a.jobs) as pool:
+        for r in pool.map(run_case, cases):
+            if "refused" in r:
+                print(f"{r['k']:3d} {r['name']:28s} refused: {r['refused']}")
+                continue
+            verdict = "ok"
+            if r["false_claims"]:
+                verdict = f"FALSE CLAIM {r['false_claims']}"
+                broken += 1
+            if r["hand_ms"] is not None:
+                hand_solved += 1
+                if r["opt_ms"] is not None and r["opt_ms"] <= r["hand_ms"] * (1 + 1e-9):
+                    hand_beaten += 1
+                else:
+                    verdict = "OPTIMIZED WORSE THAN HAND"
+                    broken += 1
+            else:
+                hand_refused += 1
+                found_anyway += r["opt_ms"] is not None
+            fmt = lambda v: "-" if v is None else f"{v:.3f}"  # noqa: E731
+            print(
+                f"{r['k']:3d} {r['name']:28s} hand Ms {fmt(r['hand_ms']):>6}  "
+                f"optimized Ms {fmt(r['opt_ms']):>6} (order {r['opt_order']})  {verdict}"
+            )
+            sys.stdout.flush()
+    print(
+        f"hand solved {hand_solved}: optimized Ms ≤ hand in {hand_beaten}; "
+        f"hand failed {hand_refused}: explore met the targets in {found_anyway}; "
+        f"broken promises {broken}"
+    )
+    return 1 if broken else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
