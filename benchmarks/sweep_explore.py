@@ -1,8 +1,9 @@
 """On-demand sweep of explore's promises over randomly drawn loops of our own.
 
 For each drawn study (process loops with delay, motion axes with an integrating plant
-and sometimes a lightly damped mode, delay-free thermal lags; random targets and
-limits) it runs ``explore`` and checks:
+and sometimes a lightly damped mode, delay-free thermal lags, open-loop unstable
+plants, plants with a right-half-plane zero; random targets and limits) it runs
+``explore`` and checks:
 
 * every design claiming ``meets_targets`` is re-checked with the metric engine;
 * where a hand design (phase-balanced, lead, PI + lead) meets the targets and limits,
@@ -29,7 +30,7 @@ import numpy as np
 
 def draw_study(k: int, rng: np.random.Generator) -> dict[str, Any]:
     """Study k: one of three loop families, with random targets and limits."""
-    kind = ("process", "motion", "thermal")[k % 3]
+    kind = ("process", "motion", "thermal", "unstable", "inverse")[k % 5]
     pm = float(rng.uniform(45.0, 65.0))
     limits: dict[str, float] = {}
     if rng.random() < 0.5:
@@ -61,6 +62,21 @@ def draw_study(k: int, rng: np.random.Generator) -> dict[str, Any]:
         if rng.random() < 0.5:
             plant["delay"] = float(rng.uniform(0.0, 0.25)) / wc
         integrators = 1 if rng.random() < 0.6 else 2
+    elif kind == "unstable":  # a falling mode at +a, a slower stable lag, an actuator lag
+        a = float(10 ** rng.uniform(-0.5, 1.0))
+        poles = [a, -a * float(rng.uniform(0.3, 1.5)), -a * float(rng.uniform(8.0, 30.0))]
+        gain = float(10 ** rng.uniform(-1, 1)) * math.prod(abs(p) for p in poles)
+        wc = a * float(rng.uniform(2.5, 5.0))
+        plant = {"gain": gain, "poles": poles}
+        integrators = 1
+    elif kind == "inverse":  # a right-half-plane zero above the crossover (inverse response)
+        ts = sorted(float(10 ** rng.uniform(0, 2)) for _ in range(2))
+        poles = [-1.0 / t for t in ts]
+        wc = float(10 ** rng.uniform(-0.3, 0.3)) / ts[0]
+        zero = wc * float(rng.uniform(3.0, 8.0))
+        gain = -float(10 ** rng.uniform(-1, 1)) * math.prod(-p for p in poles) / zero
+        plant = {"gain": gain, "zeros": [zero], "poles": poles}
+        integrators = 1
     else:
         ts = sorted(float(10 ** rng.uniform(0, 2.5)) for _ in range(3))
         poles = [-1.0 / t for t in ts]

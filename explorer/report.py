@@ -286,10 +286,12 @@ def _line(
     logx: bool = True,
     x: str = "omega_rad_s",
     x_title: str = "frequency ω (rad/s)",
+    y_domain: tuple[float, float] | None = None,
 ) -> alt.Chart:
+    y_scale = alt.Scale(zero=False) if y_domain is None else alt.Scale(domain=list(y_domain))
     return (
         alt.Chart(df)
-        .mark_line(strokeWidth=2)
+        .mark_line(strokeWidth=2, clip=y_domain is not None)
         .encode(
             x=alt.X(
                 f"{x}:Q",
@@ -297,12 +299,12 @@ def _line(
                 scale=alt.Scale(type="log") if logx else alt.Scale(),
                 # "~g" only on log axes: on a linear time axis it printed "1e+2"
                 axis=(
-                    alt.Axis(format="~g", labelOverlap="greedy")
+                    alt.Axis(format="~g", values=_decades(df[x]))
                     if logx
                     else alt.Axis(labelOverlap=True)
                 ),
             ),
-            y=alt.Y(f"{y}:Q", title=y_title, scale=alt.Scale(zero=False)),
+            y=alt.Y(f"{y}:Q", title=y_title, scale=y_scale),
             color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
             opacity=_opacity(pick),
             tooltip=[
@@ -312,6 +314,32 @@ def _line(
             ],
         )
     )
+
+
+def _decades(values: pd.Series) -> list[float]:
+    """Tick values of a log axis: the powers of ten spanned by ``values`` (labels at
+    1-2-5 steps crowded each other on a six-decade axis)."""
+    v = values[values > 0]
+    if v.empty:
+        return [1.0]
+    lo, hi = math.floor(math.log10(float(v.min()))), math.ceil(math.log10(float(v.max())))
+    return [10.0**k for k in range(lo, hi + 1)]
+
+
+def _kick_clipped_domain(st: pd.DataFrame, col: str) -> tuple[float, float, float] | None:
+    """(lo, hi, peak) when the first 2 % of the horizon holds a peak |col| over five
+    times the largest |col| after it — a derivative kick that would flatten the rest of
+    the chart — else None. The chart then shows [lo, hi] and says it is clipped."""
+    if st.empty:
+        return None
+    t_max = float(st["t_s"].max())
+    tail = st.loc[st["t_s"] > 0.02 * t_max, col]
+    peak = float(st[col].abs().max())
+    if tail.empty or peak <= 5.0 * float(tail.abs().max()):
+        return None
+    lo, hi = float(min(tail.min(), 0.0)), float(tail.max())
+    pad = 0.1 * max(hi - lo, 1e-12)
+    return lo - pad, hi + pad, peak
 
 
 def _rules(
@@ -422,10 +450,17 @@ def step_charts(st: pd.DataFrame, study: Study, pick: alt.Parameter) -> alt.VCon
     os_lim = study.limits.get("overshoot_pct")
     if os_lim is not None:
         layers = layers + _rules([1 + os_lim / 100], "y", f"overshoot limit {os_lim:g} %", (2, 3))
-    u = _line(st, "u", "control u", pick, logx=False, x="t_s", x_title="time (s)")
+    clip = _kick_clipped_domain(st, "u")
+    u_title = "Reference step: control signal"
+    if clip is not None:
+        u_title += f" (initial kick up to |u| = {clip[2]:.3g} clipped; see peak control)"
+    u = _line(
+        st, "u", "control u", pick, logx=False, x="t_s", x_title="time (s)",
+        y_domain=None if clip is None else (clip[0], clip[1]),
+    )
     return alt.vconcat(
         layers.properties(width=420, height=220, title="Reference step: output (±2 % band)"),
-        u.properties(width=420, height=180, title="Reference step: control signal"),
+        u.properties(width=420, height=180, title=u_title),
     )
 
 

@@ -298,3 +298,18 @@ def test_renders_in_headless_chromium(kiln, tmp_path):
             timeout=120,
         )
     assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_log_axes_tick_at_decades_and_a_control_kick_is_clipped_and_said() -> None:
+    import pandas as pd
+
+    from explorer.report import _decades, _kick_clipped_domain
+
+    assert _decades(pd.Series([5e-4, 0.3, 7.0])) == [1e-4, 1e-3, 1e-2, 1e-1, 1.0, 10.0]
+    t = np.linspace(0.0, 100.0, 1001)
+    calm = pd.DataFrame({"t_s": t, "u": 1.0 - np.exp(-t / 10.0)})
+    assert _kick_clipped_domain(calm, "u") is None
+    kick = calm.assign(u=calm["u"] + 200.0 * np.exp(-t / 0.2))
+    lo, hi, peak = _kick_clipped_domain(kick, "u")
+    assert peak == pytest.approx(200.0)
+    assert lo < 0.0 < 1.0 < hi < 1.5
