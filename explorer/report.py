@@ -33,6 +33,7 @@ from explorer.errors import DesignError, LoopscoutError
 from explorer.evaluate import METRIC_UNITS
 from explorer.loop import Rational
 from explorer.study import Study
+from explorer.timeresp import fold_threshold_rad_s
 
 __all__ = [
     "DEFAULT_MS",
@@ -709,6 +710,13 @@ def write_report(study: Study, designs: list[dict[str, Any]], path: Path) -> Pat
     bundle = vlc.javascript_bundle(vl_version=vl_version_for_vl_convert())  # type: ignore[call-arg]
     low = lowest_order_meeting(designs)
     low_txt = "none" if low is None else f"order {low}"
+    fold_txt = ""
+    if study.plant.delay_s > 0:
+        w_far = fold_threshold_rad_s(study.plant.delay_s)
+        fold_txt = (
+            f"; stable roots above {w_far:.3g} rad/s may be folded into the delay there "
+            "(same DC gain; docs/time-response.md)"
+        )
     n_meet = sum(bool(d.get("meets_targets")) for d in designs)
     spec_js = json.dumps(spec).replace("</", "<\\/")
     bundle_js = bundle.replace("</script", "<\\/script")
@@ -730,7 +738,7 @@ def write_report(study: Study, designs: list[dict[str, Any]], path: Path) -> Pat
 <div class="card"><h2>Assumptions</h2><ul>
 <li>linear time-invariant plant model as given in the study</li>
 <li>the transport delay is exact in the frequency domain and a sampled transport delay \
-in the step responses</li>
+in the step responses{fold_txt}</li>
 <li>unit steps on the reference (and at the plant input for load IAE), applied at t = 0</li>\
 </ul></div>
 </section>

@@ -58,6 +58,7 @@ from explorer.loop import LoopBatch, Rational
 __all__ = [
     "METRIC_KEYS",
     "StepResponse",
+    "fold_threshold_rad_s",
     "simulate_steps",
     "step_metrics",
     "step_metrics_batch",
@@ -1200,6 +1201,11 @@ def _run_chunk(plan: _Plan, idx: np.ndarray, band: float) -> dict[str, np.ndarra
 def _chunk_size(d: int, n_sub: int) -> int:
     per_row = 4096 * (60.0 + 2.0 * d / n_sub) + (n_sub + 1) * 8 * d + 4 * d * d
     return int(max(1, min(256, _CHUNK_FLOATS // per_row)))
+
+
+def fold_threshold_rad_s(tau_s: float) -> float:
+    """Frequency (rad/s) above which stable roots may be folded into a delay τ (s)."""
+    return _omega_far(tau_s)
 
 
 def _omega_far(tau_s: float) -> float:
