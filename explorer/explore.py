@@ -143,6 +143,42 @@ def _pick(records: list[Any], searched_wc: bool) -> list[tuple[Any, str]]:
     return out
 
 
+def _hand_structures(
+    study: Study, structures: list[Structure], hand: list[Any]
+) -> list[Structure]:
+    """A structure for each hand design that none of the searched ones can represent
+    (it is of a higher order than search.max_order, or has an integrator the searched
+    family leaves to the plant): the lowest-order candidate of the hand design's own
+    order and integrator count that locates it. These get no trials; the hand design
+    is refined within them (Ms), so a polished version of every hand design is among
+    the optimized designs."""
+    from dataclasses import replace as _replace
+
+    from explorer.structures import locate
+
+    wc = study.targets.crossover_rad_s
+    if not isinstance(wc, (int, float)):
+        return []
+    out: list[Structure] = []
+    labels = {s.label for s in structures}
+    for hd in hand:
+        c = hd.compensator
+        if any(locate(s, c.zeros, c.poles, float(wc), check_bounds=False) is not None
+               for s in structures + out):
+            continue
+        order = max(len(c.zeros), len(c.poles))
+        targets = _replace(study.targets, integrators=study.plant.n_integrators + c.n_integrators)
+        search = _replace(study.search, max_order=order)
+        for s in candidate_structures(study.plant, targets, search):
+            if s.order == order and s.label not in labels and locate(
+                s, c.zeros, c.poles, float(wc), check_bounds=False
+            ) is not None:
+                out.append(s)
+                labels.add(s.label)
+                break
+    return out
+
+
 def _near_misses(records: list[Any]) -> list[tuple[Any, str]]:
     """When no trial is feasible: the lowest-Ms trial whose only broken constraint is
     the Ms limit, to be refined for Ms (it may cross below the limit), else none."""
@@ -368,11 +404,13 @@ def explore(
         show.close()
     records = tune.load_records(studies, n_trials)
     hand = _hand_designs(study)
+    polish = _hand_structures(study, structures, hand)
     designs: list[dict[str, Any]] = []
     why: dict[str, str] = {}
-    for si, s in enumerate(structures):
+    for si, s in enumerate(structures + polish):
         if show:
-            show(f"refining structure {si + 1}/{len(structures)} {s.label}")
+            n_all = len(structures) + len(polish)
+            show(f"refining structure {si + 1}/{n_all} {s.label}")
         recs = [r for r in records if r.structure == si]
         kept = 0
         picks = _pick(recs, problem.searched_wc)
@@ -412,7 +450,7 @@ def explore(
                 )
             )
             kept += ok
-        if not kept:
+        if not kept and si < len(structures):
             why[s.label] = _why_not(s, recs, problem.pm_deg)
     if show:
         show.close()

@@ -828,8 +828,17 @@ class _Sim:
         self.k += t0.size
 
     def traj(self) -> _Traj:
-        sig = {n: tuple(np.concatenate(lst, axis=1) for lst in v) for n, v in self.parts.items()}
-        return _Traj(np.concatenate(self.t0), np.concatenate(self.hk), sig, self.finite.copy())
+        # consolidate the pieces appended since the last call, so that later calls and
+        # take() handle a few arrays instead of one per block (a loop with widely
+        # separated time scales appends thousands of blocks over its horizon doublings)
+        for v in self.parts.values():
+            for j, lst in enumerate(v):
+                if len(lst) > 1:
+                    v[j] = [np.concatenate(lst, axis=1)]
+        if len(self.t0) > 1:
+            self.t0, self.hk = [np.concatenate(self.t0)], [np.concatenate(self.hk)]
+        sig = {n: tuple(lst[0] for lst in v) for n, v in self.parts.items()}
+        return _Traj(self.t0[0], self.hk[0], sig, self.finite.copy())
 
     # -- stepping -------------------------------------------------------------------
     def advance(self, t_target: float) -> None:

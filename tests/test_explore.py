@@ -183,3 +183,26 @@ def test_hand_solvable_case_optimized_ms_no_higher_and_hand_refused_case_solved(
     res = explore(study, tmp_path / "b", trials=40, seed=3, batch=20, progress=False)
     assert not [d for d in res.designs if d["origin"] == "hand" and d["meets_targets"]]
     assert _recheck(study, res.designs) >= 1
+
+
+def test_hand_design_above_max_order_is_polished_in_its_own_structure(tmp_path: Path) -> None:
+    """Annealing-furnace zone with three thermal lags (our scenario): the phase-balanced
+    design needs order 4, above search.max_order 2. Explore still refines it, in a
+    structure of its own order that gets no trials, and the polished design meets the
+    targets with an Ms no higher than the hand design's (re-checked)."""
+    furnace = {
+        "name": "Annealing furnace zone",
+        "plant": {"gain": 9.89e-08, "poles": [-0.01552, -0.009504, -0.003317]},
+        "targets": {"crossover": 0.01771, "phase_margin": 59.3, "integrators": 1},
+        "search": {"max_order": 2},
+    }
+    study = parse_study(furnace)
+    res = explore(study, tmp_path, trials=16, seed=5, batch=16, progress=False)
+    _recheck(study, res.designs)
+    (pb,) = [d for d in res.designs if d["name"] == "phase-balanced"]
+    assert pb["meets_targets"] and pb["order"] == 4
+    polished = [d for d in res.designs if d["name"].endswith("refined from phase-balanced")]
+    assert polished and all(d["origin"] == "optimized" and d["order"] == 4 for d in polished)
+    assert polished[0]["meets_targets"]
+    assert polished[0]["metrics"]["sensitivity_peak"] <= pb["metrics"]["sensitivity_peak"]
+    assert res.summary[1] == "explored 6 structures x 16 trials"  # the extra one is not searched
