@@ -148,12 +148,10 @@ def _hand_structures(
 ) -> list[Structure]:
     """A structure for each hand design that none of the searched ones can represent
     (it is of a higher order than search.max_order, or has an integrator the searched
-    family leaves to the plant): the lowest-order candidate of the hand design's own
-    order and integrator count that locates it. These get no trials; the hand design
+    family leaves to the plant): the first candidate structure of the hand design's
+    own order and integrator count that locates it. These get no trials; the hand design
     is refined within them (Ms), so a polished version of every hand design is among
     the optimized designs."""
-    from dataclasses import replace as _replace
-
     from explorer.structures import locate
 
     wc = study.targets.crossover_rad_s
@@ -167,8 +165,8 @@ def _hand_structures(
                for s in structures + out):
             continue
         order = max(len(c.zeros), len(c.poles))
-        targets = _replace(study.targets, integrators=study.plant.n_integrators + c.n_integrators)
-        search = _replace(study.search, max_order=order)
+        targets = replace(study.targets, integrators=study.plant.n_integrators + c.n_integrators)
+        search = replace(study.search, max_order=order)
         for s in candidate_structures(study.plant, targets, search):
             if s.order == order and s.label not in labels and locate(
                 s, c.zeros, c.poles, float(wc), check_bounds=False
