@@ -53,7 +53,7 @@ def _run(args: argparse.Namespace) -> int:
     from explorer.balance import hand_designs, trim_gain_for_overshoot
     from explorer.cli import _design_table, _print_json, _print_study, _study_header
     from explorer.errors import LoopscoutError
-    from explorer.evaluate import design_metrics, design_record, meets_targets
+    from explorer.evaluate import evaluated_record
     from explorer.study import load_study
 
     study = load_study(args.study)
@@ -74,22 +74,9 @@ def _run(args: argparse.Namespace) -> int:
                             "reason": hd.reason, "steps": list(hd.steps)})
             continue
         comp = hd.compensator
-        metrics = design_metrics(study.plant, comp)
-        ok, why = meets_targets(
-            metrics, t, study.limits, study.plant.n_integrators + comp.n_integrators
-        )
-        designs.append(
-            design_record(
-                name=hd.name,
-                origin=hd.origin,
-                structure=hd.structure,
-                comp=comp,
-                metrics=metrics,
-                meets=ok,
-                reasons=why,
-                extra={"steps": list(hd.steps)},
-            )
-        )
+        designs.append(evaluated_record(study, comp, name=hd.name, origin=hd.origin,
+                                        structure=hd.structure,
+                                        extra={"steps": list(hd.steps)}))
         if args.trim_overshoot is not None:
             tr = trim_gain_for_overshoot(study.plant, comp, args.trim_overshoot)
             if tr.compensator is None:
@@ -103,21 +90,11 @@ def _run(args: argparse.Namespace) -> int:
                     }
                 )
             else:
-                m2 = design_metrics(study.plant, tr.compensator)
-                ok2, why2 = meets_targets(m2, t, study.limits,
-                                          study.plant.n_integrators + tr.compensator.n_integrators)
-                designs.append(
-                    design_record(
-                        name=f"{hd.name} trimmed",
-                        origin=hd.origin,
-                        structure=hd.structure + ", gain trimmed",
-                        comp=tr.compensator,
-                        metrics=m2,
-                        meets=ok2,
-                        reasons=why2,
-                        extra={"steps": list(tr.steps), "gain_factor": tr.gain_factor},
-                    )
-                )
+                designs.append(evaluated_record(
+                    study, tr.compensator, name=f"{hd.name} trimmed", origin=hd.origin,
+                    structure=hd.structure + ", gain trimmed",
+                    extra={"steps": list(tr.steps), "gain_factor": tr.gain_factor},
+                ))
     if args.json:
         _print_json({"designs": designs, "refused": refused, "study": _study_header(study),
                      "caution": args.caution})

@@ -201,27 +201,38 @@ def design_record(
     return rec
 
 
+def evaluated_record(
+    study: Study,
+    comp: Rational,
+    *,
+    name: str,
+    origin: str,
+    structure: str,
+    extra: dict[str, Any] | None = None,
+) -> dict[str, Any]:
+    """A DESIGN record of ``comp`` on the study's plant with every metric
+    (:func:`design_metrics`) and the target check (:func:`meets_targets`); raises
+    what ``design_metrics`` raises."""
+    metrics = design_metrics(study.plant, comp)
+    ok, why = meets_targets(
+        metrics, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
+    )
+    return design_record(
+        name=name, origin=origin, structure=structure, comp=comp, metrics=metrics,
+        meets=ok, reasons=why, extra=extra,
+    )
+
+
 def given_designs(study: Study) -> list[dict[str, Any]]:
     """The study's ``[[compensator]]`` entries as DESIGN records (origin "given"),
     each with every metric and the target check."""
-    out = []
-    for entry in study.compensators:
-        comp = entry.compensator
-        metrics = design_metrics(study.plant, comp)
-        ok, why = meets_targets(metrics, study.targets, study.limits,
-                                study.plant.n_integrators + comp.n_integrators)
-        out.append(
-            design_record(
-                name=entry.name,
-                origin="given",
-                structure=describe_structure(comp),
-                comp=comp,
-                metrics=metrics,
-                meets=ok,
-                reasons=why,
-            )
+    return [
+        evaluated_record(
+            study, e.compensator, name=e.name, origin="given",
+            structure=describe_structure(e.compensator),
         )
-    return out
+        for e in study.compensators
+    ]
 
 
 def study_header(study: Study) -> dict[str, Any]:

@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 
 from explorer.errors import LoopscoutError
-from explorer.evaluate import design_metrics, design_record, meets_targets
+from explorer.evaluate import evaluated_record
 from explorer.loop import Rational
 from explorer.structures import Structure, candidate_structures
 from explorer.study import Study, load_study
@@ -333,29 +333,15 @@ def _hand_designs(study: Study) -> list[Any]:
 
 
 def _hand_records(study: Study, hds: list[Any]) -> list[dict[str, Any]]:
-    t = study.targets
     out = []
     for hd in hds:
         if hd.compensator is None:
             continue
         try:
-            m = design_metrics(study.plant, hd.compensator)
+            out.append(evaluated_record(study, hd.compensator, name=hd.name,
+                                        origin=hd.origin, structure=hd.structure))
         except Exception:  # a reference design that cannot be evaluated is left out
             continue
-        ok, why = meets_targets(
-            m, t, study.limits, study.plant.n_integrators + hd.compensator.n_integrators
-        )
-        out.append(
-            design_record(
-                name=hd.name,
-                origin=hd.origin,
-                structure=hd.structure,
-                comp=hd.compensator,
-                metrics=m,
-                meets=ok,
-                reasons=why,
-            )
-        )
     return out
 
 
@@ -423,31 +409,20 @@ def explore(
         for r, _ in _pick(pool, problem.searched_wc):
             comp = Rational(gain=r.gain, zeros=r.zeros, poles=r.poles)
             try:
-                m = design_metrics(study.plant, comp)
-            except Exception as exc:  # never report a design that could not be re-checked
-                why.setdefault(
-                    s.label, f"re-check of {named[id(r)]} failed: {type(exc).__name__}"
-                )
-                continue
-            ok, miss = meets_targets(
-                m, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
-            )
-            designs.append(
-                design_record(
-                    name=named[id(r)],
-                    origin="optimized",
-                    structure=s.label,
-                    comp=comp,
-                    metrics=m,
-                    meets=ok,
-                    reasons=miss,
+                rec = evaluated_record(
+                    study, comp, name=named[id(r)], origin="optimized", structure=s.label,
                     extra={
                         "trial": r.number if r.number >= 0 else None,
                         "refined": r.state == "REFINED",
                     },
                 )
-            )
-            kept += ok
+            except Exception as exc:  # never report a design that could not be re-checked
+                why.setdefault(
+                    s.label, f"re-check of {named[id(r)]} failed: {type(exc).__name__}"
+                )
+                continue
+            designs.append(rec)
+            kept += bool(rec["meets_targets"])
         if not kept and si < len(structures):
             why[s.label] = _why_not(s, recs, problem.pm_deg)
     if show:
