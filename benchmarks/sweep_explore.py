@@ -97,7 +97,7 @@ def draw_study(k: int, rng: np.random.Generator) -> dict[str, Any]:
 
 def run_case(args: tuple[int, dict[str, Any], int]) -> dict[str, Any]:
     from explorer.errors import LoopscoutError
-    from explorer.evaluate import design_metrics, meets_targets
+    from explorer.evaluate import evaluated_record
     from explorer.explore import explore
     from explorer.loop import Rational
     from explorer.study import parse_study
@@ -110,18 +110,12 @@ def run_case(args: tuple[int, dict[str, Any], int]) -> dict[str, Any]:
         except LoopscoutError as exc:
             return {"k": k, "name": data["name"], "refused": str(exc)}
     false_claims = []
-    for d in res.designs:
+    for d in res.designs:  # re-check from the JSON-form records (compensator roots as written)
         c = d["compensator"]
-        comp = Rational(
-            gain=c["gain"],
-            zeros=[complex(z) for z in c["zeros"]],
-            poles=[complex(p) for p in c["poles"]],
-        )
-        m = design_metrics(study.plant, comp)
-        ok, _ = meets_targets(
-            m, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
-        )
-        if ok != d["meets_targets"]:
+        comp = Rational(gain=c["gain"], zeros=[complex(z) for z in c["zeros"]],
+                        poles=[complex(p) for p in c["poles"]])
+        again = evaluated_record(study, comp, name=d["name"], origin="", structure="")
+        if again["meets_targets"] != d["meets_targets"]:
             false_claims.append(d["name"])
     hand = [d for d in res.designs if d["origin"] != "optimized" and d["meets_targets"]]
     opt = [d for d in res.designs if d["origin"] == "optimized" and d["meets_targets"]]
