@@ -242,7 +242,20 @@ def _factored_dict(c: dict[str, Any]) -> str:
 # --------------------------------------------------------------------------------------
 # entry point
 # --------------------------------------------------------------------------------------
+def _tolerant_streams() -> None:
+    """Output on a console that cannot encode ω, ∞ or — gets '?' for them instead of an
+    error (a legacy code page, PYTHONIOENCODING=ascii)."""
+    for stream in (sys.stdout, sys.stderr):
+        reconfigure = getattr(stream, "reconfigure", None)
+        if callable(reconfigure):
+            try:
+                reconfigure(errors="replace")
+            except (ValueError, OSError):  # a detached or closed stream: leave it
+                pass
+
+
 def main(argv: Sequence[str] | None = None) -> int:
+    _tolerant_streams()
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "command", None):

@@ -64,7 +64,7 @@ METRIC_UNITS: dict[str, tuple[str, str]] = {
     "settling_time_s": ("settling 2 %", "s"),
     "rise_time_s": ("rise 10-90 %", "s"),
     "peak_control": ("peak |u|", "-"),
-    "hf_gain": ("hf gain |C(j inf)|", "-"),
+    "hf_gain": ("hf gain |C(j∞)|", "-"),
     "integral_gain": ("integral gain", "1/s"),
     "iae_load": ("IAE load step", "-"),
 }

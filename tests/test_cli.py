@@ -161,3 +161,16 @@ def test_python_dash_m_and_console_script_agree(tmp_path: Path) -> None:
         [sys.executable, "-m", "explorer", "check", str(bad)], capture_output=True, text=True
     )
     assert res.returncode == 2 and res.stderr.count("\n") == 1
+
+
+def test_a_console_that_cannot_encode_the_symbols_still_gets_the_table() -> None:
+    """ω, ∞ and — become '?' on an ASCII console instead of an internal error."""
+    import os
+
+    env = dict(os.environ, PYTHONIOENCODING="ascii")
+    run_ = subprocess.run(
+        [sys.executable, "-m", "explorer", "check", str(ROOT / "studies" / "kiln_damper.toml")],
+        capture_output=True, env=env, cwd=ROOT, check=False,
+    )
+    assert run_.returncode == 0, run_.stderr
+    assert b"hf gain |C(j?)|" in run_.stdout and b"Caution" in run_.stdout
