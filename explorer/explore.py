@@ -200,10 +200,12 @@ def _refined(
     si: int,
     picks: list[tuple[Any, str]],
     hand: list[Any],
+    progress: Any = None,
 ) -> list[tuple[Any, str]]:
     """Locally refined versions (explorer.refine) of the picks, and of every hand
     design that fits this structure, each as (record, name). A refined design is kept
-    only when it is feasible and better in its criterion than where it started."""
+    only when it is feasible and better in its criterion than where it started.
+    ``progress(iteration, max_iter)`` is passed on to the refinement."""
     from explorer.refine import CRITERIA, Start, refine
     from explorer.structures import locate
     from explorer.tune import TrialRecord, evaluate_batch, row_design
@@ -238,7 +240,8 @@ def _refined(
     for prob, want_ms in ((ms_only, True), (problem, False)):
         sel = [i for i, st in enumerate(starts) if (st.criterion == "sensitivity_peak") == want_ms]
         if sel:
-            for i, p in zip(sel, refine(prob, s, [starts[i] for i in sel]), strict=True):
+            got_sel = refine(prob, s, [starts[i] for i in sel], progress=progress)
+            for i, p in zip(sel, got_sel, strict=True):
                 got[i] = p
     keep = [(i, p) for i, p in enumerate(got) if p is not None]
     if not keep:
@@ -392,15 +395,19 @@ def explore(
     designs: list[dict[str, Any]] = []
     why: dict[str, str] = {}
     for si, s in enumerate(structures + polish):
+        tick = None
         if show:
-            n_all = len(structures) + len(polish)
-            show(f"refining structure {si + 1}/{n_all} {s.label}")
+            stage = f"refining structure {si + 1}/{len(structures) + len(polish)} {s.label}"
+            show(stage)
+
+            def tick(it: int, n: int, stage: str = stage) -> None:
+                show(f"{stage}: {it}/{n} iterations")
         recs = [r for r in records if r.structure == si]
         kept = 0
         picks = _pick(recs, problem.searched_wc)
         named = {id(r): f"{s.label} #{r.number}" for r, _ in picks}
         try:
-            refined = _refined(problem, s, si, picks or _near_misses(recs), hand)
+            refined = _refined(problem, s, si, picks or _near_misses(recs), hand, tick)
         except Exception as exc:  # the refinement adds designs; the trials stand without it
             refined = []
             why.setdefault(s.label, f"refinement failed: {type(exc).__name__}")

@@ -19,6 +19,7 @@ give the same result, so workers sharing an exploration rank the same designs.
 from __future__ import annotations
 
 import itertools
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -207,11 +208,13 @@ def refine(
     step0: float = STEP0,
     min_step: float = MIN_STEP,
     max_iter: int = MAX_ITER,
+    progress: Callable[[int, int], None] | None = None,
 ) -> list[dict[str, float] | None]:
     """Refined parameters per start (the start itself when nothing better is found),
     or None for a start that is not feasible. Time-domain metrics are computed only
     when a study limit needs them (``problem.time_limits``); the caller re-evaluates
-    the result fully."""
+    the result fully. ``progress(iteration, max_iter)`` is called before each
+    iteration."""
     coords = coordinates(problem, s)
     d = len(coords)
     if not starts:
@@ -238,6 +241,8 @@ def refine(
         act = np.flatnonzero(step >= stop)
         if act.size == 0:
             break
+        if progress is not None:
+            progress(it + 1, max_iter)
         dirs = np.concatenate([fixed, _rotated(it + 1, d)], axis=0)
         cand = x[act, None, :] + step[act, None, None] * span[act, None, :] * dirs[None]
         cand = np.concatenate([cand, (x[act] + 2.0 * last[act])[:, None, :]], axis=1)

@@ -581,7 +581,7 @@ def _all_le0(t: optuna.trial.FrozenTrial) -> bool:
 class ProgressLine:
     """Progress messages on ``stream`` (stderr). On a terminal, one line rewritten in
     place; elsewhere (a log file, a pipe) only the messages that end a stage — a
-    structure's last "n/n trials" and messages without a trial count — one per line,
+    structure's last "n/n trials" and messages without a count — one per line,
     so a log stays readable. ``close()`` ends an open terminal line."""
 
     def __init__(self, stream: Any = sys.stderr) -> None:
@@ -595,7 +595,7 @@ class ProgressLine:
             self.stream.write("\r" + line[:100].ljust(100))
             self._open = True
         else:
-            m = re.search(r"(\d+)/(\d+) trials$", line)
+            m = re.search(r"(\d+)/(\d+) (?:trials|iterations)$", line)
             if m is not None and m.group(1) != m.group(2):
                 return
             self.stream.write(line + "\n")

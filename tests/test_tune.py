@@ -190,7 +190,8 @@ def test_progress_line_rewrites_on_a_terminal_and_logs_stage_ends_elsewhere() ->
             show(m)
         show.close()
         show("refining structure 1/2 PI")
+        show("refining structure 1/2 PI: 3/80 iterations")
         show.close()
-    assert term.getvalue().count("\r") == 5 and term.getvalue().count("\n") == 2
+    assert term.getvalue().count("\r") == 6 and term.getvalue().count("\n") == 2
     assert term.getvalue().endswith("\n")
     assert log.getvalue().splitlines() == [msgs[1], msgs[3], "refining structure 1/2 PI"]
