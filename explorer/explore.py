@@ -385,7 +385,7 @@ def explore(
         raise LoopscoutError(f"--out {str(out)!r} cannot be created: {exc.strerror}") from None
     store = tune.open_storage(storage, out)
     studies = tune.create_studies(store, structures, problem, seed, batch)
-    show = tune.progress_printer() if progress else None
+    show = tune.ProgressLine() if progress else None
     tune.run_structures(problem, structures, studies, trials=n_trials, batch=batch, progress=show)
     if show:
         show.close()

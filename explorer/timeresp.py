@@ -1213,13 +1213,8 @@ def _chunk_size(d: int, n_sub: int) -> int:
 
 
 def fold_threshold_rad_s(tau_s: float) -> float:
-    """Frequency (rad/s) above which stable roots may be folded into a delay τ (s)."""
-    return _omega_far(tau_s)
-
-
-def _omega_far(tau_s: float) -> float:
-    """Fold threshold (rad/s) for a delay τ: roots above it would need > _SUB_FOLD
-    samples per delay."""
+    """Frequency (rad/s) above which stable roots may be folded into a delay τ (s):
+    roots above it would need more than _SUB_FOLD samples per delay."""
     return _HW_DELAY * _SUB_FOLD / tau_s
 
 
@@ -1236,7 +1231,7 @@ def _resolvable(plan: _Plan, folded: bool) -> np.ndarray:
         return np.ones(plan.h_row.shape, dtype=bool)
     ok = np.array([_sub_per_delay(plan, float(h)) <= _MAX_SUB for h in plan.h_row])
     if folded:
-        wf = _omega_far(plan.tau)
+        wf = fold_threshold_rad_s(plan.tau)
         ok &= ~(plan.w_hi >= wf / _FOLD_SEPARATION)
     return ok
 
@@ -1250,7 +1245,8 @@ def _model_groups(
 ) -> list[ModelGroup]:
     """One group (the batch as given) unless far roots need folding (explorer.farroots)."""
     if plant.delay_s > 0 and dt_s is None and math.isfinite(plant.delay_s):
-        return fold_far_roots(plant, comp_gain, comp_zeros, comp_poles, _omega_far(plant.delay_s))
+        w_far = fold_threshold_rad_s(plant.delay_s)
+        return fold_far_roots(plant, comp_gain, comp_zeros, comp_poles, w_far)
     rows = np.arange(comp_gain.shape[0])
     return [ModelGroup(rows, plant, comp_gain, comp_zeros, comp_poles, False)]
 
@@ -1409,7 +1405,7 @@ def simulate_steps(
     if not _resolvable(plan, grp.folded)[0]:
         raise DesignError(
             "the step response cannot be resolved: the loop has a root or crossover "
-            f"above {_omega_far(plant.delay_s):.3g} rad/s that cannot be folded into the "
+            f"above {fold_threshold_rad_s(plant.delay_s):.3g} rad/s that cannot be folded into the "
             f"{plant.delay_s:g} s delay (it would need more than {_MAX_SUB} steps per delay)"
         )
     sim = _Sim(plan, np.array([0]))

@@ -607,7 +607,3 @@ class ProgressLine:
             self.stream.flush()
             self._open = False
 
-
-def progress_printer(stream: Any = sys.stderr) -> ProgressLine:
-    """The progress display used by ``explore`` (see ProgressLine)."""
-    return ProgressLine(stream)
