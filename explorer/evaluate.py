@@ -13,7 +13,7 @@ from typing import Any
 
 from explorer.loop import Rational
 from explorer.metrics import frequency_metrics
-from explorer.study import LIMIT_KEYS, Study, Targets
+from explorer.study import DEFAULT_CROSSOVER_TOLERANCE, LIMIT_KEYS, Study, Targets
 
 __all__ = [
     "METRIC_KEYS",
@@ -69,8 +69,13 @@ METRIC_UNITS: dict[str, tuple[str, str]] = {
     "iae_load": ("IAE load step", "-"),
 }
 
-#: interface.md: a numeric target crossover must be a gain crossover within this.
-CROSSOVER_REL_TOL = 1e-4
+#: interface.md: a numeric target crossover must be a gain crossover within this
+#: (the default of ``targets.crossover_tolerance``).
+CROSSOVER_REL_TOL = DEFAULT_CROSSOVER_TOLERANCE
+#: interface.md "Requirements are checked": overshoot met to within 0.2 percentage
+#: points, settling time to within 1 %.
+OVERSHOOT_TOL_PCT = 0.2
+SETTLING_REL_TOL = 0.01
 #: interface.md: the phase-margin target is met down to target − 0.05°.
 PHASE_MARGIN_TOL_DEG = 0.05
 
@@ -115,9 +120,15 @@ def meets_targets(
     wc = targets.crossover_rad_s
     xs = metrics.get("crossovers_rad_s") or []
     if isinstance(wc, (int, float)):
-        if not any(abs(x / wc - 1.0) <= CROSSOVER_REL_TOL for x in xs):
-            got = ", ".join(f"{x:.4g}" for x in xs) or "none"
-            why.append(f"crossover {wc:.4g} rad/s not among the gain crossovers ({got})")
+        tol = targets.crossover_tolerance
+        if not any(abs(x / wc - 1.0) <= tol for x in xs):
+            if xs:
+                near = min(xs, key=lambda x: abs(x / wc - 1.0))
+                got = (f"nearest gain crossover {near:.6g} rad/s is "
+                       f"{100.0 * (near / wc - 1.0):+.3g} % off; tolerance ±{100.0 * tol:.3g} %")
+            else:
+                got = "no gain crossover"
+            why.append(f"crossover {wc:.6g} rad/s missed: {got}")
     elif isinstance(wc, tuple):
         c = metrics.get("crossover_rad_s")
         if c is None or not (wc[0] <= c <= wc[1]):
@@ -133,6 +144,12 @@ def meets_targets(
                 f"phase margin {'none' if pm is None else f'{pm:.2f}'} deg "
                 f"< target {pm_t:.2f} deg"
             )
+    for key, req in targets.requirements.items():
+        value = metrics.get(key)
+        slack = OVERSHOOT_TOL_PCT if key == "overshoot_pct" else SETTLING_REL_TOL * req
+        if value is None or value > req + slack:
+            unit = METRIC_UNITS[key][1]
+            why.append(f"{key} {_fmt(value)} > required {req:g} {unit}")
     for key, bound in limits.items():
         value = metrics.get(key)
         kind = LIMIT_KEYS[key]
@@ -248,6 +265,8 @@ def study_header(study: Study) -> dict[str, Any]:
             "crossover_rad_s": wc,
             "phase_margin_deg": t.phase_margin_deg,
             "integrators": t.integrators,
+            "crossover_tolerance": t.crossover_tolerance,
+            "requirements": t.requirements,
             "derived_from": list(t.derived_from),
         },
         "limits": dict(study.limits),

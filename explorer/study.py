@@ -79,8 +79,20 @@ _TARGET_KEYS = (
     "settling_band",
     "pm_rule",
     "error_constant",
+    "crossover_tolerance",
 )
-_SEARCH_KEYS = ("max_order", "trials", "seed", "cancel_lightly_damped")
+_SEARCH_KEYS = ("max_order", "trials", "seed", "cancel_lightly_damped", "max_pole_ratio")
+
+#: interface.md "Crossover tolerance": default relative tolerance of a numeric target.
+DEFAULT_CROSSOVER_TOLERANCE = 1e-4
+#: Default practical limit on compensator poles: none faster than this multiple of the
+#: crossover. A derivative filter or roll-off far above crossover buys almost no phase
+#: and multiplies measurement noise (the kiln study's Ms-optimal PID·filter put its
+#: filter pole 300× above crossover for 0.6 % of Ms at 84× the noise gain). Common
+#: practice: a derivative filter factor N of about 10 (Åström & Hägglund, *Advanced PID
+#: Control*, 2006, §3.3 gives N ≈ 2–20 — from memory) puts the filter pole within a
+#: few tens of crossovers; 20 is our default, `search.max_pole_ratio` overrides it.
+DEFAULT_MAX_POLE_RATIO = 20.0
 
 
 # -- value objects ----------------------------------------------------------------------
@@ -97,6 +109,26 @@ class Targets:
     #: Required low-frequency loop gain lim s^m·L(s) (m = loop integrators): Kp, Kv or
     #: Ka; used by the lag hand design. None when not required.
     error_constant: float | None = None
+    #: interface.md: a numeric target crossover is met when a gain crossover lies within
+    #: this relative distance of it.
+    crossover_tolerance: float = DEFAULT_CROSSOVER_TOLERANCE
+    #: The step-response requirements the targets were derived from (None when the
+    #: targets were given directly): overshoot in percent, settling time in s within
+    #: ``settling_band`` (checked against the 2 % settling time, which is never shorter
+    #: than the 5 % one). interface.md: designs must meet them, not only the targets.
+    overshoot_pct: float | None = None
+    settling_time_s: float | None = None
+    settling_band: float = 0.02
+
+    @property
+    def requirements(self) -> dict[str, float]:
+        """METRICS key → required upper bound of the step response (possibly empty)."""
+        out: dict[str, float] = {}
+        if self.overshoot_pct is not None:
+            out["overshoot_pct"] = self.overshoot_pct
+        if self.settling_time_s is not None:
+            out["settling_time_s"] = self.settling_time_s
+        return out
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -107,6 +139,8 @@ class SearchOptions:
     trials: int = 100  # per structure
     seed: int | None = None
     cancel_lightly_damped: bool = False
+    #: practical limit: no compensator pole faster than this multiple of the crossover
+    max_pole_ratio: float = DEFAULT_MAX_POLE_RATIO
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -212,6 +246,13 @@ def _targets(tab: Mapping[str, Any]) -> Targets:
         raise StudyFileError("targets.settling_band", "is only used with `targets.settling_time`")
 
     crossover = _crossover(tab["crossover"]) if "crossover" in tab else None
+    tol = DEFAULT_CROSSOVER_TOLERANCE
+    if "crossover_tolerance" in tab:
+        tol = _number(tab["crossover_tolerance"], "targets.crossover_tolerance", low=0.0,
+                      high=0.5, low_incl=False, high_incl=True)
+        if crossover is not None and not isinstance(crossover, (int, float)):
+            raise StudyFileError("targets.crossover_tolerance",
+                                 "is only used with a numeric `targets.crossover`, not a range")
 
     if not has_os:
         pm = None
@@ -219,7 +260,7 @@ def _targets(tab: Mapping[str, Any]) -> Targets:
             pm = _number(tab["phase_margin"], "targets.phase_margin", low=0.0, high=90.0,
                          low_incl=False, high_incl=False, unit=" deg")
         return Targets(crossover_rad_s=crossover, phase_margin_deg=pm, integrators=integrators,
-                       error_constant=ec)
+                       error_constant=ec, crossover_tolerance=tol)
 
     overshoot = _number(tab["overshoot"], "targets.overshoot", low=0.0, high=100.0,
                         low_incl=True, high_incl=False, unit=" %")
@@ -252,6 +293,10 @@ def _targets(tab: Mapping[str, Any]) -> Targets:
         integrators=integrators,
         derived_from=conv.explanation,
         error_constant=ec,
+        crossover_tolerance=tol,
+        overshoot_pct=overshoot,
+        settling_time_s=settling,
+        settling_band=band,
     )
 
 
@@ -302,6 +347,9 @@ def _search(tab: Mapping[str, Any]) -> SearchOptions:
             raise StudyFileError("search.cancel_lightly_damped",
                                  f"must be true or false, got {_describe(v)}")
         kw["cancel_lightly_damped"] = v
+    if "max_pole_ratio" in tab:
+        kw["max_pole_ratio"] = _number(tab["max_pole_ratio"], "search.max_pole_ratio", low=1.0,
+                                       low_incl=False)
     return SearchOptions(**kw)
 
 
