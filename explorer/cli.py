@@ -82,7 +82,8 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 #: Modules adding commands (``register(sub, caution)``), in --help order.
-_COMMAND_MODULES = ("explorer.cli_balance", "explorer.cli_explore", "explorer.cli_report")
+_COMMAND_MODULES = ("explorer.cli_balance", "explorer.cli_explore", "explorer.cli_report",
+                    "explorer.cli_implement")
 
 
 # --------------------------------------------------------------------------------------
@@ -109,7 +110,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
         print(_design_table(designs))
         for d in designs:
             if d["misses"]:
-                print(f"  {d['name']} misses: " + "; ".join(d["misses"]))
+                print(_safe(f"  {d['name']} misses: " + "; ".join(d["misses"])))
         print()
         print(CAUTION)
     return 0
@@ -139,7 +140,7 @@ def _print_json(obj: dict[str, Any]) -> None:
 
 def _print_study(study: Any) -> None:
     t = study.targets
-    print(f"study: {study.name}  ({study.source})")
+    print(_safe(f"study: {study.name}  ({study.source})"))
     p = study.plant
     print(
         f"plant: {_factored(p.gain, p.zeros, p.poles)}"
@@ -174,7 +175,7 @@ def _factored(gain: float, zeros: Sequence[complex], poles: Sequence[complex]) -
             elif r.imag == 0:
                 out.append(f"(s{-r.real:+.4g})")
             else:
-                out.append(f"(s^2{-2 * r.real:+.4g}s{abs(r) ** 2:+.4g})")
+                out.append(f"(s^2{-2 * r.real:+.4g}s{abs(r) * abs(r):+.4g})")
         return "".join(out) or "1"
 
     num, den = fac(zeros), fac(poles)
@@ -209,7 +210,7 @@ _TABLE_ROWS = _table_rows()
 
 def _design_table(designs: list[dict[str, Any]]) -> str:
     """Metrics as rows, designs as columns, with units."""
-    head = ["", *[d["name"] for d in designs]]
+    head = ["", *[_safe(str(d["name"])) for d in designs]]
     rows = [
         ["structure", *[d["structure"] for d in designs]],
         ["order", *[str(d["order"]) for d in designs]],
@@ -263,11 +264,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 2
     run: Callable[[argparse.Namespace], int] = args.run
     try:
+        _check_options(args)
         return run(args)
     except LoopscoutError as exc:
         if args.debug:
             traceback.print_exc()
-        print(f"loopscout: error: {_one_line(str(exc))}", file=sys.stderr)
+        print(f"loopscout: error: {_safe(_one_line(str(exc)))}", file=sys.stderr)
         return 2
     except BrokenPipeError:  # output piped into `head` and the like: not an error
         import os
@@ -280,13 +282,46 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as exc:  # a defect: still one line unless --debug
         if args.debug:
             traceback.print_exc()
+        detail = _safe(_one_line(str(exc)))
+        if len(detail) > 200:
+            detail = detail[:197] + "..."
         print(
-            f"loopscout: internal error: {type(exc).__name__}: {_one_line(str(exc))} "
-            "(rerun with --debug and report it)",
+            f"loopscout: internal error (a defect of loopscout, not of your input): "
+            f"{type(exc).__name__}: {detail} (rerun with --debug for the traceback and "
+            "report it)",
             file=sys.stderr,
         )
         return 1
 
 
+def _check_options(args: argparse.Namespace) -> None:
+    """Numeric options obey the same rules as their study-file keys (``--seed`` as
+    ``[search] seed``, ``--trials`` as ``[search] trials``)."""
+    from explorer.study import MAX_SEED, MAX_TRIALS
+
+    for opt, low, high in (("seed", 0, MAX_SEED), ("trials", 1, MAX_TRIALS)):
+        value = getattr(args, opt, None)
+        if value is None or isinstance(value, bool) or not isinstance(value, int):
+            continue
+        if not low <= value <= high:
+            shown = str(value) if abs(value) < 10**15 else f"{float(value):.6g}"
+            raise LoopscoutError(
+                f"`--{opt}` must be an integer in [{low}, {high}] (as `[search] {opt}`), "
+                f"got {shown}"
+            )
+
+
 def _one_line(text: str) -> str:
     return " ".join(text.split())
+
+
+_CONTROL = {i: f"\\x{i:02x}" for i in (*range(0x20), *range(0x7F, 0xA0))}
+_CONTROL.update({0x2028: "\\u2028", 0x2029: "\\u2029"})
+_CONTROL.pop(ord("\n"))
+
+
+def _safe(text: str) -> str:
+    """Text for the terminal: C0/C1 control characters (ESC sequences that recolour,
+    retitle or move the cursor, bells, carriage returns) shown as ``\\x1b`` escapes;
+    newlines kept (callers print lines)."""
+    return text.translate(_CONTROL)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 from pathlib import Path
 from typing import Any
 
@@ -27,25 +28,73 @@ def given_designs(study: Any) -> list[dict[str, Any]]:
 
 
 def load_designs(path: str | Path) -> list[dict[str, Any]]:
-    """Read ``{"designs": [...]}``; one-line LoopscoutError on anything unreadable."""
+    """Read ``{"designs": [...]}``; one-line LoopscoutError on anything unreadable or of
+    the wrong shape (the same file checks as a study: a regular file of at most 1 MiB,
+    UTF-8 text)."""
+    from explorer.errors import StudyFileError
+    from explorer.study import read_text_file
+
+    shown = _show(str(path))
     try:
-        data = json.loads(Path(path).read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise LoopscoutError(f"--designs {path}: cannot read ({exc.strerror})") from None
+        text = read_text_file(path, "--designs file")
+    except StudyFileError as exc:
+        raise LoopscoutError(f"--designs: {exc.message}") from None
+    try:
+        data = json.loads(text)
     except json.JSONDecodeError as exc:
-        raise LoopscoutError(f"--designs {path}: not JSON ({exc.msg}, line {exc.lineno})") from None
+        raise LoopscoutError(
+            f"--designs {shown}: not JSON ({exc.msg}, line {exc.lineno})"
+        ) from None
+    except RecursionError:
+        raise LoopscoutError(f"--designs {shown}: JSON nested too deeply") from None
     designs = data.get("designs") if isinstance(data, dict) else None
     if not isinstance(designs, list) or not designs:
         raise LoopscoutError(
-            f"--designs {path}: expected an object with a non-empty 'designs' list"
+            f"--designs {shown}: expected an object with a non-empty 'designs' list"
         )
     for i, d in enumerate(designs):
-        missing = [
-            k for k in ("name", "compensator", "metrics") if not isinstance(d, dict) or k not in d
-        ]
-        if missing:
-            raise LoopscoutError(f"--designs {path}: designs[{i}] lacks '{missing[0]}'")
+        problem = _design_problem(d)
+        if problem:
+            raise LoopscoutError(f"--designs {shown}: designs[{i}] {problem}")
     return designs
+
+
+def _show(path: str) -> str:
+    return json.dumps(path) if any(ord(c) < 0x20 or 0x7F <= ord(c) < 0xA0 for c in path) else path
+
+
+def _is_number(v: Any) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+
+def _design_problem(d: Any) -> str:
+    """What is wrong with one DESIGN record (interface.md), or "" when it is usable."""
+    if not isinstance(d, dict):
+        return "is not an object"
+    for key in ("name", "compensator", "metrics"):
+        if key not in d:
+            return f"lacks '{key}'"
+    if not isinstance(d["name"], str) or not d["name"].strip():
+        return "'name' must be a non-empty string"
+    if not isinstance(d["metrics"], dict):
+        return "'metrics' must be an object"
+    c = d["compensator"]
+    if not isinstance(c, dict):
+        return "'compensator' must be an object with gain, zeros and poles"
+    if not _is_number(c.get("gain")) or c.get("gain") == 0:
+        return "'compensator.gain' must be a finite nonzero number"
+    for key in ("zeros", "poles"):
+        roots = c.get(key, [])
+        if not isinstance(roots, list):
+            return f"'compensator.{key}' must be a list of roots"
+        for j, r in enumerate(roots):
+            try:
+                z = complex(r.replace(" ", "")) if isinstance(r, str) else None
+            except ValueError:
+                z = None
+            if not (_is_number(r) or (z is not None and math.isfinite(abs(z)))):
+                return f"'compensator.{key}[{j}]' is not a root (a number or \"-2+3j\")"
+    return ""
 
 
 def _inputs(args: argparse.Namespace) -> tuple[Any, list[dict[str, Any]]]:

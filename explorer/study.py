@@ -14,15 +14,18 @@ import difflib
 import json
 import math
 import os
+import stat
 import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from explorer import specs
 from explorer.errors import StudyFileError
-from explorer.loop import Rational
+from explorer.loop import Rational, roots_from_coefficients
 
 __all__ = [
     "Targets",
@@ -32,6 +35,8 @@ __all__ = [
     "LIMIT_KEYS",
     "load_study",
     "parse_study",
+    "read_text_file",
+    "MAX_FILE_BYTES",
 ]
 
 #: METRICS key → kind of bound: "upper" (value must not exceed) or "lower".
@@ -93,6 +98,41 @@ DEFAULT_CROSSOVER_TOLERANCE = 1e-4
 #: Control*, 2006, §3.3 gives N ≈ 2–20 — from memory) puts the filter pole within a
 #: few tens of crossovers; 20 is our default, `search.max_pole_ratio` overrides it.
 DEFAULT_MAX_POLE_RATIO = 20.0
+
+
+# -- the numerical domain (docs/study-file.md, "Numerical domain") ----------------------
+#: Roots per list (zeros or poles) of the plant and of each compensator; a polynomial
+#: may have at most MAX_ROOTS + 1 coefficients.
+MAX_ROOTS = 40
+#: [[compensator]] entries in one study.
+MAX_COMPENSATORS = 100
+#: Every characteristic frequency (nonzero root modulus, 1/delay, target crossover,
+#: derived crossover, crossover-range ends) lies in [FREQ_MIN, FREQ_MAX] rad/s …
+FREQ_MIN = 1e-8
+FREQ_MAX = 1e8
+#: … and the largest is at most FREQ_SPAN times the smallest.
+FREQ_SPAN = 1e8
+#: A crossover range [low, high] spans at most this factor.
+CROSSOVER_RANGE_SPAN = 1e4
+#: |gain| of the plant and of each compensator (roots form, or num[0]/den[0]).
+GAIN_MIN = 1e-100
+GAIN_MAX = 1e100
+#: Products |gain|·Π|jω − z| and Π|jω − p| of each loop (plant × compensator, and the
+#: plant alone) stay within 10^±MAGNITUDE_DECADES for every ω from MAGNITUDE_REACH
+#: below the slowest to MAGNITUDE_REACH above the fastest characteristic frequency
+#: (the metrics evaluate products of root factors; float64 ends near 10^±308).
+MAGNITUDE_DECADES = 250.0
+MAGNITUDE_REACH = 1e5
+#: Required loop integrators (a loop with m integrators starts at −m·90°; the hand
+#: designs and the searched structures handle up to this many).
+MAX_INTEGRATORS = 3
+#: Relative error of the re-expanded roots of a num/den polynomial (coefficient vector,
+#: 2-norm) above which the conversion is refused.
+POLY_TOLERANCE = 1e-8
+MAX_TRIALS = 100_000
+MAX_SEED = 2**32 - 1  # numpy's and Optuna's seeds are 32-bit
+MAX_POLE_RATIO_LIMIT = 1e4
+MAX_NAME_LENGTH = 200
 
 
 # -- value objects ----------------------------------------------------------------------
@@ -165,25 +205,90 @@ class Study:
 
 
 # -- entry points ---------------------------------------------------------------------------
+#: Largest study file read (bytes); a study is a few hundred bytes to a few kB.
+MAX_FILE_BYTES = 1 << 20
+
+
+def read_text_file(path: str | os.PathLike[str], what: str) -> str:
+    """The UTF-8 text of a regular file of at most MAX_FILE_BYTES, BOM removed.
+
+    ``what`` names the file in messages ("study file"). Anything else — a missing
+    file, a directory, a FIFO or device (refused before opening, so nothing blocks),
+    a file too large, bytes that are not UTF-8 — raises :class:`StudyFileError`
+    with an empty key and a one-line message.
+    """
+    source = os.fspath(path)
+    shown = _show_path(source)
+    try:
+        st = os.stat(source)
+        if stat.S_ISDIR(st.st_mode):
+            raise StudyFileError("", f"cannot read {what} {shown}: it is a directory")
+        if not stat.S_ISREG(st.st_mode):
+            raise StudyFileError(
+                "", f"cannot read {what} {shown}: not a regular file ({_file_kind(st.st_mode)})"
+            )
+        if st.st_size > MAX_FILE_BYTES:
+            raise StudyFileError("", f"cannot read {what} {shown}: {st.st_size} bytes, "
+                                     f"larger than the limit of {MAX_FILE_BYTES} bytes")
+        flags = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOCTTY", 0)
+        fd = os.open(source, flags)
+        with os.fdopen(fd, "rb") as fh:
+            if not stat.S_ISREG(os.fstat(fh.fileno()).st_mode):  # swapped since the stat
+                raise StudyFileError("", f"cannot read {what} {shown}: not a regular file")
+            raw = fh.read(MAX_FILE_BYTES + 1)
+    except StudyFileError:
+        raise
+    except OSError as exc:
+        reason = exc.strerror or type(exc).__name__
+        raise StudyFileError("", f"cannot read {what} {shown}: {reason}") from None
+    except ValueError as exc:  # e.g. an embedded NUL byte in the path
+        raise StudyFileError("", f"cannot read {what} {shown}: {_one_line(str(exc))}") from None
+    if len(raw) > MAX_FILE_BYTES:
+        raise StudyFileError("", f"cannot read {what} {shown}: larger than the limit of "
+                                 f"{MAX_FILE_BYTES} bytes")
+    if raw.startswith(b"\xef\xbb\xbf"):  # a UTF-8 byte-order mark, as some editors write
+        raw = raw[3:]
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise StudyFileError(
+            "", f"{shown}: not UTF-8 text ({exc.reason} at byte {exc.start})"
+        ) from None
+
+
+def _file_kind(mode: int) -> str:
+    for test, name in ((stat.S_ISFIFO, "a FIFO"), (stat.S_ISCHR, "a character device"),
+                       (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket")):
+        if test(mode):
+            return name
+    return "not a file"
+
+
+def _show_path(source: str) -> str:
+    """A path for a message: as given, or quoted and escaped when it holds control
+    characters or NUL (so the message stays one harmless line)."""
+    if any(_is_control(ch) for ch in source):
+        return json.dumps(source)
+    return source
+
+
+def _is_control(ch: str) -> bool:
+    o = ord(ch)
+    return o < 0x20 or 0x7F <= o < 0xA0 or ch in "\u2028\u2029"
+
+
 def load_study(path: str | os.PathLike[str]) -> Study:
     """Read and validate a TOML study file. Raises :class:`StudyFileError`."""
     source = os.fspath(path)
+    text = read_text_file(source, "study file")
+    shown = _show_path(source)
     try:
-        with open(source, "rb") as fh:
-            data = tomllib.load(fh)
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise StudyFileError("", f"{source}: TOML syntax error: {_one_line(str(exc))}") from None
-    except UnicodeDecodeError as exc:
-        raise StudyFileError("", f"{source}: not UTF-8 text ({exc.reason})") from None
-    except IsADirectoryError:
-        raise StudyFileError("", f"cannot read study file {source}: it is a directory") from None
-    except OSError as exc:
-        reason = exc.strerror or type(exc).__name__
-        raise StudyFileError("", f"cannot read study file {source}: {reason}") from None
-    except ValueError as exc:  # e.g. an embedded NUL byte in the path
-        raise StudyFileError(
-            "", f"cannot read study file {source!r}: {_one_line(str(exc))}"
-        ) from None
+        raise StudyFileError("", f"{shown}: TOML syntax error: {_one_line(str(exc))}") from None
+    except RecursionError:
+        raise StudyFileError("", f"{shown}: TOML nested too deeply (arrays or tables "
+                                 "within one another)") from None
     return parse_study(data, source=source)
 
 
@@ -206,6 +311,7 @@ def parse_study(data: dict[str, Any], source: str = "<study>") -> Study:
     limits = _limits(_table(data, "limits", "", required=False))
     search = _search(_table(data, "search", "", required=False))
     compensators = _compensators(data.get("compensator"))
+    _check_domain(plant, plant_tab, targets, compensators, data.get("compensator"))
     return Study(
         name=name,
         source=source,
@@ -222,10 +328,12 @@ def _targets(tab: Mapping[str, Any]) -> Targets:
     _check_keys(tab, _TARGET_KEYS, "targets")
     if "integrators" not in tab:
         raise StudyFileError("targets.integrators", "is required (free integrators of the loop)")
-    integrators = _int(tab["integrators"], "targets.integrators", low=0)
+    integrators = _int(tab["integrators"], "targets.integrators", low=0,
+                       high=MAX_INTEGRATORS)
     ec = None
     if "error_constant" in tab:
-        ec = _number(tab["error_constant"], "targets.error_constant", low=0.0, low_incl=False)
+        ec = _number(tab["error_constant"], "targets.error_constant", low=GAIN_MIN,
+                     high=GAIN_MAX)
 
     has_os = "overshoot" in tab
     if has_os and "phase_margin" in tab:
@@ -314,6 +422,11 @@ def _crossover(value: Any) -> float | tuple[float, float]:
             raise StudyFileError(
                 key, f"range must have low < high, got [{_fmt(low)}, {_fmt(high)}]"
             )
+        if high > CROSSOVER_RANGE_SPAN * low:
+            raise StudyFileError(
+                key, f"range [{_fmt(low)}, {_fmt(high)}] spans a factor {_fmt(high / low)}; "
+                     f"at most {_fmt(CROSSOVER_RANGE_SPAN)} is allowed (numerical domain)"
+            )
         return (low, high)
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         return _number(value, key, low=0.0, low_incl=False, unit=" rad/s")
@@ -338,9 +451,9 @@ def _search(tab: Mapping[str, Any]) -> SearchOptions:
         kw["max_order"] = _int(tab["max_order"], "search.max_order", low=0,
                                high=MAX_SEARCH_ORDER)
     if "trials" in tab:
-        kw["trials"] = _int(tab["trials"], "search.trials", low=1)
+        kw["trials"] = _int(tab["trials"], "search.trials", low=1, high=MAX_TRIALS)
     if "seed" in tab:
-        kw["seed"] = _int(tab["seed"], "search.seed", low=0)
+        kw["seed"] = _int(tab["seed"], "search.seed", low=0, high=MAX_SEED)
     if "cancel_lightly_damped" in tab:
         v = tab["cancel_lightly_damped"]
         if not isinstance(v, bool):
@@ -349,7 +462,7 @@ def _search(tab: Mapping[str, Any]) -> SearchOptions:
         kw["cancel_lightly_damped"] = v
     if "max_pole_ratio" in tab:
         kw["max_pole_ratio"] = _number(tab["max_pole_ratio"], "search.max_pole_ratio", low=1.0,
-                                       low_incl=False)
+                                       low_incl=False, high=MAX_POLE_RATIO_LIMIT)
     return SearchOptions(**kw)
 
 
@@ -359,6 +472,9 @@ def _compensators(value: Any) -> tuple[NamedCompensator, ...]:
     if not isinstance(value, list):
         raise StudyFileError("compensator", "must be written as [[compensator]] tables, "
                                             f"got {_describe(value)}")
+    if len(value) > MAX_COMPENSATORS:
+        raise StudyFileError("compensator", f"has {len(value)} entries; at most "
+                                            f"{MAX_COMPENSATORS} are allowed")
     out: list[NamedCompensator] = []
     seen: dict[str, int] = {}
     for i, entry in enumerate(value):
@@ -396,6 +512,11 @@ def _rational(tab: Mapping[str, Any], where: str, *, allow_delay: bool = False) 
     delay = 0.0
     if allow_delay and "delay" in tab:
         delay = _number(tab["delay"], f"{where}.delay", low=0.0, low_incl=True, unit=" s")
+        if delay and not 1.0 / FREQ_MAX <= delay <= 1.0 / FREQ_MIN:
+            raise StudyFileError(
+                f"{where}.delay", f"must be 0 or in [{_fmt(1.0 / FREQ_MAX)}, "
+                                  f"{_fmt(1.0 / FREQ_MIN)}] s (numerical domain), got {_fmt(delay)}"
+            )
 
     if poly_keys:
         for k in _POLY_FORM:
@@ -407,16 +528,60 @@ def _rational(tab: Mapping[str, Any], where: str, *, allow_delay: bool = False) 
                 )
         num = _coefficients(tab["num"], f"{where}.num")
         den = _coefficients(tab["den"], f"{where}.den")
-        return Rational.from_coefficients(num, den, delay_s=delay)
+        kn, zeros = _poly_roots(num, f"{where}.num")
+        kd, poles = _poly_roots(den, f"{where}.den")
+        gain = kn / kd
+        if not (math.isfinite(gain) and GAIN_MIN <= abs(gain) <= GAIN_MAX):
+            raise StudyFileError(
+                f"{where}.num",
+                f"gives the gain num[0]/den[0] = {_fmt(kn)}/{_fmt(kd)}, outside the numerical "
+                f"domain: |gain| must be in [{_fmt(GAIN_MIN)}, {_fmt(GAIN_MAX)}]",
+            )
+        return Rational(gain=gain, zeros=zeros, poles=poles, delay_s=delay)
 
     if "gain" not in tab:
         raise StudyFileError(f"{where}.gain", "is required (or give `num` and `den`)")
     gain = _number(tab["gain"], f"{where}.gain")
     if gain == 0.0:
         raise StudyFileError(f"{where}.gain", "must not be 0")
+    if not GAIN_MIN <= abs(gain) <= GAIN_MAX:
+        raise StudyFileError(
+            f"{where}.gain", f"must have |gain| in [{_fmt(GAIN_MIN)}, {_fmt(GAIN_MAX)}] "
+                             f"(numerical domain), got {_fmt(gain)}")
     zeros = _roots(tab.get("zeros", []), f"{where}.zeros")
     poles = _roots(tab.get("poles", []), f"{where}.poles")
     return Rational(gain=gain, zeros=zeros, poles=poles, delay_s=delay)
+
+
+def _poly_roots(coeffs: list[float], key: str) -> tuple[float, tuple[complex, ...]]:
+    """Leading coefficient and roots of a coefficient list, refused when the roots do not
+    reproduce the polynomial: the re-expanded roots (numpy.poly) times the leading
+    coefficient must match the given coefficients within POLY_TOLERANCE (relative
+    2-norm of the coefficient vector), and every root must be finite and inside the
+    frequency window."""
+    c = np.trim_zeros(np.asarray(coeffs, dtype=float), "f")
+    scale = float(np.max(np.abs(c)))
+    with np.errstate(all="ignore"):
+        cn = c / scale  # the roots do not change; keeps 1e-300-sized coefficients finite
+        try:
+            lead, roots = roots_from_coefficients(cn)
+        except np.linalg.LinAlgError:
+            roots, lead = None, 0.0
+        ok = roots is not None and all(math.isfinite(abs(r)) for r in roots)
+        if ok:
+            again = lead * np.poly(np.array(roots, dtype=complex)) if roots else np.array([lead])
+            err = float(np.linalg.norm(again.real - cn) / np.linalg.norm(cn))
+            ok = math.isfinite(err) and err <= POLY_TOLERANCE
+    if not ok:
+        raise StudyFileError(
+            key, "cannot be converted to roots accurately (its roots do not reproduce the "
+                 "coefficients within a relative "
+                 f"{_fmt(POLY_TOLERANCE)}); give the roots instead (gain/zeros/poles)"
+        )
+    assert roots is not None
+    for r in roots:
+        _check_window(abs(r), key, "has a root", r)
+    return lead * scale, roots
 
 
 def _require_proper(
@@ -439,6 +604,9 @@ def _coefficients(value: Any, key: str) -> list[float]:
     if not isinstance(value, list):
         raise StudyFileError(key, f"must be a list of coefficients (highest power first), "
                                   f"got {_describe(value)}")
+    if len(value) > MAX_ROOTS + 1:
+        raise StudyFileError(key, f"has {len(value)} coefficients; at most {MAX_ROOTS + 1} "
+                                  f"(degree {MAX_ROOTS}) are allowed (numerical domain)")
     coeffs = [_number(c, f"{key}[{i}]") for i, c in enumerate(value)]
     if not any(c != 0.0 for c in coeffs):
         raise StudyFileError(key, "must have a nonzero coefficient")
@@ -448,9 +616,14 @@ def _coefficients(value: Any, key: str) -> list[float]:
 def _roots(value: Any, key: str) -> tuple[complex, ...]:
     if not isinstance(value, list):
         raise StudyFileError(key, f"must be a list of roots, got {_describe(value)}")
+    if len(value) > MAX_ROOTS:
+        raise StudyFileError(key, f"has {len(value)} roots; at most {MAX_ROOTS} are allowed "
+                                  "(numerical domain)")
     roots: list[complex] = []
     for i, item in enumerate(value):
-        roots.append(_root(item, f"{key}[{i}]"))
+        r = _root(item, f"{key}[{i}]")
+        _check_window(abs(r), f"{key}[{i}]", "is", r)
+        roots.append(r)
     # every complex root must be matched by its conjugate (with multiplicity)
     upper = [(i, r) for i, r in enumerate(roots) if r.imag > 0]
     lower = [(i, r) for i, r in enumerate(roots) if r.imag < 0]
@@ -515,6 +688,94 @@ def _close(a: complex, b: complex) -> bool:
     return abs(a - b) <= 1e-9 * max(abs(a), abs(b), 1.0)
 
 
+# -- the numerical domain ------------------------------------------------------------------
+def _check_window(mag: float, key: str, verb: str, root: complex) -> None:
+    """A nonzero root's modulus must lie in [FREQ_MIN, FREQ_MAX] rad/s."""
+    if mag == 0.0 or FREQ_MIN <= mag <= FREQ_MAX:
+        return
+    shown = _fmt(root.real) if root.imag == 0 else _fmt_root(root)
+    raise StudyFileError(
+        key, f"{verb} {shown} (modulus {_fmt(mag)} rad/s), outside the numerical domain: "
+             f"nonzero roots must have a modulus in [{_fmt(FREQ_MIN)}, {_fmt(FREQ_MAX)}] "
+             "rad/s (write the plant in another time unit, e.g. ms or h)"
+    )
+
+
+def _check_domain(
+    plant: Rational,
+    plant_tab: Mapping[str, Any],
+    targets: Targets,
+    compensators: tuple[NamedCompensator, ...],
+    comp_raw: Any,
+) -> None:
+    """The study-wide parts of the numerical domain (docs/study-file.md): the span of its
+    characteristic frequencies, and finite products of root factors in every loop."""
+    freqs: list[tuple[float, str]] = []
+
+    def factor(r: Rational, tab: Mapping[str, Any], where: str) -> None:
+        poly = "num" in tab
+        for roots, key in ((r.zeros, "num" if poly else "zeros"),
+                           (r.poles, "den" if poly else "poles")):
+            freqs.extend((abs(x), f"{where}.{key}") for x in roots if x != 0)
+
+    factor(plant, plant_tab, "plant")
+    if plant.delay_s > 0:
+        freqs.append((1.0 / plant.delay_s, "plant.delay"))
+    wc = targets.crossover_rad_s
+    wc_key = "targets.settling_time" if targets.settling_time_s is not None else \
+        "targets.crossover"
+    for w in (wc if isinstance(wc, tuple) else () if wc is None else (wc,)):
+        if not FREQ_MIN <= w <= FREQ_MAX:
+            raise StudyFileError(
+                wc_key, f"gives a crossover of {_fmt(w)} rad/s, outside the numerical domain "
+                        f"[{_fmt(FREQ_MIN)}, {_fmt(FREQ_MAX)}] rad/s")
+        freqs.append((w, wc_key))
+    raw = comp_raw if isinstance(comp_raw, list) else []
+    for i, c in enumerate(compensators):
+        tab = raw[i] if i < len(raw) and isinstance(raw[i], Mapping) else {}
+        factor(c.compensator, tab, f"compensator[{i}]")
+
+    lo = hi = None
+    for f, key in freqs:
+        if lo is None or hi is None:
+            lo = hi = (f, key)
+            continue
+        if f < lo[0]:
+            lo = (f, key)
+        elif f > hi[0]:
+            hi = (f, key)
+        else:
+            continue
+        if hi[0] > FREQ_SPAN * lo[0]:
+            other = hi if (f, key) == lo else lo
+            raise StudyFileError(
+                key, f"brings a frequency of {_fmt(f)} rad/s, a factor {_fmt(hi[0] / lo[0])} "
+                     f"from the {_fmt(other[0])} rad/s of `{other[1]}`; the numerical domain "
+                     f"allows a factor of at most {_fmt(FREQ_SPAN)} between a study's slowest "
+                     "and fastest frequency (nonzero roots, 1/delay, crossover targets)"
+            )
+    f_lo = lo[0] if lo else 1.0
+    f_hi = hi[0] if hi else 1.0
+    points = (f_lo / MAGNITUDE_REACH, f_hi * MAGNITUDE_REACH)
+    loops = [(plant, "plant", "the plant's")]
+    loops += [(plant * c.compensator, f"compensator[{i}]", "the loop's")
+              for i, c in enumerate(compensators)]
+    for loop, key, whose in loops:
+        for w in points:
+            s = 1j * w
+            num = math.log10(abs(loop.gain)) + sum(math.log10(abs(s - z)) for z in loop.zeros)
+            den = sum(math.log10(abs(s - p)) for p in loop.poles)
+            worst = max(abs(num), abs(den))
+            if worst > MAGNITUDE_DECADES:
+                raise StudyFileError(
+                    key, f"makes {whose} products |gain|·Π|jω − z| or Π|jω − p| reach "
+                         f"1e{'+' if max(num, den) >= worst else '-'}{round(worst)} at "
+                         f"ω = {_fmt(w)} rad/s; the numerical domain keeps them within "
+                         f"1e±{round(MAGNITUDE_DECADES)} (fewer roots far from 1 rad/s, or "
+                         "another time unit, e.g. ms or h)"
+                )
+
+
 # -- scalar validators --------------------------------------------------------------------
 def _number(
     value: Any,
@@ -553,9 +814,9 @@ def _int(value: Any, key: str, *, low: int | None = None, high: int | None = Non
         raise StudyFileError(key, f"must be {what}, got {_describe(value)}")
     if low is not None and value < low:
         raise StudyFileError(key, f"must be {what}" + ("" if low == 0 else f" ≥ {low}")
-                             + f", got {value}")
+                             + f", got {_fmt_int(value)}")
     if high is not None and value > high:
-        raise StudyFileError(key, f"must be at most {high}, got {value}")
+        raise StudyFileError(key, f"must be at most {high}, got {_fmt_int(value)}")
     return int(value)
 
 
@@ -568,6 +829,11 @@ def _opt_string(tab: Mapping[str, Any], key: str, where: str) -> str | None:
         raise StudyFileError(full, f"must be a string, got {_describe(v)}")
     if "\n" in v or "\r" in v:
         raise StudyFileError(full, "must be a single line")
+    if any(_is_control(ch) for ch in v):
+        raise StudyFileError(full, f"must not contain control characters, got {_describe(v)}")
+    if len(v) > MAX_NAME_LENGTH:
+        raise StudyFileError(full, f"has {len(v)} characters; at most {MAX_NAME_LENGTH} "
+                                   "are allowed")
     return v
 
 
@@ -613,11 +879,16 @@ def _fmt(v: float) -> str:
         return "nan"
     if math.isinf(v):
         return "inf" if v > 0 else "-inf"
-    return f"{v:.12g}"
+    return f"{v:.6g}"
 
 
 def _fmt_root(r: complex) -> str:
-    return f"{r.real:.12g}{r.imag:+.12g}j"
+    return f"{r.real:.6g}{r.imag:+.6g}j"
+
+
+def _fmt_int(v: int) -> str:
+    """An integer for a message; a huge one in 6 significant digits."""
+    return str(v) if abs(v) < 10**15 else _fmt(_to_float(v))
 
 
 _TYPE_NAMES: dict[type, str] = {
@@ -633,9 +904,10 @@ def _describe(value: Any) -> str:
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, float):
-        return repr(value) if math.isfinite(value) else _fmt(value)
+        r = repr(value)
+        return r if len(r) <= 10 and math.isfinite(value) else _fmt(value)
     if isinstance(value, int):
-        return str(value)
+        return _fmt_int(value)
     if isinstance(value, str):
         text = value if len(value) <= 40 else value[:37] + "..."
         return repr(_one_line(text))

@@ -81,6 +81,10 @@ _HW_DELAY = 0.2
 _MAX_INTERVALS = 2**17  # per design: the horizon cap is _MAX_INTERVALS · h
 _CHUNK_FLOATS = 2**22  # working-set budget per chunk of designs (floats)
 _MIN_INTERVALS = 64
+# Horizon doublings before a row that has neither settled nor diverged is given up
+# (None metrics): without it a loop whose slowest closed-loop mode rounds to e^0 per step
+# (a loop gain of 1e-12, say) doubled its horizon until the step overflowed to inf.
+_MAX_DOUBLINGS = 48
 # Samples per delay: above _SUB_FOLD, roots beyond ω_far = _HW_DELAY·_SUB_FOLD/τ are
 # folded into the delay (explorer.farroots); a row still needing more than _MAX_SUB
 # (the delay-line map holds ~12·N² floats per design) is not simulated (None).
@@ -994,7 +998,9 @@ def _check(tr: _Traj, rows: _Rows, band: float) -> tuple[np.ndarray, np.ndarray]
     for dev in (dy, du, dl):
         w1, w3, w4 = wmax(dev, first), wmax(dev, third), wmax(dev, fourth)
         decaying &= (w4 < w3) | (w4 <= 1e-10 * np.maximum(w1, 1e-300))
-        diverged |= w4 > 1e8 * np.maximum(w1, 1.0)
+        # relative to the first half's deviation (an absolute floor of 1 called a
+        # control signal of size 1e12 diverged: plant gain 1e-12, compensator 1e12)
+        diverged |= w4 > 1e8 * np.maximum(w1, 1e-300)
     settled = y_settled & u_settled & l_settled & (decaying | ~rows.check_decay) & tr.finite
     return settled & ~diverged, diverged
 
@@ -1186,11 +1192,13 @@ def _run_chunk(plan: _Plan, idx: np.ndarray, band: float) -> dict[str, np.ndarra
     res = {k: np.full(bsz, np.nan) for k in METRIC_KEYS}
     active = np.arange(bsz)
     t_end = max(float(np.max(plan.t0_row[idx])), _MIN_INTERVALS * sim.h)
+    doublings = 0
     while active.size:
         sim.advance(t_end)
         tr = sim.traj()
         settled, diverged = _check(tr, rows, band)
-        done = settled | diverged | (sim.k >= _MAX_INTERVALS)
+        done = settled | diverged | (sim.k >= _MAX_INTERVALS) | (doublings >= _MAX_DOUBLINGS)
+        doublings += 1
         keep = np.nonzero(settled)[0]
         if keep.size:
             met = _metrics(tr, keep, rows.take(keep), band)
@@ -1411,7 +1419,7 @@ def simulate_steps(
     sim = _Sim(plan, np.array([0]))
     if t_end_s is None:
         t_end = max(float(plan.t0_row[0]), _MIN_INTERVALS * sim.h)
-        while True:
+        for _ in range(_MAX_DOUBLINGS):
             sim.advance(t_end)
             tr = sim.traj()
             settled, diverged = _check(tr, plan.rows, 0.02)
