@@ -41,7 +41,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from explorer.errors import DesignError
-from explorer.loop import ROOT_TOL, Rational
+from explorer.loop import ROOT_TOL, Rational, feedback_sign
 from explorer.study import Targets
 
 __all__ = [
@@ -258,10 +258,9 @@ def _validate(plant: Rational, targets: Targets) -> tuple[float, float, int]:
 
 
 def _gain_sign(plant: Rational) -> int:
-    """Sign of the compensator gain: loop roots-form gain sign = (−1)^n_rhp_zeros."""
-    n_rhp_z = sum(1 for z in plant.zeros if _is_rhp(z))
-    want = -1 if n_rhp_z % 2 else 1
-    return want if plant.gain > 0 else -want
+    """Sign of the compensator gain: loop roots-form gain sign = (−1)^n_rhp_zeros
+    (explorer.loop.feedback_sign, the one rule every design method uses)."""
+    return int(feedback_sign(plant))
 
 
 def _target_phase_deg(plant: Rational, pm: float) -> float:

@@ -1,7 +1,8 @@
 """``loopscout explore STUDY --out DIR``: tune every candidate structure, rank, report.
 
-Prints the answer first (the lowest order that meets targets and limits, and why
-the others cannot), then the ranked table with units; ``--json`` prints the
+Prints the answer first (the recommended design, why, and what each alternative
+buys; explorer.recommend), then why other structures cannot, then the ranked table
+with units (the recommended design first); ``--json`` prints the
 designs.json object instead. Files: DIR/designs.json, DIR/designs.csv,
 DIR/report.html and the resumable trial storage DIR/explore.journal.
 """
@@ -19,9 +20,10 @@ _COLUMNS = (
     ("phase_margin_deg", "PM deg", "{:.1f}"),
     ("gain_margin_db", "GM dB", "{:.1f}"),
     ("sensitivity_peak", "Ms", "{:.3f}"),
-    ("hf_gain", "hf gain", "{:.3g}"),
+    ("noise_gain", "noise gain", "{:.3g}"),
     ("iae_load", "IAE load", "{:.3g}"),
     ("overshoot_pct", "overshoot %", "{:.1f}"),
+    ("settling_time_s", "settling s", "{:.3g}"),
 )
 
 

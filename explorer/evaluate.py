@@ -13,6 +13,7 @@ from typing import Any
 
 from explorer.loop import Rational
 from explorer.metrics import frequency_metrics
+from explorer.noise import noise_figures, pole_ratio
 from explorer.study import DEFAULT_CROSSOVER_TOLERANCE, LIMIT_KEYS, Study, Targets
 
 __all__ = [
@@ -67,6 +68,9 @@ METRIC_UNITS: dict[str, tuple[str, str]] = {
     "hf_gain": ("hf gain |C(j∞)|", "-"),
     "integral_gain": ("integral gain", "1/s"),
     "iae_load": ("IAE load step", "-"),
+    "noise_gain": ("noise gain", "-"),
+    "noise_gain_ratio": ("noise / crossover gain", "-"),
+    "pole_ratio": ("fastest pole / crossover", "-"),
 }
 
 #: interface.md: a numeric target crossover must be a gain crossover within this
@@ -89,6 +93,9 @@ def design_metrics(plant: Rational, comp: Rational) -> dict[str, Any]:
     from explorer.timeresp import step_metrics
 
     out = frequency_metrics(plant, comp)
+    wc = out.get("crossover_rad_s")
+    out["noise_gain"], out["noise_gain_ratio"] = noise_figures(comp, wc)
+    out["pole_ratio"] = pole_ratio(comp, wc)
     stable = bool(out["closed_loop_stable"])
     if stable:
         tm = step_metrics(plant, comp, stable=True)

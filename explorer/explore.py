@@ -19,10 +19,11 @@ from typing import Any
 import numpy as np
 
 from explorer.errors import LoopscoutError
-from explorer.evaluate import evaluated_record
+from explorer.evaluate import evaluated_record, given_designs
+from explorer.recommend import drop_near_duplicates, practical_misses, recommend
 from explorer.loop import Rational
 from explorer.structures import Structure, candidate_structures
-from explorer.study import Study, load_study
+from explorer.study import LIMIT_KEYS, MAX_SEARCH_ORDER, Study, load_study
 
 __all__ = ["ExploreResult", "explore", "make_problem", "CAUTION", "PARETO_PICKS"]
 
@@ -51,46 +52,54 @@ def _plant_scale(plant: Rational) -> float:
     return float(np.exp(np.mean(np.log(mags)))) if mags else 1.0
 
 
+def search_limits(study: Study) -> dict[str, float]:
+    """The bounds the search enforces: the study's ``[limits]`` and its step-response
+    requirements (``targets.overshoot``/``settling_time``, interface.md "Requirements
+    are checked"), the tighter one where both bound the same key."""
+    out = dict(study.limits)
+    for key, req in study.targets.requirements.items():
+        out[key] = min(out.get(key, math.inf), req)
+    return out
+
+
 def make_problem(study: Study):  # -> explorer.tune.Problem
     """The tuning problem of a study. A phase-margin target is balanced exactly; without
     one the margin is searched from the floor (``limits.phase_margin_deg``, else 30°)
-    to 85° (explorer.tune.PM_SEARCH_DEG); a crossover range (or none) is searched too."""
+    to 85° (explorer.tune.PM_SEARCH_DEG); a crossover range (or none) is searched too.
+    A phase margin derived from an overshoot requirement is a floor, searched upward:
+    phase-margin designs often overshoot more than the second-order estimate, and a
+    larger margin is how a design meets the overshoot it was derived from."""
     from explorer.tune import PM_SEARCH_DEG, Problem
 
     t = study.targets
     pm_range: tuple[float, float] | None = None
     if t.phase_margin_deg is not None:
         pm = float(t.phase_margin_deg)
+        if t.requirements and pm < PM_SEARCH_DEG[1]:
+            pm_range = (pm, PM_SEARCH_DEG[1])
     else:
         pm = float(study.limits.get("phase_margin_deg", PM_SEARCH_DEG[0]))
         if pm < PM_SEARCH_DEG[1]:
             pm_range = (pm, PM_SEARCH_DEG[1])
+    common = dict(
+        plant=study.plant,
+        targets=t,
+        limits=search_limits(study),
+        pm_deg=pm,
+        pm_range_deg=pm_range,
+        max_pole_ratio=study.search.max_pole_ratio,
+        crossover_tol=t.crossover_tolerance,
+    )
     wc = t.crossover_rad_s
     if isinstance(wc, (int, float)):
-        return Problem(
-            plant=study.plant,
-            targets=t,
-            limits=study.limits,
-            pm_deg=pm,
-            wc_rad_s=float(wc),
-            wc_range_rad_s=None,
-            pm_range_deg=pm_range,
-        )
+        return Problem(wc_rad_s=float(wc), wc_range_rad_s=None, **common)
     if isinstance(wc, tuple):
         rng = (float(wc[0]), float(wc[1]))
     else:
         s0 = _plant_scale(study.plant)
         hi = 20.0 * s0 if study.plant.delay_s <= 0 else min(20.0 * s0, 2.0 / study.plant.delay_s)
         rng = (s0 / 50.0, hi)
-    return Problem(
-        plant=study.plant,
-        targets=t,
-        limits=study.limits,
-        pm_deg=pm,
-        wc_rad_s=None,
-        wc_range_rad_s=rng,
-        pm_range_deg=pm_range,
-    )
+    return Problem(wc_rad_s=None, wc_range_rad_s=rng, **common)
 
 
 def _pick(records: list[Any], searched_wc: bool) -> list[tuple[Any, str]]:
@@ -284,8 +293,21 @@ def _refined(
     return out
 
 
+#: How each constraint reads in a "why not" line, in the order a trial's first broken
+#: one is taken as its reason (every trial counted once, so the counts add up).
+_REASONS = {
+    "phase_balance_deg": "phase margin out of reach at the crossover",
+    "closed_loop_unstable": "closed loop unstable",
+    "crossover_missed": "crossover not where targeted",
+    "phase_margin_short_deg": "smallest phase margin below target (another crossover)",
+    "practical:max_pole_ratio": "a compensator pole beyond search.max_pole_ratio × ωc",
+}
+
+
 def _why_not(s: Structure, records: list[Any], pm_deg: float) -> str:
-    """Why a structure has no design meeting targets and limits."""
+    """Why a structure has no design meeting targets and limits: every trial counted
+    once under its first broken constraint (or its failed evaluation), largest count
+    first, so the counts add up to the trials."""
     if not records:
         return "no finished trials"
     bal = [r for r in records if r.constraints.get("phase_balance_deg", 0.0) > 0]
@@ -297,27 +319,31 @@ def _why_not(s: Structure, records: list[Any], pm_deg: float) -> str:
         )
     counts: dict[str, int] = {}
     for r in records:
-        for k, v in r.constraints.items():
-            if v > 0 and k != "phase_balance_deg":
-                counts[k] = counts.get(k, 0) + 1
-    if not counts:
-        fails = [r.reason for r in records if r.reason]
-        return fails[0] if fails else "no feasible trial"
-    worst = max(counts, key=lambda k: counts[k])
-    label = {
-        "closed_loop_unstable": "closed loop unstable",
-        "crossover_missed": "crossover not where targeted",
-        "phase_margin_short_deg": "smallest phase margin below target (another crossover)",
-    }.get(worst, worst.replace("limit:", "breaks the limit "))
-    best_ms = [
-        r.metrics.get("sensitivity_peak") for r in records if r.metrics.get("sensitivity_peak")
-    ]
-    extra = (
-        f"; best Ms reached {min(best_ms):.3g}"
-        if best_ms and worst == "limit:sensitivity_peak"
-        else ""
-    )
-    return f"{label} in {counts[worst]}/{len(records)} trials{extra}"
+        broken = [k for k, v in r.constraints.items() if v > 0]
+        first = sorted(broken, key=lambda k: (k not in _REASONS, list(_REASONS).index(k)
+                                              if k in _REASONS else 0))
+        if r.reason:
+            key = "failed evaluation"
+        elif first:
+            key = first[0]
+        else:
+            key = "feasible, not kept after the re-check"
+        counts[key] = counts.get(key, 0) + 1
+    parts = []
+    for key, n in sorted(counts.items(), key=lambda kv: -kv[1]):
+        label = _REASONS.get(key, key.replace("limit:", "breaks the limit "))
+        extra = ""
+        if key == "phase_balance_deg":
+            extra = f" (best shortfall {min(r.constraints[key] for r in bal):.1f} deg)"
+        elif key.startswith("limit:"):
+            m = key.removeprefix("limit:")
+            vals = [r.metrics.get(m) for r in records
+                    if r.constraints.get(key, 0) > 0 and r.metrics.get(m) is not None]
+            if vals:
+                best = max(vals) if LIMIT_KEYS.get(m) == "lower" else min(vals)
+                extra = f" (best {m} reached {best:.3g})"
+        parts.append(f"{n} {label}{extra}")
+    return f"{len(records)} trials: " + "; ".join(parts)
 
 
 def _hand_designs(study: Study) -> list[Any]:
@@ -435,6 +461,13 @@ def explore(
     if show:
         show.close()
     designs += _hand_records(study, hand)
+    designs += given_designs(study)
+    designs = drop_near_duplicates(designs)
+    answer, answer_lines = recommend(
+        designs, max_pole_ratio=study.search.max_pole_ratio, searched_wc=problem.searched_wc
+    )
+    for d in designs:
+        d["practical_misses"] = practical_misses(d, study.search.max_pole_ratio)
     frame = rank_designs(designs)
     pareto = dict(zip(frame["name"], frame["pareto"], strict=True)) if len(frame) else {}
     doms = dict(zip(frame["name"], frame["dominates_hand"], strict=True)) if len(frame) else {}
@@ -443,9 +476,10 @@ def explore(
         if d["origin"] == "optimized":
             d["dominates"] = list(doms.get(d["name"], []))
     order = {n: i for i, n in enumerate(frame["name"])} if len(frame) else {}
-    designs.sort(key=lambda d: order.get(d["name"], 10**6))
-    summary = _summary(study, structures, designs, why, n_trials)
+    designs.sort(key=lambda d: (d["name"] != answer["design"], order.get(d["name"], 10**6)))
+    summary = _summary(study, structures, designs, why, n_trials, answer_lines)
     obj = {
+        "answer": answer,
         "designs": designs,
         "study": _study_header(study),
         "summary": summary,
@@ -461,26 +495,15 @@ def _summary(
     designs: list[dict[str, Any]],
     why: dict[str, str],
     n_trials: int,
+    answer_lines: list[str],
 ) -> list[str]:
-    lines = []
-    ok = [d for d in designs if d["origin"] == "optimized" and d["meets_targets"]]
-    if ok:
-        low = min(d["order"] for d in ok)
-        best = min(
-            (d for d in ok if d["order"] == low), key=lambda d: d["metrics"]["sensitivity_peak"]
-        )
-        who = best["name"]
-        if not who.startswith(best["structure"]):
-            who = f"{best['structure']} ({who})"
-        lines.append(
-            f"answer: order {low} suffices — {who} "
-            f"meets the targets and limits with Ms {best['metrics']['sensitivity_peak']:.3g}"
-        )
-    else:
+    lines = list(answer_lines)
+    ok = [d for d in designs if d["meets_targets"]]
+    if not answer_lines:
         lines.append(
             "answer: no explored structure meets the targets and limits "
-            f"(up to order {study.search.max_order}); try a higher search.max_order, a "
-            "lower crossover or a looser limit (the reasons per structure follow)"
+            f"(up to order {study.search.max_order}); {_relax_hint(study, structures, why)} "
+            "(the reasons per structure follow)"
         )
     lines.append(f"explored {len(structures)} structures x {n_trials} trials")
     for label, reason in why.items():
@@ -489,6 +512,33 @@ def _summary(
         if d.get("dominates"):
             lines.append(f"{d['name']} dominates the hand design(s): {', '.join(d['dominates'])}")
     return lines
+
+
+def _relax_hint(study: Study, structures: list[Structure], why: dict[str, str]) -> str:
+    """What to change when nothing meets: only the changes the reasons point at — a
+    higher search.max_order only when it adds structures (and which), a lower
+    crossover or phase margin for phase out of reach or instability, the limit that
+    was broken, search.max_pole_ratio when that practical limit stopped designs."""
+    text = " ".join(why.values())
+    hints = []
+    if study.search.max_order < MAX_SEARCH_ORDER:
+        more = candidate_structures(
+            study.plant, study.targets, replace(study.search, max_order=MAX_SEARCH_ORDER)
+        )
+        have = {s.label for s in structures}
+        new = [s for s in more if s.label not in have]
+        if new:
+            first = min(new, key=lambda s: s.order)
+            hints.append(f"raise search.max_order to {first.order} (adds {first.label}"
+                         f"{' and others' if len(new) > 1 else ''})")
+    if "phase margin" in text or "unstable" in text or "crossover" in text:
+        hints.append("lower the crossover or the phase margin")
+    broken = sorted({k for k in study.limits if f"limit {k}" in text})
+    if broken:
+        hints.append("loosen " + ", ".join(f"limits.{k}" for k in broken))
+    if "max_pole_ratio" in text:
+        hints.append(f"raise search.max_pole_ratio (now {study.search.max_pole_ratio:g})")
+    return "try: " + "; or ".join(hints) if hints else "no single change is indicated"
 
 
 def _study_header(study: Study) -> dict[str, Any]:

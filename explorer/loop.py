@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["Rational", "LoopBatch", "roots_from_coefficients", "ROOT_TOL"]
+__all__ = ["Rational", "LoopBatch", "roots_from_coefficients", "feedback_sign", "ROOT_TOL"]
 
 #: Two roots closer than this (relative to their size) count as equal; a root whose
 #: real part is below this (relative to its modulus) counts as on the imaginary axis.
@@ -160,6 +160,28 @@ class Rational:
             "zeros": [root_to_json(r) for r in self.zeros],
             "poles": [root_to_json(r) for r in self.poles],
         }
+
+
+def feedback_sign(plant: Rational) -> float:
+    """The sign (+1.0 or −1.0) of the compensator gain that makes the loop negative
+    feedback: sign(k · Π(−z)) over the plant's zeros off the origin, i.e. the sign of
+    the lowest nonzero coefficient of the plant's numerator (for real z: the gain's
+    sign times (−1) to the number of right-half-plane zeros).
+
+    Why: with compensator zeros and poles in the closed left half plane (every
+    structure here), the closed-loop characteristic function f(s) = den(s) +
+    k_L·num(s)·e^(−sτ) (den monic) is real on the real axis and → +∞ as s → +∞. If
+    f(0) < 0 it has a real root in s > 0 (intermediate value theorem), so f(0) =
+    Π(−p_L) + k_L·Π(−z_L) > 0 is necessary for stability — with an integrator in the
+    loop Π(−p_L) = 0 and the condition is exactly k_L·Π(−z_L) > 0 (Routh–Hurwitz's
+    necessary condition that a stable polynomial's coefficients share one sign, here
+    its constant term, with the delay included). A reverse-acting plant (negative
+    gain) thus gets a negative compensator gain, and the loop it makes is the same
+    loop as its mirror's: every answer is unchanged by negating the plant gain."""
+    z = np.array([r for r in plant.zeros if abs(r) > 0], dtype=complex)
+    lead = plant.gain * float(np.prod(-z).real) if z.size else plant.gain
+    # real roots give a real product; conjugate pairs a positive one
+    return 1.0 if lead > 0 else -1.0
 
 
 def root_to_json(r: complex) -> float | str:

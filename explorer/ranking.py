@@ -2,9 +2,10 @@
 
 Non-dominated sorting (Deb et al., "A fast and elitist multiobjective genetic
 algorithm: NSGA-II", IEEE TEC 6(2), 2002, §III-A) over compensator order, Ms,
-hf_gain and iae_load, all minimised. Only designs meeting the targets and limits
-take part in the fronts; hand designs are reference points: each optimized design
-lists the hand designs it dominates.
+noise gain (explorer.noise: sup |C(jω)| above crossover, which unlike hf_gain does not
+read 0 for a roll-off) and iae_load, all minimised. Only designs meeting the targets
+and limits take part in the fronts; hand designs and the study's own designs are
+reference points: each optimized design lists the ones it dominates.
 """
 
 from __future__ import annotations
@@ -16,8 +17,10 @@ import pandas as pd
 
 __all__ = ["RANK_KEYS", "non_dominated_fronts", "rank_designs", "dominates"]
 
+#: Origins of the reference designs an optimized design is compared with.
+REFERENCE_ORIGINS = ("hand", "phase-balanced", "given")
 #: The criteria of the ranking, all minimised.
-RANK_KEYS = ("order", "sensitivity_peak", "hf_gain", "iae_load")
+RANK_KEYS = ("order", "sensitivity_peak", "noise_gain", "iae_load")
 
 
 def _matrix(rows: list[dict[str, Any]]) -> np.ndarray:
@@ -94,7 +97,7 @@ def rank_designs(designs: list[dict[str, Any]]) -> pd.DataFrame:
     front = np.full(len(rows), -1)
     idx = np.flatnonzero(meets)
     front[idx] = non_dominated_fronts(x[idx])
-    hand = np.array([r["origin"] in ("hand", "phase-balanced") for r in rows])
+    hand = np.array([r["origin"] in REFERENCE_ORIGINS for r in rows])
     dom = dominates(x, x)
     names = np.array([r["name"] for r in rows], dtype=object)
     dom_hand: list[list[str]] = []

@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from explorer.loop import Rational
+from explorer.loop import Rational, feedback_sign
 from explorer.study import SearchOptions, Targets
 
 __all__ = [
@@ -245,10 +245,13 @@ def balance(
     """Solve the balancing root from ∠L(jωc) = −180° + PM (mod 360°) and the gain
     from |L(jωc)| = 1, for a batch. Infeasible rows get the shortfall in degrees
     (distance of the needed phase from what the balancing root can give within its
-    bounds) and NaN roots/gain."""
+    bounds) and NaN roots/gain. The gain's sign is :func:`explorer.loop.feedback_sign`
+    (negative feedback); its −180° is part of the phase balanced, so a reverse-acting
+    plant gets the mirror of its twin's design."""
     wc = np.asarray(wc_rad_s, float)
     z, p = s.roots(params, wc)
-    plant_phase = np.degrees(plant.phase_rad(wc))
+    sign = feedback_sign(plant)
+    plant_phase = np.degrees(plant.phase_rad(wc)) + (0.0 if sign > 0 else -180.0)
     rest = plant_phase + _phase_deg(z, wc) - _phase_deg(p, wc)
     need = np.mod(loop_phase_target_deg(pm_deg) - rest, 360.0)  # in [0, 360)
     lo_r, hi_r = 10.0 ** BALANCE_BOUNDS[0], 10.0 ** BALANCE_BOUNDS[1]
@@ -270,7 +273,7 @@ def balance(
         p = np.concatenate([p, root[:, None]], axis=1)
     plant_lm = np.log(np.abs(plant.freqresp(wc)))
     lm = plant_lm + _log_mag(z, wc) - _log_mag(p, wc)
-    gain = np.where(ok, np.exp(-lm), np.nan)
+    gain = np.where(ok, sign * np.exp(-lm), np.nan)
     return Balance(gain=gain, zeros=z, poles=p, shortfall_deg=short)
 
 
@@ -337,7 +340,11 @@ def candidate_structures(
     plant poles, a notch-style zero pair on each lightly damped plant mode (ζ < 0.2,
     when ``cancel_lightly_damped``, or always when the plant has one), and extra
     roll-off poles. Only proper structures are returned."""
-    ni = max(targets.integrators - plant.n_integrators, 0)
+    need = max(targets.integrators - plant.n_integrators, 0)
+    # On a plant that brings the loop's integrators itself, a compensator integrator
+    # is still what removes the offset of a constant load at the plant input (the load
+    # sees the compensator, not the plant, between it and the error): explore both.
+    options = [need] + ([need + 1] if need == 0 and plant.n_integrators > 0 else [])
     max_order = search.max_order
     wc = targets.crossover_rad_s if isinstance(targets.crossover_rad_s, (int, float)) else None
     out: list[RootStructure] = []
@@ -364,71 +371,77 @@ def candidate_structures(
         seen.add(key)
         out.append(s)
 
-    for extra_poles in range(0, max_order - ni + 1):
-        for fz in range(0, extra_poles + ni + 1):
-            # balancing zero: zeros = fz + 1, poles = extra_poles
-            if fz + 1 <= ni + extra_poles:
-                add(
-                    RootStructure(
-                        label=_label(ni, fz, extra_poles, "zero"),
-                        integrators=ni,
-                        free_zeros=fz,
-                        free_poles=extra_poles,
-                        balance_root="zero",
-                    )
-                )
-        # balancing pole with free zeros (a roll-off solved from phase)
-        if extra_poles >= 1:
-            fp = extra_poles - 1
-            for fz in range(0, min(ni + extra_poles, 2) + 1):
-                if fz >= 1 or ni == 0:
+    for ni in options:
+        for extra_poles in range(0, max_order - ni + 1):
+            for fz in range(0, extra_poles + ni + 1):
+                # balancing zero: zeros = fz + 1, poles = extra_poles
+                if fz + 1 <= ni + extra_poles:
                     add(
                         RootStructure(
-                            label=_label(ni, fz, fp, "pole"),
+                            label=_label(ni, fz, extra_poles, "zero"),
                             integrators=ni,
                             free_zeros=fz,
-                            free_poles=fp,
-                            balance_root="pole",
+                            free_poles=extra_poles,
+                            balance_root="zero",
                         )
                     )
-    # PID with complex zeros and a balancing filter pole (+ roll-off)
-    if ni >= 1:
-        for fp in range(0, max_order - ni):
-            add(
-                RootStructure(
-                    label=_label(ni, 0, fp, "pole", cz=True),
-                    integrators=ni,
-                    free_poles=fp,
-                    complex_zeros=True,
-                    balance_root="pole",
-                )
-            )
-    # cancellation of slow stable plant poles, balancing pole
-    slow = _slow_stable_real_poles(plant, wc)
-    for nc in (1, 2):
-        if len(slow) >= nc:
+            # balancing pole with free zeros (a roll-off solved from phase)
+            if extra_poles >= 1:
+                fp = extra_poles - 1
+                for fz in range(0, min(ni + extra_poles, 2) + 1):
+                    if fz >= 1 or ni == 0:
+                        add(
+                            RootStructure(
+                                label=_label(ni, fz, fp, "pole"),
+                                integrators=ni,
+                                free_zeros=fz,
+                                free_poles=fp,
+                                balance_root="pole",
+                            )
+                        )
+        # PID with complex zeros and a balancing filter pole (+ roll-off)
+        if ni >= 1:
             for fp in range(0, max_order - ni):
                 add(
                     RootStructure(
-                        label=_label(ni, 0, fp, "pole", nc=nc),
+                        label=_label(ni, 0, fp, "pole", cz=True),
                         integrators=ni,
                         free_poles=fp,
-                        cancel=tuple(slow[:nc]),
+                        complex_zeros=True,
                         balance_root="pole",
                     )
                 )
-    # notch on a lightly damped mode: two roll-off poles and a balancing zero
-    for mode in _lightly_damped(plant):
-        for fp in range(2, max_order - ni + 1):
-            add(
-                RootStructure(
-                    label=_label(ni, 0, fp, "zero", notch=True),
-                    integrators=ni,
-                    free_poles=fp,
-                    notch=mode,
-                    balance_root="zero",
-                )
-            )
+        # cancellation of slow stable plant poles, balancing pole
+        slow = _slow_stable_real_poles(plant, wc)
+        for nc in (1, 2):
+            if len(slow) >= nc:
+                for fp in range(0, max_order - ni):
+                    add(
+                        RootStructure(
+                            label=_label(ni, 0, fp, "pole", nc=nc),
+                            integrators=ni,
+                            free_poles=fp,
+                            cancel=tuple(slow[:nc]),
+                            balance_root="pole",
+                        )
+                    )
+        # notch on a lightly damped mode: the notch's two poles (plus roll-off) and a
+        # balancing zero, with 0–2 free zeros besides (integrator + one free zero:
+        # PID·filter + notch, for a motion axis with a structural mode)
+        for mode in _lightly_damped(plant):
+            for fp in range(2, max_order - ni + 1):
+                for fz in range(0, 3):
+                    add(
+                        RootStructure(
+                            # the notch is its zero pair and two of the poles
+                            label=_label(ni, fz, fp - 2, "zero") + "+notch",
+                            integrators=ni,
+                            free_zeros=fz,
+                            free_poles=fp,
+                            notch=mode,
+                            balance_root="zero",
+                        )
+                    )
     # one structure per label: the same roots reached by another balancing root are dropped
     final: list[Structure] = []
     labels: set[str] = set()

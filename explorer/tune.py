@@ -81,6 +81,10 @@ class Problem:
     wc_range_rad_s: tuple[float, float] | None
     #: (floor, ceiling) deg when no phase-margin target is set: the margin is sampled
     pm_range_deg: tuple[float, float] | None = None
+    #: practical limit: no compensator pole off the origin faster than this × ωc
+    max_pole_ratio: float = math.inf
+    #: relative tolerance of a numeric crossover target (targets.crossover_tolerance)
+    crossover_tol: float = CROSSOVER_REL_TOL
 
     @property
     def searched_wc(self) -> bool:
@@ -126,6 +130,7 @@ def constraint_names(limits: dict[str, float]) -> list[str]:
         "closed_loop_unstable",
         "crossover_missed",
         "phase_margin_short_deg",
+        "practical:max_pole_ratio",
         *[f"limit:{k}" for k in limits],
     ]
 
@@ -195,7 +200,8 @@ def evaluate_batch(
             xs = np.asarray(fm["crossovers_rad_s"], float).reshape(idx.size, -1)
             rel = np.abs(xs / wc_rad_s[idx, None] - 1.0)
             rel = np.where(np.isnan(rel), np.inf, rel)
-            cross_ok[idx] = np.maximum(rel.min(axis=1, initial=np.inf) - CROSSOVER_REL_TOL, 0.0)
+            cross_ok[idx] = np.maximum(rel.min(axis=1, initial=np.inf) - problem.crossover_tol,
+                                       0.0)
         except Exception as exc:  # a failed evaluation is a failed trial, never a crash
             for i in idx:
                 fail[i] = f"evaluation failed: {type(exc).__name__}: {exc}"
@@ -212,6 +218,7 @@ def evaluate_batch(
             ),
             0.0,
         ),
+        np.where(ok, _pole_ratio_excess(b.poles, wc_rad_s, problem.max_pole_ratio), 0.0),
     ]
     wc_t = problem.targets.crossover_rad_s
     if isinstance(wc_t, tuple):
@@ -265,6 +272,17 @@ def evaluate_batch(
         "fail": fail,
         "feasible": np.all(constraints <= 0.0, axis=1),
     }
+
+
+def _pole_ratio_excess(poles: np.ndarray, wc_rad_s: np.ndarray, ratio: float) -> np.ndarray:
+    """log10 excess of the fastest compensator pole off the origin over ``ratio``·ωc
+    (0 where every pole is slow enough; the practical limit search.max_pole_ratio)."""
+    if poles.shape[1] == 0 or not math.isfinite(ratio):
+        return np.zeros(poles.shape[0])
+    mag = np.where(np.isfinite(poles), np.abs(poles), 0.0).max(axis=1)
+    with np.errstate(divide="ignore"):
+        excess = np.log10(mag / (ratio * wc_rad_s))
+    return np.maximum(np.nan_to_num(excess, nan=0.0, neginf=0.0), 0.0)
 
 
 # -- storage ---------------------------------------------------------------------------

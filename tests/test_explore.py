@@ -205,4 +205,5 @@ def test_hand_design_above_max_order_is_polished_in_its_own_structure(tmp_path: 
     assert polished and all(d["origin"] == "optimized" and d["order"] == 4 for d in polished)
     assert polished[0]["meets_targets"]
     assert polished[0]["metrics"]["sensitivity_peak"] <= pb["metrics"]["sensitivity_peak"]
-    assert res.summary[1] == "explored 6 structures x 16 trials"  # the extra one is not searched
+    # the extra structure is not searched, so not counted
+    assert "explored 6 structures x 16 trials" in res.summary

@@ -90,4 +90,23 @@ def test_plant_integrator_counts_towards_required() -> None:
     plant = Rational(gain=1.0, poles=(0.0, -2.0))
     targets = Targets(crossover_rad_s=0.5, phase_margin_deg=50.0, integrators=1)
     structs = candidate_structures(plant, targets, SearchOptions(max_order=1))
-    assert structs and all(s.integrators == 0 for s in structs)
+    # the plant's integrator makes the loop's type: P-type structures suffice for it...
+    assert any(s.integrators == 0 for s in structs)
+    # ...and structures with one integrator more are offered for load rejection
+    # (a constant load at the plant input leaves an offset under P-type control)
+    assert {s.integrators for s in structs} == {0, 1}
+    # a loop type the plant does not reach is never offered without its integrators
+    plain = Rational(gain=1.0, poles=(-1.0, -2.0))
+    assert all(s.integrators == 1 for s in candidate_structures(plain, targets,
+                                                               SearchOptions(max_order=2)))
+
+
+def test_pid_filter_plus_notch_offered_for_a_lightly_damped_mode() -> None:
+    # a motion axis of our own: rigid body plus a 80 Hz mode at damping 0.02
+    wn = 2 * 3.141592653589793 * 80.0
+    mode = complex(-0.02 * wn, wn * (1 - 0.02**2) ** 0.5)
+    plant = Rational(gain=wn**2, poles=(0.0, -5.0, mode, mode.conjugate()))
+    targets = Targets(crossover_rad_s=60.0, phase_margin_deg=45.0, integrators=2)
+    labels = {s.label: s for s in candidate_structures(plant, targets, SearchOptions(max_order=4))}
+    s = labels["PID·filter+notch"]
+    assert (s.integrators, s.order, s.n_zeros) == (1, 4, 4) and s.notch is not None

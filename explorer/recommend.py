@@ -1,0 +1,203 @@
+"""The one design recommended to a practitioner, and what each alternative buys.
+
+The rule (docs/explore.md, "The answer"), applied to the designs that meet every
+target, requirement and limit:
+
+1. **Practical limits first.** Designs whose fastest compensator pole lies within
+   ``search.max_pole_ratio`` × ωc (common practice; explorer.study) are preferred; only
+   when none does is the answer taken from the rest, and the reason says so.
+2. **Load rejection.** A design that removes a constant load at the plant input (a
+   finite ``iae_load``) is preferred over one that leaves an offset, whatever its order.
+3. **Lowest order.** The job is the lowest-order design that meets the spec.
+4. **Balance within that order**, by the cost
+   ``W_MS·ln Ms + W_NOISE·(ln noise_gain + ln noise_gain_ratio)/2 + W_IAE·ln iae_load
+   + W_SETTLE·ln settling_time_s − W_SPEED·ln ωc`` (the last term only when the
+   crossover is searched: faster is better). Only ratios between designs matter, so
+   the choice is unchanged by scaling time, plant gain or the sign of the plant gain.
+   The weights say what one factor is worth: 1 % of Ms weighs as much as 10 % of
+   noise gain, of load IAE or of settling time (our choice, written down here).
+
+Near-duplicates (same structure, figures within a fraction of a percent) are listed
+once (:func:`drop_near_duplicates`).
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+__all__ = ["W_MS", "W_NOISE", "W_IAE", "W_SETTLE", "W_SPEED", "cost", "recommend",
+           "drop_near_duplicates", "practical_misses"]
+
+W_MS = 10.0
+W_NOISE = 1.0
+W_IAE = 1.0
+W_SETTLE = 1.0
+W_SPEED = 1.0
+#: ln-penalty for a figure that is missing (null): as if 10× the worst present.
+_MISSING = math.log(10.0)
+
+
+def practical_misses(d: dict[str, Any], max_pole_ratio: float) -> list[str]:
+    """Why a design breaks the practical limits (empty when it keeps them)."""
+    r = d["metrics"].get("pole_ratio")
+    if r is not None and r > max_pole_ratio * (1.0 + 1e-9):
+        return [f"fastest compensator pole {r:.3g}× the crossover > {max_pole_ratio:g}× "
+                "(search.max_pole_ratio)"]
+    return []
+
+
+def _ln(v: Any) -> float | None:
+    return math.log(v) if isinstance(v, (int, float)) and v > 0 and math.isfinite(v) else None
+
+
+def cost(designs: list[dict[str, Any]], searched_wc: bool) -> list[float]:
+    """The balance cost of each design (lower is better), comparable within the list:
+    a missing figure costs ln 10 more than the list's worst."""
+    terms: list[tuple[str, float]] = [
+        ("sensitivity_peak", W_MS), ("noise_gain", W_NOISE / 2), ("noise_gain_ratio", W_NOISE / 2),
+        ("iae_load", W_IAE), ("settling_time_s", W_SETTLE),
+    ]
+    if searched_wc:
+        terms.append(("crossover_rad_s", -W_SPEED))
+    out = [0.0] * len(designs)
+    for key, w in terms:
+        vals = [_ln(d["metrics"].get(key)) for d in designs]
+        present = [v for v in vals if v is not None]
+        worst = (max(present) if w > 0 else min(present)) if present else 0.0
+        for i, v in enumerate(vals):
+            out[i] += w * (v if v is not None else worst + math.copysign(_MISSING, w))
+    return out
+
+
+def drop_near_duplicates(designs: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The optimized designs without near-copies of an earlier one in the list (same
+    order and verdict; Ms, crossover within 0.2 %; noise gain, load IAE, settling
+    within 3 % — two structures can converge on one design, e.g. a PID·filter whose
+    real zeros meet the complex-zero one's); other origins are kept as they are (they
+    are named references)."""
+    tol = {"sensitivity_peak": 2e-3, "crossover_rad_s": 2e-3, "noise_gain": 3e-2,
+           "iae_load": 3e-2, "settling_time_s": 3e-2}
+    kept: list[dict[str, Any]] = []
+    for d in designs:
+        if d["origin"] == "optimized" and any(
+            k["origin"] == "optimized" and k["order"] == d["order"]
+            and k["meets_targets"] == d["meets_targets"]
+            and all(_close(k["metrics"].get(m), d["metrics"].get(m), t) for m, t in tol.items())
+            for k in kept
+        ):
+            continue
+        kept.append(d)
+    return kept
+
+
+def _close(a: Any, b: Any, rel: float) -> bool:
+    if a is None or b is None:
+        return a is None and b is None
+    return abs(a - b) <= rel * max(abs(a), abs(b), 1e-300)
+
+
+_CRITERIA = (  # (phrase, key, +1 lower is better / −1 higher is better)
+    ("lowest Ms", "sensitivity_peak", +1),
+    ("lowest noise gain", "noise_gain", +1),
+    ("lowest load IAE", "iae_load", +1),
+    ("fastest settling", "settling_time_s", +1),
+)
+_NOUN = {"sensitivity_peak": "Ms", "noise_gain": "noise gain", "iae_load": "load IAE",
+         "settling_time_s": "settling time", "crossover_rad_s": "crossover",
+         "order": "order"}
+
+
+def _change(key: str, a: float, b: float, sense: int) -> str:
+    """How b compares with a on ``key``, as a buyer reads it ("0.6 % less Ms",
+    "3.1× the noise gain")."""
+    noun = _NOUN[key]
+    if key == "order":
+        return f"order {int(b)}"
+    r = b / a if a else math.inf
+    if r >= 1.5:
+        return f"{r:.2g}× the {noun}"
+    if r <= 1 / 1.5:
+        return f"{1 / r:.2g}× {'less' if sense > 0 else 'lower'} {noun}" if r > 0 else f"no {noun}"
+    pct = abs(r - 1) * 100
+    word = ("less" if r < 1 else "more") if key != "crossover_rad_s" else (
+        "faster" if r > 1 else "slower")
+    return f"{pct:.2g} % {word} {noun}"
+
+
+def _tradeoff(ans: dict[str, Any], alt: dict[str, Any], key: str, sense: int,
+              searched_wc: bool) -> str:
+    gain = _change(key, ans["metrics"][key], alt["metrics"][key], sense)
+    costs = []
+    keys = [k for _, k, _ in _CRITERIA if k != key]
+    if searched_wc:
+        keys.append("crossover_rad_s")
+    for k in keys:
+        a, b = ans["metrics"].get(k), alt["metrics"].get(k)
+        if a is None or b is None or a <= 0 or b <= 0:
+            continue
+        s = -1 if k == "crossover_rad_s" else +1
+        worse = math.log(b / a) * s
+        if worse > math.log(1.05):
+            costs.append((worse, _change(k, a, b, s)))
+    if alt["order"] > ans["order"]:
+        costs.insert(0, (math.inf, f"order {alt['order']}"))
+    costs.sort(key=lambda c: -c[0])
+    tail = " for " + " and ".join(c for _, c in costs[:2]) if costs else ""
+    return f"{gain}{tail}"
+
+
+def recommend(
+    designs: list[dict[str, Any]], *, max_pole_ratio: float, searched_wc: bool
+) -> tuple[dict[str, Any], list[str]]:
+    """The interface ``answer`` object and the lines that explain it (the first is the
+    answer line; then one per alternative that is best at something)."""
+    ok = [d for d in designs if d.get("meets_targets")]
+    if not ok:
+        return {"design": None, "order": None, "why": "no design meets the targets, "
+                "requirements and limits"}, []
+    practical = [d for d in ok if not practical_misses(d, max_pole_ratio)]
+    pool = practical or ok
+    rejecting = [d for d in pool if d["metrics"].get("iae_load") is not None]
+    pool2 = rejecting or pool
+    low = min(d["order"] for d in pool2)
+    tier = [d for d in pool2 if d["order"] == low]
+    costs = cost(tier, searched_wc)
+    best = tier[min(range(len(tier)), key=lambda i: (costs[i], tier[i]["name"]))]
+    m = best["metrics"]
+    reasons = [f"order {low} is the lowest that meets every target, requirement and limit"
+               + (" and rejects a constant load at the plant input" if rejecting else "")]
+    if not practical:
+        reasons.append("no design keeps the practical limit "
+                       f"(poles within {max_pole_ratio:g}× the crossover): "
+                       + "; ".join(practical_misses(best, max_pole_ratio)))
+    if len(tier) > 1:
+        reasons.append(f"best balance of Ms, noise gain, load IAE and settling among "
+                       f"{len(tier)} designs of that order")
+    figs = [f"Ms {m['sensitivity_peak']:.3g}"]
+    if m.get("noise_gain") is not None:
+        ratio = m.get("noise_gain_ratio")
+        figs.append(f"noise gain {m['noise_gain']:.3g}"
+                    + (f" ({ratio:.2g}× its gain at crossover)"
+                       if ratio is not None and ratio >= 1.05 else ""))
+    if m.get("iae_load") is not None:
+        figs.append(f"load IAE {m['iae_load']:.3g}")
+    if m.get("settling_time_s") is not None:
+        figs.append(f"settling {m['settling_time_s']:.3g} s")
+    why = "; ".join(reasons) + ": " + ", ".join(figs)
+    whose = {"given": " (the study's own design)", "hand": " (a hand design)",
+             "phase-balanced": " (the phase-balanced hand design)"}.get(best["origin"], "")
+    lines = [f"answer: order {low} suffices — {best['name']}{whose} is recommended: {why}"]
+    seen = {best["name"]}
+    for phrase, key, sense in _CRITERIA:
+        have = [d for d in ok if d["metrics"].get(key) is not None]
+        if not have or best["metrics"].get(key) is None:
+            continue
+        alt = min(have, key=lambda d: (sense * d["metrics"][key], d["order"], d["name"]))
+        if alt["name"] in seen or alt["metrics"][key] == best["metrics"][key]:
+            continue
+        seen.add(alt["name"])
+        lines.append(f"  {phrase}: {alt['name']} — "
+                     f"{_tradeoff(best, alt, key, sense, searched_wc)}")
+    answer = {"design": best["name"], "order": low, "why": why}
+    return answer, lines
