@@ -148,21 +148,19 @@ def _design_from_study(study: Any, name: str) -> Any:
 
 
 def _design_from_file(path: str, name: str) -> Any:
-    from explorer.errors import LoopscoutError
+    from explorer.errors import LoopscoutError, StudyFileError
+    from explorer.study import read_text_file
 
     try:
-        with open(path, encoding="utf-8") as fh:
-            data = json.load(fh)
-    except FileNotFoundError:
-        raise LoopscoutError(f"--from {path}: no such file") from None
-    except IsADirectoryError:
-        raise LoopscoutError(f"--from {path}: is a directory (give DIR/designs.json)") from None
+        text = read_text_file(path, "--from file")
+    except StudyFileError as exc:
+        raise LoopscoutError(exc.message) from None
+    try:
+        data = json.loads(text)
     except json.JSONDecodeError as exc:
         raise LoopscoutError(f"--from {path}: not JSON ({exc.msg}, line {exc.lineno})") from None
-    except UnicodeDecodeError:
-        raise LoopscoutError(f"--from {path}: not UTF-8 text") from None
-    except OSError as exc:
-        raise LoopscoutError(f"--from {path}: cannot read it ({exc.strerror})") from None
+    except RecursionError:
+        raise LoopscoutError(f"--from {path}: JSON nested too deeply") from None
     if not isinstance(data, dict) or not isinstance(data.get("designs"), list):
         raise LoopscoutError(
             f"--from {path}: expected an object {{\"designs\": [...]}} as written by "
@@ -445,15 +443,16 @@ def _zfactored(gain: float, zeros: Sequence[Any], poles: Sequence[Any], var: str
 
 
 def _print_text(study: Any, comp: Any, obj: dict[str, Any]) -> None:
-    from explorer.cli import _factored
+    from explorer.cli import _factored, _safe
 
     T = obj["sample_time_s"]
     p = study.plant
-    print(f"study: {study.name}  ({study.source})")
+    print(_safe(f"study: {study.name}  ({study.source})"))
     print(f"plant: {_factored(p.gain, p.zeros, p.poles)}"
           + (f" * exp(-{p.delay_s:g} s)" if p.delay_s else ""))
     src = f"  (from {obj['source']['from']})" if obj["source"]["from"] else ""
-    print(f"design: {obj['design']}{src}   C(s) = {_factored(comp.gain, comp.zeros, comp.poles)}")
+    print(_safe(f"design: {obj['design']}{src}   "
+                f"C(s) = {_factored(comp.gain, comp.zeros, comp.poles)}"))
     print(f"sampling: T = {T:g} s ({1 / T:.4g} Hz), Nyquist frequency π/T = "
           f"{obj['nyquist_rad_s']:.4g} rad/s, computation delay {obj['compute_delay_s']:g} s")
     meth = {"tustin-prewarp": "Tustin prewarped at", "tustin": "Tustin (no prewarping)",

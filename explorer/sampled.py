@@ -236,7 +236,8 @@ def _group(comp: Rational) -> list[tuple[list[complex], list[complex]]]:
     for z in list(zc):
         if not pc:
             break
-        p = min(pc, key=lambda q, z=z: abs(math.log(abs(q) / abs(z))))
+        zmag = abs(z)
+        p = min(pc, key=lambda q: abs(math.log(abs(q) / zmag)))
         pc.remove(p)
         zc.remove(z)
         stages.append(([z, z.conjugate()], [p, p.conjugate()]))
@@ -317,9 +318,9 @@ def _kind(zeros: list[complex], poles: list[complex]) -> tuple[str, str]:
     if nz == 0 and npl == 1:
         return "roll-off", f"roll-off pole at {_fmt(abs(poles[0]))} rad/s"
     if nz == 0 and npl == 2:
-        p = poles[0]
-        return "roll-off", (f"second-order roll-off at {_fmt(abs(p))} rad/s, "
-                            f"damping {_damping(p):.3g}")
+        pp = poles[0]
+        return "roll-off", (f"second-order roll-off at {_fmt(abs(pp))} rad/s, "
+                            f"damping {_damping(pp):.3g}")
     if nz == 2 and npl == 2 and not zr:
         z = zeros[0]
         if any(p == 0 for p in poles):
@@ -489,7 +490,8 @@ def _block(num: np.ndarray, den: np.ndarray) -> tuple[np.ndarray, ...]:
     return A, B, C, np.array([[d]])
 
 
-def _series(first: tuple[np.ndarray, ...], second: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
+def _series(first: tuple[np.ndarray, ...],
+            second: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
     """u → first → second → y."""
     A1, B1, C1, D1 = first
     A2, B2, C2, D2 = second
