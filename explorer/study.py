@@ -112,6 +112,10 @@ FREQ_MIN = 1e-8
 FREQ_MAX = 1e8
 #: … and the largest is at most FREQ_SPAN times the smallest.
 FREQ_SPAN = 1e8
+#: A nonzero delay τ: 1/τ at most this factor above the study's slowest frequency (the
+#: delayed step response steps through every delay period of the slowest mode's horizon:
+#: a 1e-6 s delay on a 1 rad/s loop took 30 s, one of 1e-8 s would take hours).
+DELAY_SPAN = 1e4
 #: A crossover range [low, high] spans at most this factor.
 CROSSOVER_RANGE_SPAN = 1e4
 #: |gain| of the plant and of each compensator (roots form, or num[0]/den[0]).
@@ -564,7 +568,7 @@ def _poly_roots(coeffs: list[float], key: str) -> tuple[float, tuple[complex, ..
     with np.errstate(all="ignore"):
         cn = c / scale  # the roots do not change; keeps 1e-300-sized coefficients finite
         try:
-            lead, roots = roots_from_coefficients(cn)
+            lead, roots = roots_from_coefficients(cn.tolist())
         except np.linalg.LinAlgError:
             roots, lead = None, 0.0
         ok = roots is not None and all(math.isfinite(abs(r)) for r in roots)
@@ -754,6 +758,14 @@ def _check_domain(
                      f"allows a factor of at most {_fmt(FREQ_SPAN)} between a study's slowest "
                      "and fastest frequency (nonzero roots, 1/delay, crossover targets)"
             )
+    if plant.delay_s > 0 and lo is not None and 1.0 / plant.delay_s > DELAY_SPAN * lo[0]:
+        raise StudyFileError(
+            "plant.delay", f"of {_fmt(plant.delay_s)} s is shorter than the numerical domain "
+                           f"allows against the {_fmt(lo[0])} rad/s of `{lo[1]}`: 1/delay may "
+                           f"be at most {_fmt(DELAY_SPAN)} times the study's slowest frequency "
+                           f"(delay ≥ {_fmt(1.0 / (DELAY_SPAN * lo[0]))} s); give delay = 0 "
+                           "if it does not matter at these time scales"
+        )
     f_lo = lo[0] if lo else 1.0
     f_hi = hi[0] if hi else 1.0
     points = (f_lo / MAGNITUDE_REACH, f_hi * MAGNITUDE_REACH)
@@ -869,6 +881,8 @@ _BARE_KEY_CHARS = frozenset("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxy
 def _show_key(key: str) -> str:
     """A key as TOML would write it: bare if it can be, else a quoted, escaped string
     (so a key with a newline or a dot still gives a one-line message)."""
+    if len(key) > 40:
+        key = key[:37] + "..."
     if key and all(ch in _BARE_KEY_CHARS for ch in key):
         return key
     return json.dumps(key)

@@ -696,7 +696,7 @@ def _plants(draw):
     zeros = draw(st.permutations(_root_items(zero_reals, zero_pairs)))
     gain = draw(st.floats(min_value=1e-6, max_value=1e6) | st.floats(min_value=-1e6,
                                                                       max_value=-1e-6))
-    delay = draw(st.just(0.0) | st.floats(min_value=1e-3, max_value=100.0))
+    delay = draw(st.just(0.0) | st.floats(min_value=0.1, max_value=100.0))
     return gain, zeros, poles, delay
 
 
