@@ -1,10 +1,16 @@
 """Charts and the offline HTML report (the only module that imports altair).
 
 Data flow: DESIGN dicts (interface.md) -> tidy pandas frames (one function each)
--> small chart functions (frame in, chart out) -> one concatenated dashboard whose
-selection parameter ``pick`` (click a point or line, shift-click for more) highlights
-the same designs in every view -> one self-contained HTML page (the Vega bundle from
-vl-convert inlined, data inline, no network at view time).
+-> small chart functions (frame in, chart out) -> the charts by name
+(:func:`chart_specs`), each embedded in the page on its own and sharing the click
+selection ``pick`` (the page copies the selection between the charts), and
+exported one by one as PNG/SVG for slides. The page itself (tables, cards, text)
+is built in :mod:`explorer.report_page`, which has no altair.
+
+Every design keeps one line style in every chart and in the page's key
+(:func:`design_styles`): a colour per design and a dash per origin (solid for
+optimized and given designs, dashed for hand-style ones), a second dash when the
+colours run out, so two designs never look alike.
 
 Closed-loop magnitude contours on the gain-phase chart: |T| = |L/(1+L)| = M is the
 circle of centre -M^2/(M^2-1) and radius M/|M^2-1| in the L plane (the classical
@@ -16,11 +22,10 @@ point by point to (phase deg, magnitude dB).
 
 from __future__ import annotations
 
-import html
-import json
 import math
 import warnings
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal, cast
 
@@ -28,27 +33,33 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
-from explorer.caution import CAUTION
 from explorer.errors import DesignError, LoopscoutError
-from explorer.evaluate import METRIC_UNITS
 from explorer.loop import Rational
+from explorer.report_page import _root, factored
 from explorer.study import Study
-from explorer.timeresp import fold_threshold_rad_s
 
 __all__ = [
     "DEFAULT_MS",
     "MAX_RESPONSE_DESIGNS",
     "N_FREQ",
+    "FONT",
+    "PALETTE",
+    "DesignStyle",
+    "design_styles",
     "design_frame",
     "response_designs",
+    "recommended_name",
     "frequency_frame",
+    "plant_frame",
     "step_frame",
     "m_contour_frame",
+    "m_contour_labels",
     "ms_circle_frame",
     "chart_specs",
     "dashboard",
     "export_charts",
     "lowest_order_meeting",
+    "factored",
     "write_report",
 ]
 
@@ -57,22 +68,34 @@ DEFAULT_MS = 1.7
 MAX_RESPONSE_DESIGNS = 12
 N_FREQ = 300
 _HAND = ("hand", "phase-balanced")
-_PALETTE = ["#1b6f6a", "#d9822b", "#5b4b9a", "#b8404f", "#3f7fbf", "#7a8c2e", "#a0627a", "#2f4858"]
-_MISS_GREY = "#b9b9b4"
+#: Line colours, one per design in rank order (ten hues far apart, then dashes vary).
+PALETTE = (
+    "#1b6f6a",  # deep teal
+    "#d9822b",  # orange
+    "#5b4b9a",  # violet
+    "#b8404f",  # brick red
+    "#3f7fbf",  # blue
+    "#7a8c2e",  # olive
+    "#c2569c",  # magenta
+    "#8c5a2b",  # brown
+    "#2b2b2b",  # near black
+    "#c9a21a",  # mustard
+)
+#: Dash patterns: the first is by origin, the next ones are used when colours repeat.
+_DASHES = ([1, 0], [7, 3], [2, 2], [10, 3, 2, 3])
+_SHAPES = {"optimized": "circle", "given": "square", "hand": "diamond",
+           "phase-balanced": "triangle-up"}
 _INK = "#24302e"
-_FONT = "Source Sans 3, Segoe UI, Helvetica, Arial, sans-serif"
+_LIMIT_RED = "#b8404f"
+#: Quoted family names: an unquoted name starting with a digit ("Source Sans 3")
+#: makes the whole list invalid CSS, and the PNG renderer then draws no text at all.
+FONT = "'Source Sans 3', 'Segoe UI', Helvetica, Arial, 'Liberation Sans', sans-serif"
+_W = 400  # width of one chart (px)
 
 
 # ------------------------------------------------------------------------------------
-# tidy frames
+# designs: parsing, styles, selection
 # ------------------------------------------------------------------------------------
-def _root(v: Any) -> complex:
-    try:
-        return complex(v.replace(" ", "")) if isinstance(v, str) else complex(float(v))
-    except (TypeError, ValueError, AttributeError):
-        raise LoopscoutError(f"compensator root {v!r} is not a number or complex string") from None
-
-
 def _comp(d: dict[str, Any]) -> Rational:
     try:
         c = d["compensator"]
@@ -86,15 +109,79 @@ def _comp(d: dict[str, Any]) -> Rational:
 
 
 def _num(v: Any) -> float:
-    return float("nan") if v is None else float(v)
+    try:
+        return float("nan") if v is None else float(v)
+    except (TypeError, ValueError):
+        return float("nan")
 
 
-def design_frame(designs: Sequence[dict[str, Any]]) -> pd.DataFrame:
+def _check_designs(designs: Sequence[Any]) -> None:
+    for d in designs:
+        if not isinstance(d, dict) or "name" not in d or not isinstance(d.get("metrics"), dict):
+            raise LoopscoutError("every design needs at least 'name' and 'metrics'")
+
+
+@dataclass(frozen=True, kw_only=True)
+class DesignStyle:
+    """How one design is drawn everywhere: line colour, dash pattern, point shape."""
+
+    colour: str
+    dash: tuple[int, ...]
+    shape: str
+
+
+def design_styles(designs: Sequence[dict[str, Any]]) -> dict[str, DesignStyle]:
+    """One distinct style per design name, in the given (rank) order: colour by
+    position, dash by origin (hand-style designs dashed), and the next dash whenever a
+    (colour, dash) pair is already taken — no two designs share a look."""
+    out: dict[str, DesignStyle] = {}
+    taken: set[tuple[str, tuple[int, ...]]] = set()
+    for i, d in enumerate(designs):
+        name = str(d["name"])
+        if name in out:
+            continue
+        colour = PALETTE[i % len(PALETTE)]
+        k = 1 if d.get("origin") in _HAND else 0
+        while (colour, tuple(_DASHES[k % len(_DASHES)])) in taken and k < 16:
+            k += 1
+        dash = tuple(_DASHES[k % len(_DASHES)])
+        if (colour, dash) in taken:  # more than 40 designs: vary the colour instead
+            colour = f"hsl({(37 * i) % 360}, 55%, 38%)"
+        taken.add((colour, dash))
+        out[name] = DesignStyle(
+            colour=colour, dash=dash, shape=_SHAPES.get(str(d.get("origin")), "circle")
+        )
+    return out
+
+
+def recommended_name(
+    designs: Sequence[dict[str, Any]], answer: dict[str, Any] | None = None
+) -> str | None:
+    """The recommended design: ``answer["design"]`` when an answer is given (None
+    stays None), else the lowest-order design meeting every target, lowest Ms first
+    (the report's own pick for designs that come without an exploration answer)."""
+    names = {str(d["name"]) for d in designs}
+    if answer is not None:
+        n = answer.get("design")
+        return str(n) if n is not None and str(n) in names else None
+    ok = [d for d in designs if d.get("meets_targets")]
+    if not ok:
+        return None
+    best = min(
+        ok,
+        key=lambda d: (int(d.get("order", 0)), _num(d["metrics"].get("sensitivity_peak"))
+                       if d["metrics"].get("sensitivity_peak") is not None else math.inf),
+    )
+    return str(best["name"])
+
+
+def design_frame(
+    designs: Sequence[dict[str, Any]], recommended: str | None = None
+) -> pd.DataFrame:
     """One row per design: name, origin, structure, order, meets, pareto, hand, key metrics."""
+    _check_designs(designs)
     rows = []
     for d in designs:
-        if not isinstance(d, dict) or "name" not in d or "metrics" not in d:
-            raise LoopscoutError("every design needs at least 'name' and 'metrics'")
         m = d["metrics"]
         rows.append(
             {
@@ -105,6 +192,7 @@ def design_frame(designs: Sequence[dict[str, Any]]) -> pd.DataFrame:
                 "meets": bool(d.get("meets_targets")),
                 "pareto": bool(d.get("pareto")),
                 "hand": d.get("origin") in _HAND,
+                "recommended": str(d["name"]) == recommended,
                 "status": "meets targets" if d.get("meets_targets") else "misses targets",
                 "Ms": _num(m.get("sensitivity_peak")),
                 "hf_gain": _num(m.get("hf_gain")),
@@ -112,18 +200,33 @@ def design_frame(designs: Sequence[dict[str, Any]]) -> pd.DataFrame:
                 "crossover_rad_s": _num(m.get("crossover_rad_s")),
                 "phase_margin_deg": _num(m.get("phase_margin_deg")),
                 "overshoot_pct": _num(m.get("overshoot_pct")),
+                "peak_control": _num(m.get("peak_control")),
             }
         )
     return pd.DataFrame(rows)
 
 
-def response_designs(designs: Sequence[dict[str, Any]]) -> list[dict[str, Any]]:
-    """At most MAX_RESPONSE_DESIGNS: Pareto designs and hand designs first, then the rest."""
-    first = [d for d in designs if d.get("pareto") or d.get("origin") in _HAND]
+def response_designs(
+    designs: Sequence[dict[str, Any]], recommended: str | None = None
+) -> list[dict[str, Any]]:
+    """At most MAX_RESPONSE_DESIGNS, in the given order: the recommended design, the
+    Pareto and hand designs, then (when fewer than three of those) the rest."""
+    first = [
+        d for d in designs
+        if d.get("pareto") or d.get("origin") in _HAND or str(d["name"]) == recommended
+    ]
     rest = [d for d in designs if d not in first]
-    return (first + rest if len(first) < 3 else first)[:MAX_RESPONSE_DESIGNS]
+    chosen = (first + rest if len(first) < 3 else first)[:MAX_RESPONSE_DESIGNS]
+    if recommended is not None and all(str(d["name"]) != recommended for d in chosen):
+        rec = [d for d in designs if str(d["name"]) == recommended]
+        chosen = rec + chosen[: MAX_RESPONSE_DESIGNS - 1]
+    order = {id(d): i for i, d in enumerate(designs)}
+    return sorted(chosen, key=lambda d: order[id(d)])
 
 
+# ------------------------------------------------------------------------------------
+# tidy frames
+# ------------------------------------------------------------------------------------
 def _grid(study: Study, designs: Sequence[dict[str, Any]]) -> np.ndarray:
     wcs = [_num(d["metrics"].get("crossover_rad_s")) for d in designs]
     tc = study.targets.crossover_rad_s
@@ -131,7 +234,14 @@ def _grid(study: Study, designs: Sequence[dict[str, Any]]) -> np.ndarray:
         wcs += list(tc)
     elif tc is not None:
         wcs.append(float(tc))
-    wcs = [w for w in wcs if math.isfinite(w) and w > 0] or [1.0]
+    wcs = [w for w in wcs if math.isfinite(w) and w > 0]
+    if not wcs:  # no crossover known: span the plant's own corner frequencies
+        p = study.plant
+        wcs = [abs(r) for r in (*p.poles, *p.zeros) if abs(r) > 0]
+        if p.delay_s > 0:
+            wcs.append(1.0 / p.delay_s)
+        wcs = wcs or [1.0]
+        return np.logspace(math.log10(min(wcs)) - 1.5, math.log10(max(wcs)) + 1.5, N_FREQ)
     return np.logspace(math.log10(min(wcs)) - 2, math.log10(max(wcs)) + 2, N_FREQ)
 
 
@@ -162,33 +272,108 @@ def frequency_frame(study: Study, designs: Sequence[dict[str, Any]]) -> pd.DataF
     )
 
 
+def plant_frame(study: Study, designs: Sequence[dict[str, Any]] = ()) -> pd.DataFrame:
+    """The plant's own frequency response: omega_rad_s, mag_db, phase_deg (delay
+    included, continuous phase), on the same grid as the loops."""
+    w = _grid(study, designs)
+    pv = study.plant.freqresp(w)
+    with np.errstate(divide="ignore"):
+        mag = 20 * np.log10(np.abs(pv))
+    return pd.DataFrame(
+        {"omega_rad_s": w, "mag_db": mag, "phase_deg": np.degrees(study.plant.phase_rad(w))}
+    )
+
+
+def _last_outside(t: np.ndarray, y: np.ndarray, centre: float, half: float) -> float:
+    """Last time y is outside centre ± half (0 when never; the end when still outside)."""
+    out = np.flatnonzero(np.abs(y - centre) > half)
+    if out.size == 0:
+        return 0.0
+    k = int(out[-1])
+    return float(t[min(k + 1, t.size - 1)])
+
+
 def step_frame(
-    study: Study, designs: Sequence[dict[str, Any]], n_points: int = 400
+    study: Study,
+    designs: Sequence[dict[str, Any]],
+    n_points: int = 400,
+    focus: Sequence[str] | None = None,
 ) -> pd.DataFrame:
-    """Long frame: name, t_s, y, u for the unit reference step of each stable design."""
+    """Long frame: name, t_s, y, u (unit reference step) and y_load (unit load step at
+    the plant input, delay included) of each stable design.
+
+    The horizon is sized to the transients of the ``focus`` designs (default: the
+    stable designs meeting their targets, else all stable ones): 1.25 times the latest
+    of their 2 % settling times of y and of the load response (last time |y_load| is
+    above 2 % of its peak). Slower designs are cut there and listed in
+    ``frame.attrs["beyond"]`` (reference step: name -> its settling time, s) and
+    ``frame.attrs["beyond_load"]`` (names still recovering from the load step)."""
     from explorer.timeresp import simulate_steps
 
     stable = [d for d in designs if d["metrics"].get("closed_loop_stable")]
-    ts = [_num(d["metrics"].get("settling_time_s")) for d in stable]
-    ts = [t for t in ts if math.isfinite(t) and t > 0]
-    t_end = 1.5 * max(ts) if ts else None
-    parts = []
+    names = [str(d["name"]) for d in stable]
+    if focus is not None:
+        want = {str(n) for n in focus} & set(names)
+    else:
+        want = {str(d["name"]) for d in stable if d.get("meets_targets")}
+    want = want or set(names)
+    sims: dict[str, Any] = {}
+    need: dict[str, float] = {}
     for d in stable:
+        n = str(d["name"])
+        if n not in want:
+            continue
         try:
-            r = simulate_steps(study.plant, _comp(d), t_end_s=t_end)
+            sims[n] = simulate_steps(study.plant, _comp(d))
         except DesignError:  # a response the simulator cannot resolve is left out
             continue
-        idx = np.unique(np.linspace(0, r.t_s.size - 1, min(n_points, r.t_s.size)).astype(int))
-        parts.append(
-            pd.DataFrame(
-                {"name": str(d["name"]), "t_s": r.t_s[idx], "y": r.y_ref[idx], "u": r.u_ref[idx]}
+        r0 = sims[n]
+        t_ref = _num(d["metrics"].get("settling_time_s"))
+        if not math.isfinite(t_ref):
+            t_ref = _last_outside(r0.t_s, r0.y_ref, float(r0.y_ref[-1]), 0.02)
+        peak = float(np.max(np.abs(r0.y_load))) if r0.y_load.size else 0.0
+        t_load = _last_outside(r0.t_s, r0.y_load, float(r0.y_load[-1]), 0.02 * peak)
+        need[n] = max(t_ref, t_load)
+    known = [v for v in need.values() if math.isfinite(v) and v > 0]
+    t_view = 1.25 * max(known) if known else None
+    beyond: dict[str, float | None] = {}
+    beyond_load: list[str] = []
+    parts = []
+    for d in stable:
+        n = str(d["name"])
+        r = sims.get(n)
+        if r is None and n not in want:
+            try:
+                r = simulate_steps(study.plant, _comp(d), t_end_s=t_view)
+            except DesignError:
+                continue
+            ts = _num(d["metrics"].get("settling_time_s"))
+            peak = float(np.max(np.abs(r.y_load))) if r.y_load.size else 0.0
+            late = (
+                t_view is not None and r.y_load.size > 0
+                and abs(float(r.y_load[-1])) > 0.02 * peak
             )
+            if t_view is not None and (not math.isfinite(ts) or ts > t_view):
+                beyond[n] = ts if math.isfinite(ts) else None
+            if late:
+                beyond_load.append(n)
+        if r is None:
+            continue
+        keep = np.ones(r.t_s.size, bool) if t_view is None else r.t_s <= t_view * (1 + 1e-12)
+        t, y, u, yl = r.t_s[keep], r.y_ref[keep], r.u_ref[keep], r.y_load[keep]
+        idx = np.unique(np.linspace(0, t.size - 1, min(n_points, t.size)).astype(int))
+        parts.append(
+            pd.DataFrame({"name": n, "t_s": t[idx], "y": y[idx], "u": u[idx], "y_load": yl[idx]})
         )
-    return (
+    out = (
         pd.concat(parts, ignore_index=True)
         if parts
-        else pd.DataFrame(columns=["name", "t_s", "y", "u"])
+        else pd.DataFrame(columns=["name", "t_s", "y", "u", "y_load"])
     )
+    out.attrs["beyond"] = beyond
+    out.attrs["beyond_load"] = beyond_load
+    out.attrs["t_view"] = t_view
+    return out
 
 
 def _to_gain_phase(lv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -198,10 +383,17 @@ def _to_gain_phase(lv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ph, 20 * np.log10(np.abs(lv))
 
 
-def m_contour_frame(m_db: Sequence[float] = (-6, -3, -1, 0.5, 1, 2, 3, 6, 12)) -> pd.DataFrame:
+#: |T| contour levels (dB) of the gain-phase chart.
+M_CONTOURS_DB = (-6.0, -3.0, -1.0, 1.0, 3.0, 6.0)
+#: Visible window of the gain-phase chart: phase (deg) and magnitude (dB).
+_GP_PHASE = (-360.0, 0.0)
+_GP_MAG = (-30.0, 30.0)
+
+
+def m_contour_frame(m_db: Sequence[float] = M_CONTOURS_DB) -> pd.DataFrame:
     """Closed-loop |T| = M contours in gain-phase coordinates (M-circles, module doc)."""
     parts = []
-    th = np.linspace(-math.pi, math.pi, 361)
+    th = np.linspace(-math.pi, math.pi, 721)
     for mdb in m_db:
         m = 10 ** (mdb / 20)
         c, r = -m * m / (m * m - 1), m / abs(m * m - 1)
@@ -223,6 +415,26 @@ def m_contour_frame(m_db: Sequence[float] = (-6, -3, -1, 0.5, 1, 2, 3, 6, 12)) -
     return pd.concat(parts, ignore_index=True)
 
 
+def m_contour_labels(contours: pd.DataFrame) -> pd.DataFrame:
+    """One label point per contour inside the chart window: for |T| > 1 the top of
+    the closed contour (at −180°, where the levels are spread apart), else the point
+    nearest −100° (the right-hand side, where the open contours are spread apart)."""
+    rows = []
+    lo, hi = _GP_MAG[0] + 2, _GP_MAG[1] - 2
+    for mdb, g in contours.groupby("M_db", sort=True):
+        v = g[(g["mag_db"] > lo) & (g["mag_db"] < hi)
+              & (g["phase_deg"] > _GP_PHASE[0] + 10) & (g["phase_deg"] < _GP_PHASE[1] - 10)]
+        if v.empty:
+            continue
+        if float(mdb) > 0:
+            p = v.loc[v["mag_db"].idxmax()]
+        else:
+            p = v.loc[(v["phase_deg"] + 100.0).abs().idxmin()]
+        rows.append({"M_db": float(mdb), "text": f"{float(mdb):g} dB",
+                     "phase_deg": float(p["phase_deg"]), "mag_db": float(p["mag_db"])})
+    return pd.DataFrame(rows, columns=["M_db", "text", "phase_deg", "mag_db"])
+
+
 def ms_circle_frame(ms: float) -> pd.DataFrame:
     """The locus |1 + L| = 1/Ms in gain-phase coordinates."""
     th = np.linspace(-math.pi, math.pi, 361)
@@ -240,81 +452,160 @@ def _pick() -> alt.Parameter:
 
 
 def _opacity(pick: alt.Parameter) -> Any:
-    return alt.condition(pick, alt.value(1.0), alt.value(0.12))
+    return alt.condition(pick, alt.value(1.0), alt.value(0.15))
 
 
-def pareto_chart(df: pd.DataFrame, x: str, x_title: str, pick: alt.Parameter) -> alt.LayerChart:
-    """Ms against one objective; colour = structure (grey if targets missed), shape = order."""
+def _is(name: str | None) -> str:
+    """Vega expression: this datum is design ``name`` (false when None)."""
+    import json
+
+    return "false" if name is None else f"datum.name === {json.dumps(name)}"
+
+
+#: Labels of log axes: plain numbers (10, 100, 1,000; 0.001), never "1e+1".
+_LOG_LABELS = "datum.value >= 1 ? format(datum.value, ',') : format(datum.value, '~g')"
+
+
+def _log_axis(values: list[float], **kw: Any) -> alt.Axis:
+    return alt.Axis(values=values, labelExpr=_LOG_LABELS, **kw)
+
+
+def _log_x(values: pd.Series) -> tuple[alt.Scale, alt.Axis]:
+    """A log frequency axis over exactly the values' range, labelled at the decades."""
+    v = values[values > 0]
+    if v.empty:
+        return alt.Scale(type="log"), _log_axis([1.0])
+    lo, hi = float(v.min()), float(v.max())
+    ticks = [t for t in _decades(v) if lo * (1 - 1e-9) <= t <= hi * (1 + 1e-9)]
+    return alt.Scale(type="log", domain=[lo, hi], nice=False), _log_axis(ticks or [lo, hi])
+
+
+def _legend() -> alt.Legend:
+    return alt.Legend(labelLimit=0, symbolStrokeWidth=2.5, symbolSize=260, orient="right")
+
+
+def _style_encodings(styles: dict[str, DesignStyle]) -> dict[str, Any]:
+    names = list(styles)
+    return {
+        "color": alt.Color(
+            "name:N", title="design", legend=_legend(),
+            scale=alt.Scale(domain=names, range=[s.colour for s in styles.values()]),
+        ),
+        "strokeDash": alt.StrokeDash(
+            "name:N", title="design", legend=_legend(),
+            scale=alt.Scale(domain=names, range=[list(s.dash) for s in styles.values()]),
+        ),
+    }
+
+
+def _spread(values: pd.Series) -> tuple[alt.Scale, alt.Axis, str]:
+    """Scale, axis and a title note for values that may span decades: a log scale
+    when the positive values span 20× or more (symlog, linear near 0, when some are
+    0), else linear around the values."""
+    v = values[np.isfinite(values)]
+    pos = v[v > 0]
+    if pos.size >= 2 and float(pos.max()) / float(pos.min()) >= 20.0:
+        ticks = _decades(pos)
+        if (v <= 0).any():
+            c = float(pos.min())
+            return (
+                alt.Scale(type="symlog", constant=c, domain=[0.0, ticks[-1]], nice=False),
+                _log_axis([0.0, *[t for t in ticks if t >= c / 10]]),
+                " (log scale; linear below " + f"{c:.2g})",
+            )
+        return (
+            alt.Scale(type="log", domain=[ticks[0], ticks[-1]], nice=False),
+            _log_axis(ticks),
+            " (log scale)",
+        )
+    return (alt.Scale(zero=False, nice=True, padding=24),
+            alt.Axis(format=",~r", labelOverlap=True, tickCount=6), "")
+
+
+def _hrule(value: float, label: str, *, colour: str = _INK, dash: Sequence[int] = (5, 4),
+           width: float = _W) -> alt.LayerChart:
+    """A horizontal reference line with its label written at the right end."""
+    df = pd.DataFrame({"v": [value], "label": [label]})
+    base = alt.Chart(df).encode(y="v:Q")
+    rule = base.mark_rule(color=colour, strokeDash=list(dash), strokeWidth=1.4).encode(
+        tooltip=["label:N", alt.Tooltip("v:Q", format=".4g")]
+    )
+    text = base.mark_text(
+        align="right", baseline="bottom", dx=-4, dy=-2, color=colour, fontSize=11
+    ).encode(x=alt.value(width), text="label:N")
+    return rule + text
+
+
+def _vrule(values: Sequence[float], label: str, *, colour: str = _INK,
+           dash: Sequence[int] = (5, 4)) -> alt.LayerChart:
+    """Vertical reference lines, the label written at the top of the first one."""
+    df = pd.DataFrame({"v": list(values), "label": label})
+    base = alt.Chart(df).encode(x="v:Q")
+    rule = base.mark_rule(color=colour, strokeDash=list(dash), strokeWidth=1.4).encode(
+        tooltip=["label:N", alt.Tooltip("v:Q", format=".4g")]
+    )
+    text = alt.Chart(df.iloc[:1]).mark_text(
+        align="left", baseline="top", dx=4, dy=4, color=colour, fontSize=11
+    ).encode(x="v:Q", y=alt.value(0), text="label:N")
+    return rule + text
+
+
+def pareto_chart(
+    df: pd.DataFrame,
+    x: str,
+    x_title: str,
+    pick: alt.Parameter,
+    *,
+    ms_limit: float | None = None,
+    x_limit: float | None = None,
+    styles: dict[str, DesignStyle] | None = None,
+) -> alt.LayerChart:
+    """Ms against one objective: each design in its colour (:func:`design_styles`),
+    hollow when it misses its targets; shape = origin, size = order; a ring and a
+    label on the recommended design, the Ms limit as a line (and the objective's
+    limit when set)."""
+    styles = styles or design_styles(df.to_dict("records"))
+    names = list(styles)
+    colours = [s.colour for s in styles.values()]
+    x_scale, x_axis, note = _spread(df[x])
     base = alt.Chart(df).encode(
-        x=alt.X(f"{x}:Q", title=x_title, scale=alt.Scale(zero=False, nice=True, padding=24)),
-        y=alt.Y("Ms:Q", title="Ms (sensitivity peak)", scale=alt.Scale(zero=False, padding=24)),
+        x=alt.X(f"{x}:Q", title=x_title + note, scale=x_scale, axis=x_axis),
+        y=alt.Y("Ms:Q", title="Ms (sensitivity peak)",
+                scale=alt.Scale(zero=False, padding=24), axis=alt.Axis(format="~g")),
         tooltip=[
-            "name:N",
-            "origin:N",
-            "structure:N",
-            "order:N",
-            "status:N",
+            "name:N", "origin:N", "structure:N", "order:N", "status:N",
             alt.Tooltip("Ms:Q", format=".3f"),
             alt.Tooltip(f"{x}:Q", format=".4g"),
         ],
     )
-    pts = base.mark_point(filled=True, size=110, stroke=_INK, strokeWidth=0.6).encode(
-        color=alt.condition(
-            "datum.meets",
-            alt.Color("structure:N", title="structure", scale=alt.Scale(range=_PALETTE)),
-            alt.value(_MISS_GREY),
+    pts = base.mark_point(filled=True, strokeWidth=1.8).encode(
+        fill=alt.Fill("name:N", title="design", legend=_legend(),
+                      scale=alt.Scale(domain=names, range=colours)),
+        stroke=alt.Stroke("name:N", legend=None, scale=alt.Scale(domain=names, range=colours)),
+        fillOpacity=alt.condition("datum.meets", alt.value(0.9), alt.value(0.0)),
+        shape=alt.Shape(
+            "origin:N", title="origin",
+            scale=alt.Scale(domain=list(_SHAPES), range=list(_SHAPES.values())),
         ),
-        shape=alt.Shape("order:N", title="order"),
+        size=alt.Size("order:N", title="order", scale=alt.Scale(range=[70, 260])),
         opacity=_opacity(pick),
-    )
-    if x == "hf_gain":
-        pts = pts.add_params(pick)
-    ring = (
-        base.transform_filter("datum.hand")
-        .mark_point(shape="diamond", filled=False, size=420, stroke=_INK, strokeWidth=1.8)
-        .encode(opacity=_opacity(pick))
-    )
-    title = f"Ms against {x_title}" + ("" if len(df) else " — no design has a finite value")
-    return (pts + ring).properties(width=330, height=240, title=title)
-
-
-def _line(
-    df: pd.DataFrame,
-    y: str,
-    y_title: str,
-    pick: alt.Parameter,
-    *,
-    logx: bool = True,
-    x: str = "omega_rad_s",
-    x_title: str = "frequency ω (rad/s)",
-    y_domain: tuple[float, float] | None = None,
-) -> alt.Chart:
-    y_scale = alt.Scale(zero=False) if y_domain is None else alt.Scale(domain=list(y_domain))
-    return (
-        alt.Chart(df)
-        .mark_line(strokeWidth=2, clip=y_domain is not None)
-        .encode(
-            x=alt.X(
-                f"{x}:Q",
-                title=x_title,
-                scale=alt.Scale(type="log") if logx else alt.Scale(),
-                # "~g" only on log axes: on a linear time axis it printed "1e+2"
-                axis=(
-                    alt.Axis(format="~g", values=_decades(df[x]))
-                    if logx
-                    else alt.Axis(labelOverlap=True)
-                ),
-            ),
-            y=alt.Y(f"{y}:Q", title=y_title, scale=y_scale),
-            color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
-            opacity=_opacity(pick),
-            tooltip=[
-                "name:N",
-                alt.Tooltip(f"{x}:Q", format=".4g"),
-                alt.Tooltip(f"{y}:Q", format=".4g"),
-            ],
-        )
-    )
+    ).add_params(pick)
+    rec = df[df["recommended"]]
+    layers: Any = pts
+    if len(rec):
+        ring = alt.Chart(rec).encode(x=f"{x}:Q", y="Ms:Q")
+        layers = layers + ring.mark_point(
+            shape="circle", filled=False, size=700, stroke=_INK, strokeWidth=2
+        ) + ring.mark_text(
+            align="left", dx=16, dy=-12, fontSize=11, fontWeight="bold", color=_INK
+        ).encode(text=alt.value("recommended"))
+    if ms_limit is not None:
+        layers = layers + _hrule(ms_limit, f"Ms limit {ms_limit:g}", colour=_LIMIT_RED,
+                                 width=_W - 60)
+    if x_limit is not None:
+        layers = layers + _vrule([x_limit], f"limit {x_limit:g}", colour=_LIMIT_RED)
+    return layers.properties(width=_W - 60, height=250, title=alt.TitleParams(
+        f"Ms against {x_title}", subtitle="hollow: misses its targets; shape: origin"))
 
 
 def _decades(values: pd.Series) -> list[float]:
@@ -324,7 +615,47 @@ def _decades(values: pd.Series) -> list[float]:
     if v.empty:
         return [1.0]
     lo, hi = math.floor(math.log10(float(v.min()))), math.ceil(math.log10(float(v.max())))
-    return [10.0**k for k in range(lo, hi + 1)]
+    return [10.0**k for k in range(lo, max(hi, lo + 1) + 1)]
+
+
+def _line(
+    df: pd.DataFrame,
+    y: str,
+    y_title: str,
+    pick: alt.Parameter,
+    styles: dict[str, DesignStyle],
+    recommended: str | None,
+    *,
+    logx: bool = True,
+    x: str = "omega_rad_s",
+    x_title: str = "frequency ω (rad/s)",
+    y_domain: tuple[float, float] | None = None,
+    x_domain: tuple[float, float] | None = None,
+) -> alt.Chart:
+    """One line per design in its own style; the recommended design drawn thicker."""
+    y_scale = alt.Scale(zero=False) if y_domain is None else alt.Scale(domain=list(y_domain))
+    if logx:
+        x_scale, x_axis = _log_x(df[x])
+    else:
+        x_scale = alt.Scale() if x_domain is None else alt.Scale(domain=list(x_domain), nice=False)
+        # "~g" only on log axes: on a linear time axis it printed "1e+2"
+        x_axis = alt.Axis(labelOverlap=True)
+    return (
+        alt.Chart(df)
+        .mark_line(clip=True)
+        .encode(
+            x=alt.X(f"{x}:Q", title=x_title, scale=x_scale, axis=x_axis),
+            y=alt.Y(f"{y}:Q", title=y_title, scale=y_scale),
+            **_style_encodings(styles),
+            strokeWidth=alt.condition(_is(recommended), alt.value(3.4), alt.value(1.8)),
+            opacity=_opacity(pick),
+            tooltip=[
+                "name:N",
+                alt.Tooltip(f"{x}:Q", format=".4g"),
+                alt.Tooltip(f"{y}:Q", format=".4g"),
+            ],
+        )
+    )
 
 
 def _kick_clipped_domain(st: pd.DataFrame, col: str) -> tuple[float, float, float] | None:
@@ -343,98 +674,188 @@ def _kick_clipped_domain(st: pd.DataFrame, col: str) -> tuple[float, float, floa
     return lo - pad, hi + pad, peak
 
 
-def _rules(
-    values: Sequence[float], axis: str, label: str, dash: Sequence[int] = (5, 4)
-) -> alt.Chart:
-    df = pd.DataFrame({"v": list(values), "label": label})
-    enc = {axis: alt.X("v:Q") if axis == "x" else alt.Y("v:Q")}
-    return (
-        alt.Chart(df)
-        .mark_rule(color=_INK, strokeDash=list(dash), strokeWidth=1.2)
-        .encode(**enc, tooltip=["label:N", alt.Tooltip("v:Q", format=".4g")])
-    )
-
-
-def bode_charts(fr: pd.DataFrame, study: Study, pick: alt.Parameter) -> alt.VConcatChart:
-    """|L| (dB) and continuous phase (deg) against log ω with the target marks."""
+def _target_wc(study: Study) -> list[float]:
     tc = study.targets.crossover_rad_s
-    wc = list(tc) if isinstance(tc, tuple) else ([] if tc is None else [float(tc)])
-    mag = _line(fr, "mag_db", "|L| (dB)", pick).add_params(pick) + _rules([0.0], "y", "0 dB")
-    # the delay drives the phase without bound; show down to -450 deg (one turn past -90)
-    ph: alt.Chart | alt.LayerChart | alt.FacetChart = _line(
-        fr[fr["phase_deg"] >= -450.0], "phase_deg", "phase of L (deg)", pick
+    return list(tc) if isinstance(tc, tuple) else ([] if tc is None else [float(tc)])
+
+
+def plant_chart(pf: pd.DataFrame, study: Study) -> alt.VConcatChart:
+    """The plant alone: |P| (dB) and continuous phase (deg, delay included) against log ω."""
+    x_scale, x_axis = _log_x(pf["omega_rad_s"])
+    x = alt.X("omega_rad_s:Q", title="frequency ω (rad/s)", scale=x_scale, axis=x_axis)
+    tip = [alt.Tooltip("omega_rad_s:Q", format=".4g", title="ω (rad/s)")]
+    base = alt.Chart(pf.assign(name="plant P"))
+    mag = base.mark_line(color=_INK, strokeWidth=2.2).encode(
+        x=x, y=alt.Y("mag_db:Q", title="|P| (dB)", scale=alt.Scale(zero=False)),
+        tooltip=[*tip, alt.Tooltip("mag_db:Q", format=".4g", title="|P| dB")],
     )
+    ph_df = pf[pf["phase_deg"] >= -720.0].assign(name="plant P")
+    ph = alt.Chart(ph_df).mark_line(color=_INK, strokeWidth=2.2).encode(
+        x=x, y=alt.Y("phase_deg:Q", title="phase of P (deg)", scale=alt.Scale(zero=False)),
+        tooltip=[*tip, alt.Tooltip("phase_deg:Q", format=".4g", title="phase deg")],
+    )
+    wc = _target_wc(study)
+    mag_l: Any = mag + _hrule(0.0, "0 dB", dash=(2, 3))
+    ph_l: Any = ph
     if wc:
-        mag = mag + _rules(wc, "x", "target crossover")
-        ph = ph + _rules(wc, "x", "target crossover")
+        mag_l = mag_l + _vrule(wc, "target crossover")
+        ph_l = ph_l + _vrule(wc, "target crossover")
+    return alt.vconcat(
+        mag_l.properties(width=_W, height=170, title="Plant gain |P(jω)|"),
+        ph_l.properties(width=_W, height=170, title="Plant phase (continuous, delay included)"),
+    )
+
+
+def bode_charts(
+    fr: pd.DataFrame, study: Study, pick: alt.Parameter,
+    styles: dict[str, DesignStyle] | None = None, recommended: str | None = None,
+) -> alt.VConcatChart:
+    """|L| (dB) and continuous phase (deg) against log ω with the target marks."""
+    styles = styles or design_styles([{"name": n} for n in dict.fromkeys(fr["name"])])
+    wc = _target_wc(study)
+    mag: Any = _line(fr, "mag_db", "|L| (dB)", pick, styles, recommended).add_params(pick)
+    mag = mag + _hrule(0.0, "0 dB", dash=(2, 3))
+    # the delay drives the phase without bound; show down to -450 deg (one turn past -90)
+    ph: Any = _line(fr[fr["phase_deg"] >= -450.0], "phase_deg", "phase of L (deg)", pick,
+                    styles, recommended)
+    if wc:
+        mag = mag + _vrule(wc, "target crossover")
+        ph = ph + _vrule(wc, "target crossover")
     pm = study.targets.phase_margin_deg or study.limits.get("phase_margin_deg")
     if pm is not None:
-        ph = ph + _rules([-180.0 + pm], "y", f"-180° + PM target ({pm:g}°)", (2, 3))
+        ph = ph + _hrule(-180.0 + pm, f"−180° + PM target ({pm:g}°)", dash=(2, 3))
     return alt.vconcat(
-        mag.properties(width=420, height=200, title="Loop gain"),
-        ph.properties(width=420, height=200, title="Loop phase (continuous)"),
+        mag.properties(width=_W, height=200, title="Loop gain |L(jω)|"),
+        ph.properties(width=_W, height=200, title="Loop phase (continuous, delay included)"),
     )
 
 
-def nichols_chart(fr: pd.DataFrame, ms: float, pick: alt.Parameter) -> alt.LayerChart:
-    """Gain-phase chart: loops, |T| contours and the Ms locus."""
-    sub = fr[(fr["mag_db"] > -30) & (fr["mag_db"] < 30)]
+def nichols_chart(
+    fr: pd.DataFrame, ms: float, pick: alt.Parameter,
+    styles: dict[str, DesignStyle] | None = None, recommended: str | None = None,
+) -> alt.LayerChart:
+    """Gain-phase chart: loops, labelled |T| contours and the Ms locus."""
+    styles = styles or design_styles([{"name": n} for n in dict.fromkeys(fr["name"])])
+    sub = fr[(fr["mag_db"] > _GP_MAG[0]) & (fr["mag_db"] < _GP_MAG[1])]
+    x = alt.X("phase_deg:Q", title="phase of L (deg)",
+              scale=alt.Scale(domain=list(_GP_PHASE), nice=False),
+              axis=alt.Axis(values=list(range(-360, 1, 45))))
+    y = alt.Y("mag_db:Q", title="|L| (dB)", scale=alt.Scale(domain=list(_GP_MAG)))
+    cf = m_contour_frame()
     cont = (
-        alt.Chart(m_contour_frame())
+        alt.Chart(cf)
         .mark_line(color="#9aa7a3", strokeWidth=0.8, clip=True)
-        .encode(x="phase_deg:Q", y="mag_db:Q", detail="curve:N", order="k:Q", tooltip=["label:N"])
+        .encode(x=x, y=y, detail="curve:N", order="k:Q", tooltip=["label:N"])
     )
+    labels = alt.Chart(m_contour_labels(cf)).mark_text(
+        color="#5f6b67", fontSize=10, dy=-6, align="center"
+    ).encode(x="phase_deg:Q", y="mag_db:Q", text="text:N")
     msl = (
         alt.Chart(ms_circle_frame(ms))
-        .mark_line(color="#b8404f", strokeWidth=2, clip=True, strokeDash=[6, 3])
+        .mark_line(color=_LIMIT_RED, strokeWidth=2, clip=True, strokeDash=[6, 3])
         .encode(x="phase_deg:Q", y="mag_db:Q", order="k:Q", tooltip=["label:N"])
     )
     loops = (
         alt.Chart(sub)
-        .mark_line(strokeWidth=2, clip=True)
+        .mark_line(clip=True)
         .encode(
-            x=alt.X(
-                "phase_deg:Q",
-                title="phase of L (deg)",
-                scale=alt.Scale(domain=[-360, 0], nice=False),
-            ),
-            y=alt.Y("mag_db:Q", title="|L| (dB)", scale=alt.Scale(domain=[-30, 30])),
-            color=alt.Color("name:N", title="design", scale=alt.Scale(range=_PALETTE)),
+            x=x, y=y,
+            **_style_encodings(styles),
+            strokeWidth=alt.condition(_is(recommended), alt.value(3.4), alt.value(1.8)),
             order="omega_rad_s:Q",
             opacity=_opacity(pick),
-            tooltip=["name:N", alt.Tooltip("omega_rad_s:Q", format=".4g")],
+            tooltip=["name:N", alt.Tooltip("omega_rad_s:Q", format=".4g", title="ω (rad/s)")],
         )
     )
-    return (cont + msl + loops).properties(
-        width=420, height=300, title=f"Gain-phase chart, |T| contours, Ms = {ms:g} locus (red)"
+    return (cont + labels + msl + loops).properties(
+        width=_W, height=300,
+        title=alt.TitleParams(
+            "Gain-phase chart",
+            subtitle=f"grey: closed-loop |T| contours (dB); red dashed: |1+L| = 1/Ms, Ms = {ms:g}",
+        ),
     )
 
 
 def sensitivity_chart(
-    fr: pd.DataFrame, ms: float, pick: alt.Parameter
-) -> alt.LayerChart | alt.FacetChart:
-    """|S| and |T| (dB) against log ω; solid |S|, dashed |T|."""
-    long = fr.melt(
-        id_vars=["name", "omega_rad_s"], value_vars=["S_db", "T_db"], var_name="fn", value_name="db"
-    )
-    long.loc[:, "fn"] = long["fn"].map({"S_db": "|S|", "T_db": "|T|"})
-    ch = _line(long, "db", "magnitude (dB)", pick).encode(
-        strokeDash=alt.StrokeDash("fn:N", title="function"), detail="fn:N"
-    )
-    return (ch + _rules([20 * math.log10(ms)], "y", f"Ms = {ms:g}")).properties(
-        width=420, height=220, title="Sensitivity |S| and complementary |T|"
+    fr: pd.DataFrame, ms: float, pick: alt.Parameter,
+    styles: dict[str, DesignStyle] | None = None, recommended: str | None = None,
+    mt_limit: float | None = None,
+) -> alt.VConcatChart:
+    """|S| and |T| (dB) against log ω, one panel each, with the Ms (and Mt) limit."""
+    styles = styles or design_styles([{"name": n} for n in dict.fromkeys(fr["name"])])
+    s: Any = _line(fr, "S_db", "|S| (dB)", pick, styles, recommended)
+    s = s + _hrule(20 * math.log10(ms), f"Ms = {ms:g}", colour=_LIMIT_RED)
+    t: Any = _line(fr, "T_db", "|T| (dB)", pick, styles, recommended)
+    if mt_limit is not None:
+        t = t + _hrule(20 * math.log10(mt_limit), f"Mt limit {mt_limit:g}", colour=_LIMIT_RED)
+    return alt.vconcat(
+        s.properties(width=_W, height=180, title="Sensitivity |S(jω)|"),
+        t.properties(width=_W, height=180, title="Complementary sensitivity |T(jω)|"),
     )
 
 
-def step_charts(st: pd.DataFrame, study: Study, pick: alt.Parameter) -> alt.VConcatChart:
-    """Unit reference step: output y with the ±2 % band and peaks, control signal u."""
+def _beyond_note(st: pd.DataFrame, load: bool = False) -> list[str]:
+    """Subtitle lines naming the designs cut at the axis end (▸ marks them there)."""
+    if load:
+        items = [str(n) for n in st.attrs.get("beyond_load") or []]
+        head = "▸ still recovering at the axis end: "
+    else:
+        ref: dict[str, float | None] = st.attrs.get("beyond") or {}
+        items = [f"{n} ({'settles at ' + format(v, '.3g') + ' s' if v is not None else 'slower'})"
+                 for n, v in ref.items()]
+        head = "▸ slower, cut at the axis end: "
+    if not items:
+        return []
+    if len(items) > 4:
+        items = [*items[:3], f"{len(items) - 3} more (hover the ▸ marks)"]
+    lines, cur = [], head
+    for i, it in enumerate(items):
+        piece = it + (", " if i < len(items) - 1 else "")
+        if len(cur) + len(piece) > 78 and cur.strip():
+            lines.append(cur.rstrip())
+            cur = "   "
+        cur += piece
+    lines.append(cur.rstrip())
+    return lines
+
+
+def _edge_marks(st: pd.DataFrame, col: str, styles: dict[str, DesignStyle],
+                pick: alt.Parameter, load: bool = False) -> alt.Chart | None:
+    """A right-pointing mark at the axis end on each design that is still moving there."""
+    ref: dict[str, float | None] = st.attrs.get("beyond") or {}
+    names = list(st.attrs.get("beyond_load") or []) if load else list(ref)
+    if not names or st.empty:
+        return None
+    last = st[st["name"].isin(names)].groupby("name").tail(1)
+    if last.empty:
+        return None
+    last = last.assign(needs=[ref.get(n) for n in last["name"]])
+    return alt.Chart(last).mark_point(shape="triangle-right", filled=True, size=90).encode(
+        x="t_s:Q", y=f"{col}:Q",
+        color=_style_encodings(styles)["color"],
+        opacity=_opacity(pick),
+        tooltip=["name:N", alt.Tooltip("needs:Q", format=".4g", title="settles at (s)")],
+    )
+
+
+def step_charts(
+    st: pd.DataFrame, study: Study, pick: alt.Parameter,
+    styles: dict[str, DesignStyle] | None = None, recommended: str | None = None,
+) -> alt.VConcatChart:
+    """Unit reference step: output y with the ±2 % band, peaks, the overshoot and
+    settling requirements; control signal u (an initial kick clipped and named)."""
+    from explorer.report_page import requirements
+
+    styles = styles or design_styles([{"name": n} for n in dict.fromkeys(st["name"])])
     t_max = float(st["t_s"].max()) if len(st) else 1.0
+    xd = (0.0, t_max)
     band = (
         alt.Chart(pd.DataFrame({"t0": [0.0], "t1": [t_max], "lo": [0.98], "hi": [1.02]}))
         .mark_rect(color="#1b6f6a", opacity=0.13)
         .encode(x="t0:Q", x2="t1:Q", y="lo:Q", y2="hi:Q")
     )
-    y = _line(st, "y", "output y", pick, logx=False, x="t_s", x_title="time (s)")
+    y = _line(st, "y", "output y", pick, styles, recommended, logx=False, x="t_s",
+              x_title="time (s)", x_domain=xd)
     peaks = st.loc[st.groupby("name")["y"].idxmax()] if len(st) else st
     pk = (
         alt.Chart(peaks)
@@ -442,63 +863,157 @@ def step_charts(st: pd.DataFrame, study: Study, pick: alt.Parameter) -> alt.VCon
         .encode(
             x="t_s:Q",
             y="y:Q",
-            color=alt.Color("name:N", scale=alt.Scale(range=_PALETTE)),
+            color=_style_encodings(styles)["color"],
             opacity=_opacity(pick),
-            tooltip=["name:N", alt.Tooltip("y:Q", format=".4f", title="peak y")],
+            tooltip=["name:N", alt.Tooltip("y:Q", format=".4f", title="peak y"),
+                     alt.Tooltip("t_s:Q", format=".4g", title="at t (s)")],
         )
     )
-    layers = band + y + pk
+    layers: Any = band + y + pk
+    req = requirements(study)
     os_lim = study.limits.get("overshoot_pct")
+    if req.overshoot_pct is not None:
+        os_lim = req.overshoot_pct if os_lim is None else min(os_lim, req.overshoot_pct)
     if os_lim is not None:
-        layers = layers + _rules([1 + os_lim / 100], "y", f"overshoot limit {os_lim:g} %", (2, 3))
+        layers = layers + _hrule(1 + os_lim / 100, f"overshoot limit {os_lim:g} %",
+                                 colour=_LIMIT_RED, dash=(2, 3))
+    ts_lim = study.limits.get("settling_time_s")
+    if req.settling_time_s is not None:
+        ts_lim = req.settling_time_s if ts_lim is None else min(ts_lim, req.settling_time_s)
+    if ts_lim is not None and ts_lim <= t_max:
+        layers = layers + _vrule([ts_lim], f"settling limit {ts_lim:g} s", colour=_LIMIT_RED,
+                                 dash=(2, 3))
+    edge = _edge_marks(st, "y", styles, pick)
+    if edge is not None:
+        layers = layers + edge
     clip = _kick_clipped_domain(st, "u")
-    u_title = "Reference step: control signal"
-    if clip is not None:
-        u_title += f" (initial kick up to |u| = {clip[2]:.3g} clipped; see peak control)"
+    u_sub = "" if clip is None else (
+        f"initial kick up to |u| = {clip[2]:.3g} is cut off "
+        "(peak |u| of each design in the tooltip)"
+    )
     u = _line(
-        st, "u", "control u", pick, logx=False, x="t_s", x_title="time (s)",
-        y_domain=None if clip is None else (clip[0], clip[1]),
-    )
+        st.merge(_peak_u(st), on="name") if len(st) else st.assign(peak_u=[]),
+        "u", "control u", pick, styles, recommended, logx=False, x="t_s", x_title="time (s)",
+        y_domain=None if clip is None else (clip[0], clip[1]), x_domain=xd,
+    ).encode(tooltip=["name:N", alt.Tooltip("t_s:Q", format=".4g"),
+                      alt.Tooltip("u:Q", format=".4g"),
+                      alt.Tooltip("peak_u:Q", format=".4g", title="peak |u|")])
+    note = _beyond_note(st)
     return alt.vconcat(
-        layers.properties(width=420, height=220, title="Reference step: output (±2 % band)"),
-        u.properties(width=420, height=180, title=u_title),
+        layers.properties(width=_W, height=220, title=alt.TitleParams(
+            "Reference step: output (±2 % band)",
+            subtitle=note or ["unit step on the reference"])),
+        u.properties(width=_W, height=170, title=alt.TitleParams(
+            "Reference step: control signal", subtitle=u_sub or "compensator output u")),
     )
+
+
+def _peak_u(st: pd.DataFrame) -> pd.DataFrame:
+    return st.groupby("name", as_index=False)["u"].agg(lambda s: float(s.abs().max())).rename(
+        columns={"u": "peak_u"}
+    )
+
+
+def load_chart(
+    st: pd.DataFrame, pick: alt.Parameter,
+    styles: dict[str, DesignStyle] | None = None, recommended: str | None = None,
+    iae: dict[str, float] | None = None,
+) -> alt.LayerChart:
+    """Unit load step at the plant input: plant output y (delay included)."""
+    styles = styles or design_styles([{"name": n} for n in dict.fromkeys(st["name"])])
+    t_max = float(st["t_s"].max()) if len(st) else 1.0
+    df = st.assign(iae=[(iae or {}).get(n, float("nan")) for n in st["name"]])
+    ln = _line(df, "y_load", "output y", pick, styles, recommended, logx=False, x="t_s",
+               x_title="time (s)", x_domain=(0.0, t_max)).encode(
+        tooltip=["name:N", alt.Tooltip("t_s:Q", format=".4g"),
+                 alt.Tooltip("y_load:Q", format=".4g", title="y"),
+                 alt.Tooltip("iae:Q", format=".4g", title="IAE load")])
+    layers: Any = ln + _hrule(0.0, "", dash=(2, 3))
+    edge = _edge_marks(st, "y_load", styles, pick, load=True)
+    if edge is not None:
+        layers = layers + edge
+    note = _beyond_note(st, load=True)
+    return layers.properties(width=_W, height=220, title=alt.TitleParams(
+        "Load step at the plant input: output",
+        subtitle=note or ["unit step added to the control signal; ∫|y| dt is the load IAE"],
+    ))
 
 
 def _ms(study: Study) -> float:
     return float(study.limits.get("sensitivity_peak", DEFAULT_MS))
 
 
-def chart_specs(study: Study, designs: Sequence[dict[str, Any]]) -> dict[str, alt.TopLevelMixin]:
-    """Every chart by name (each standalone, sharing the ``pick`` parameter definition)."""
-    if not designs:
-        raise LoopscoutError("no designs to chart")
-    df = design_frame(designs)
-    sel = response_designs(designs)
-    fr = frequency_frame(study, sel)
-    st = step_frame(study, sel)
-    ms = _ms(study)
+def _charts(
+    study: Study, designs: Sequence[dict[str, Any]], recommended: str | None
+) -> tuple[dict[str, Any], list[str]]:
+    """The charts that have something to show, by name, and a note for each left out."""
+    _check_designs(designs)
     pick = _pick()
-    out: dict[str, Any] = {
-        "pareto_hf": pareto_chart(df, "hf_gain", "hf_gain (noise gain)", pick),
-        "pareto_iae": pareto_chart(
-            df.dropna(subset=["iae_load"]), "iae_load", "iae_load (load IAE)", pick
-        ),
-        "bode": bode_charts(fr, study, pick),
-        "nichols": nichols_chart(fr, ms, pick),
-        "sensitivity": sensitivity_chart(fr, ms, pick),
-        "steps": step_charts(st, study, pick),
-    }
+    out: dict[str, Any] = {"plant": plant_chart(plant_frame(study, designs), study)}
+    notes: list[str] = []
+    if not designs:
+        notes.append("No design to draw: only the plant is charted.")
+        return out, notes
+    df = design_frame(designs, recommended)
+    all_styles = design_styles(designs)
+    ms_lim = study.limits.get("sensitivity_peak")
+    for key, x, title in (("pareto_hf", "hf_gain", "noise gain |C(j∞)|"),
+                          ("pareto_iae", "iae_load", "load IAE")):
+        sub = df.dropna(subset=[x, "Ms"])
+        if len(sub) >= 2:
+            out[key] = pareto_chart(sub, x, title, pick, ms_limit=ms_lim,
+                                    x_limit=study.limits.get(x), styles=all_styles)
+        else:
+            notes.append(
+                f"Ms against {title}: {len(sub)} design(s) with a finite value — "
+                "no trade-off to draw."
+            )
+    sel = response_designs(designs, recommended)
+    styles = {str(d["name"]): all_styles[str(d["name"])] for d in sel}
+    fr = frequency_frame(study, sel)
+    out["bode"] = bode_charts(fr, study, pick, styles, recommended)
+    out["nichols"] = nichols_chart(fr, _ms(study), pick, styles, recommended)
+    out["sensitivity"] = sensitivity_chart(
+        fr, _ms(study), pick, styles, recommended, study.limits.get("complementary_peak")
+    )
+    focus = [str(d["name"]) for d in sel if d.get("meets_targets")]
+    if recommended is not None:
+        focus = [recommended] + [n for n in focus if n != recommended][:2]
+    st = step_frame(study, sel, focus=focus or None)
+    if len(st):
+        out["steps"] = step_charts(st, study, pick, styles, recommended)
+        iae = {str(d["name"]): _num(d["metrics"].get("iae_load")) for d in sel}
+        out["load"] = load_chart(st, pick, styles, recommended, iae)
+    else:
+        notes.append("No design has a stable closed loop: no step responses to draw.")
+    if len(sel) < len(designs):
+        notes.append(
+            f"Response charts show {len(sel)} of {len(designs)} designs: the recommended, "
+            "Pareto and hand designs."
+        )
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message="Automatically deduplicated")
-        for key in ("pareto_iae", "nichols", "sensitivity", "steps"):
-            out[key] = out[key].add_params(pick)
-    return out
+        for key in ("pareto_iae", "nichols", "sensitivity", "steps", "load"):
+            if key in out and key != "pareto_iae":
+                out[key] = out[key].add_params(pick)
+    return out, notes
 
 
-def _theme(ch: alt.TopLevelMixin) -> alt.TopLevelMixin:
+def chart_specs(
+    study: Study, designs: Sequence[dict[str, Any]], answer: dict[str, Any] | None = None
+) -> dict[str, alt.TopLevelMixin]:
+    """Every chart that has something to show, by name, each standalone and sharing
+    the ``pick`` parameter definition: ``plant`` always; ``pareto_hf``/``pareto_iae``
+    when two or more designs have finite values; ``bode``, ``nichols``,
+    ``sensitivity`` with any design; ``steps`` and ``load`` with a stable one."""
+    return _charts(study, designs, recommended_name(designs, answer))[0]
+
+
+def _theme(ch: alt.TopLevelMixin, *, legends: bool = True) -> alt.TopLevelMixin:
+    """The look of every chart; ``legends=False`` for the page, whose key and table
+    name every design (slides keep their legends)."""
     return (
-        ch.configure(font=_FONT, background="#fbfaf6")
+        ch.configure(font=FONT, background="#fbfaf6", padding=10)
         .configure_view(stroke="#d8d4c8", fill="#ffffff")
         .configure_axis(
             labelColor=_INK,
@@ -509,26 +1024,33 @@ def _theme(ch: alt.TopLevelMixin) -> alt.TopLevelMixin:
             titleFontSize=12,
             titleFontWeight="normal",
         )
-        .configure_title(color=_INK, fontSize=14, anchor="start", fontWeight=600)
-        .configure_legend(labelColor=_INK, titleColor=_INK, orient="right")
+        .configure_title(color=_INK, fontSize=14, anchor="start", fontWeight=600,
+                         subtitleColor="#5f6b67", subtitleFontSize=11)
+        .configure_legend(labelColor=_INK, titleColor=_INK, labelFontSize=11, labelLimit=0,
+                          disable=not legends)
     )
 
 
-def dashboard(study: Study, designs: Sequence[dict[str, Any]]) -> alt.TopLevelMixin:
+def _drop_legends(spec: Any) -> Any:
+    """The spec with every channel's legend off (the page's key names the designs)."""
+    if isinstance(spec, dict):
+        out = {k: _drop_legends(v) for k, v in spec.items()}
+        if "field" in out and isinstance(out.get("legend"), dict):
+            out["legend"] = None
+        return out
+    if isinstance(spec, list):
+        return [_drop_legends(v) for v in spec]
+    return spec
+
+
+def dashboard(
+    study: Study, designs: Sequence[dict[str, Any]], answer: dict[str, Any] | None = None
+) -> alt.TopLevelMixin:
     """All charts in one concatenated, themed chart with one shared ``pick`` selection."""
-    if not designs:
-        raise LoopscoutError("no designs to chart")
-    df = design_frame(designs)
-    sel = response_designs(designs)
-    fr, st, ms, pick = frequency_frame(study, sel), step_frame(study, sel), _ms(study), _pick()
-    top = alt.hconcat(
-        pareto_chart(df, "hf_gain", "hf_gain (noise gain)", pick),
-        pareto_chart(df.dropna(subset=["iae_load"]), "iae_load", "iae_load (load IAE)", pick),
-    )
-    mid = alt.hconcat(bode_charts(fr, study, pick), nichols_chart(fr, ms, pick))
-    low = alt.hconcat(sensitivity_chart(fr, ms, pick), step_charts(st, study, pick))
-    ch = alt.vconcat(top, mid, low).resolve_scale(
-        color="independent", shape="independent", strokeDash="independent"
+    charts = list(_charts(study, designs, recommended_name(designs, answer))[0].values())
+    rows = [alt.hconcat(*charts[i : i + 2]) for i in range(0, len(charts), 2)]
+    ch = alt.vconcat(*rows).resolve_scale(
+        color="independent", shape="independent", strokeDash="independent", size="independent"
     )
     return _theme(ch)
 
@@ -538,23 +1060,30 @@ def export_charts(
     designs: Sequence[dict[str, Any]],
     out_dir: Path,
     formats: Sequence[str] = ("png", "svg"),
+    answer: dict[str, Any] | None = None,
 ) -> list[Path]:
-    """Each chart as ``<name>.<fmt>`` in ``out_dir`` (png, svg) for slides."""
+    """Each chart of :func:`chart_specs` as ``<name>.<fmt>`` in ``out_dir`` (png, svg)."""
     bad = [f for f in formats if f not in ("png", "svg")]
     if bad:
         raise LoopscoutError(f"--format must be png or svg, got {bad[0]!r}")
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise LoopscoutError(f"cannot create {out_dir}: {exc.strerror}") from None
     paths = []
     with alt.data_transformers.enable("default", max_rows=200_000):
-        for name, ch in chart_specs(study, designs).items():
+        for name, ch in chart_specs(study, designs, answer).items():
             for fmt in formats:
                 p = out_dir / f"{name}.{fmt}"
                 with warnings.catch_warnings():
                     warnings.filterwarnings("ignore", message="Automatically deduplicated")
                     opts: dict[str, Any] = {"scale_factor": 2} if fmt == "png" else {}
-                    # fmt is "png" or "svg": checked above
-                    _theme(ch).save(p, format=cast(Literal["png", "svg"], fmt), **opts)
+                    try:
+                        # fmt is "png" or "svg": checked above
+                        _theme(ch).save(p, format=cast(Literal["png", "svg"], fmt), **opts)
+                    except OSError as exc:
+                        raise LoopscoutError(f"cannot write {p}: {exc.strerror}") from None
                 paths.append(p)
     return paths
 
@@ -568,197 +1097,54 @@ def lowest_order_meeting(designs: Sequence[dict[str, Any]]) -> int | None:
     return min(orders) if orders else None
 
 
-def _fmt_roots(roots: Sequence[Any]) -> str:
-    out = []
-    for r in roots:
-        c = _root(r)
-        if abs(c) == 0:
-            out.append("s")
-        elif c.imag == 0:
-            out.append(f"(s {'+' if c.real < 0 else '−'} {abs(c.real):.4g})")
-        elif c.imag > 0:
-            out.append(
-                f"(s² {'+' if c.real < 0 else '−'} {abs(2 * c.real):.4g}s + {abs(c) ** 2:.4g})"
-            )
-    return " ".join(out) or "1"
+def write_report(
+    study: Study,
+    designs: Sequence[dict[str, Any]],
+    path: Path,
+    *,
+    answer: dict[str, Any] | None = None,
+    summary: Sequence[str] | None = None,
+) -> Path:
+    """Write the self-contained HTML report; returns ``path``.
 
-
-def factored(comp: dict[str, Any]) -> str:
-    """A compensator written as gain · ∏(s − z) / ∏(s − p), complex pairs as quadratics."""
-    num, den = _fmt_roots(comp.get("zeros", [])), _fmt_roots(comp.get("poles", []))
-    g = f"{float(comp['gain']):.5g}"
-    return g if num == den == "1" else f"{g} · {num} / {den}" if den != "1" else f"{g} · {num}"
-
-
-_TABLE_KEYS = (
-    "crossover_rad_s",
-    "phase_margin_deg",
-    "gain_margin_db",
-    "sensitivity_peak",
-    "hf_gain",
-    "iae_load",
-    "overshoot_pct",
-    "settling_time_s",
-)
-
-
-def _cell(v: Any) -> str:
-    if v is None:
-        return "—"
-    if isinstance(v, bool):
-        return "yes" if v else "no"
-    return f"{float(v):.4g}"
-
-
-def _table(designs: Sequence[dict[str, Any]]) -> str:
-    ranked = sorted(
-        designs,
-        key=lambda d: (
-            not d.get("meets_targets"),
-            not d.get("pareto"),
-            _num(d["metrics"].get("sensitivity_peak"))
-            if d["metrics"].get("sensitivity_peak") is not None
-            else 1e9,
-        ),
-    )
-    head = "".join(
-        f"<th>{html.escape(METRIC_UNITS.get(k, (k, ''))[0])}"
-        f"<span>{html.escape(METRIC_UNITS.get(k, (k, ''))[1])}</span></th>"
-        for k in _TABLE_KEYS
-    )
-    rows = []
-    for i, d in enumerate(ranked, 1):
-        cls = "ok" if d.get("meets_targets") else "miss"
-        why = "; ".join(d.get("misses") or [])
-        cells = "".join(f"<td>{_cell(d['metrics'].get(k))}</td>" for k in _TABLE_KEYS)
-        rows.append(
-            f"<tr class='{cls}'><td>{i}</td><td><b>{html.escape(str(d['name']))}</b>"
-            f"<div class='sub'>{html.escape(str(d.get('origin', '')))} · "
-            f"{html.escape(str(d.get('structure', '')))}"
-            f"</div></td><td class='tf'>{html.escape(factored(d['compensator']))}</td>"
-            f"<td>{'yes' if d.get('meets_targets') else 'no'}"
-            f"{'<div class=sub>' + html.escape(why) + '</div>' if why else ''}</td>{cells}</tr>"
-        )
-    return (
-        f"<table><thead><tr><th>#</th><th>design</th><th>compensator C(s)</th><th>meets</th>{head}"
-        f"</tr></thead><tbody>{''.join(rows)}</tbody></table>"
-    )
-
-
-def _targets_html(study: Study) -> str:
-    t = study.targets
-    tc = t.crossover_rad_s
-    if isinstance(tc, tuple):
-        tc_txt = f"{tc[0]:g}–{tc[1]:g} rad/s"
-    else:
-        tc_txt = "free" if tc is None else f"{tc:g} rad/s"
-    items = [
-        f"crossover: {tc_txt}",
-        f"phase margin: {'—' if t.phase_margin_deg is None else f'{t.phase_margin_deg:g}°'}",
-        f"integrators in the loop: {t.integrators}",
-    ] + [f"limit {k}: {v:g}" for k, v in study.limits.items()]
-    conv = "".join(f"<li>{html.escape(s)}</li>" for s in t.derived_from)
-    return (
-        "<ul>"
-        + "".join(f"<li>{html.escape(s)}</li>" for s in items)
-        + "</ul>"
-        + (
-            f"<p class='sub'>How the targets were obtained:</p><ul class='sub'>{conv}</ul>"
-            if conv
-            else ""
-        )
-    )
-
-
-_CSS = """
-body{margin:0;background:#fbfaf6;color:#24302e;\
-font:15px/1.45 'Source Sans 3','Segoe UI',Helvetica,Arial,sans-serif}
-header{background:#1b3a38;color:#f3efe2;padding:22px 36px}
-header h1{margin:0;font-weight:600;font-size:26px;letter-spacing:.01em}
-header p{margin:4px 0 0;opacity:.8}
-main{padding:10px 36px 40px;max-width:1500px}
-section{margin:22px 0}
-h2{font-size:17px;font-weight:600;border-bottom:2px solid #d9822b;\
-display:inline-block;padding-bottom:2px}
-.cards{display:flex;gap:18px;flex-wrap:wrap}
-.card{background:#fff;border:1px solid #e0dccf;border-radius:6px;padding:10px 18px;min-width:260px}
-.big{font-size:22px;font-weight:600;color:#1b6f6a}
-table{border-collapse:collapse;font-size:13px;background:#fff}
-th,td{border-bottom:1px solid #e6e2d6;padding:5px 8px;text-align:right;vertical-align:top}
-th{background:#f1eee4;font-weight:600}th span{display:block;font-weight:normal;color:#6b726e}
-td:nth-child(2),td:nth-child(3),td:nth-child(4),th:nth-child(2),th:nth-child(3),th:nth-child(4){text-align:left}
-tr.miss td{color:#8a8f8b}.tf{font-family:ui-monospace,Menlo,Consolas,monospace;font-size:12px}
-.sub{font-size:12px;color:#6b726e}
-.caution{background:#fff4e0;border-left:5px solid #d9822b;padding:10px 16px}
-#errors:empty{display:none}#errors{color:#b8404f}
-"""
-
-
-def write_report(study: Study, designs: list[dict[str, Any]], path: Path) -> Path:
-    """Write the self-contained HTML report; returns ``path``."""
+    ``answer`` is the exploration's answer (interface.md: ``design``, ``order``,
+    ``why``); without one the report recommends the lowest-order design meeting every
+    target (lowest Ms first). ``summary`` lines (the exploration's summary, the answer
+    first) are shown as they are. ``designs`` may be empty, and none may meet the
+    targets: the page then says what each reached and what stopped it."""
     import vl_convert as vlc
-
-    path = Path(path)
-    with alt.data_transformers.enable("default", max_rows=200_000), warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="Automatically deduplicated")
-        spec = dashboard(study, designs).to_dict()
     from altair.utils._importers import vl_version_for_vl_convert
 
+    from explorer import report_page
+
+    designs = list(designs)
+    _check_designs(designs)
+    if answer is not None and not isinstance(answer, dict):
+        raise LoopscoutError("answer must be an object with 'design', 'order' and 'why'")
+    path = Path(path)
+    rec = recommended_name(designs, answer)
+    with alt.data_transformers.enable("default", max_rows=200_000), warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="Automatically deduplicated")
+        charts, notes = _charts(study, designs, rec)
+        specs = {k: _drop_legends(_theme(c, legends=False).to_dict()) for k, c in charts.items()}
     # vl_convert's stub (__init__.pyi) declares `snippet` required, but the compiled
     # function defaults it to None (the default snippet, which puts vegaEmbed, vegaLite
     # and vega on window and which the page relies on): the stub is wrong, not the call
     bundle = vlc.javascript_bundle(vl_version=vl_version_for_vl_convert())  # type: ignore[call-arg]
-    low = lowest_order_meeting(designs)
-    low_txt = "none" if low is None else f"order {low}"
-    fold_txt = ""
-    if study.plant.delay_s > 0:
-        w_far = fold_threshold_rad_s(study.plant.delay_s)
-        fold_txt = (
-            f"; stable roots above {w_far:.3g} rad/s may be folded into the delay there "
-            "(same DC gain; docs/time-response.md)"
-        )
-    n_meet = sum(bool(d.get("meets_targets")) for d in designs)
-    spec_js = json.dumps(spec).replace("</", "<\\/")
-    bundle_js = bundle.replace("</script", "<\\/script")
-    page = f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8">
-<title>loopscout report — {html.escape(study.name)}</title>
-<style>{_CSS}</style>
-<script>window.__errors=[];window.addEventListener('error',function(e){{window.__errors.push(String(e.message))}});</script>
-<script>{bundle_js}</script>
-</head><body>
-<header><h1>{html.escape(study.name)}</h1>\
-<p>loopscout design report · {len(designs)} designs, {n_meet} meet the targets</p></header>
-<main>
-<section class="cards">
-<div class="card"><h2>Targets</h2>{_targets_html(study)}</div>
-<div class="card"><h2>Lowest order that meets spec</h2>\
-<div class="big" id="lowest-order">{low_txt}</div>
-<p class="sub">smallest compensator order among designs that meet every target and limit</p></div>
-<div class="card"><h2>Assumptions</h2><ul>
-<li>linear time-invariant plant model as given in the study</li>
-<li>the transport delay is exact in the frequency domain and a sampled transport delay \
-in the step responses{fold_txt}</li>
-<li>unit steps on the reference (and at the plant input for load IAE), applied at t = 0</li>\
-</ul></div>
-</section>
-<section><h2>Designs, ranked</h2>\
-<p class="sub">meeting designs first, then Pareto designs, then by Ms</p>{_table(designs)}</section>
-<section><h2>Charts</h2><p class="sub">Click a design (point or curve) to highlight it everywhere; \
-shift-click adds more; double-click clears. Grey points miss targets; \
-diamonds mark hand designs.</p>
-<div id="dash" class="vega-chart"></div></section>
-<section class="caution" id="caution"><b>{html.escape(CAUTION)}</b></section>
-<pre id="errors"></pre>
-</main>
-<script>
-vegaEmbed('#dash', {spec_js}, {{renderer:'svg', actions:false}})
- .then(function(){{document.body.setAttribute('data-rendered','yes')}})
- .catch(function(e){{window.__errors.push(String(e))}})
- .finally(function(){{document.getElementById('errors').textContent=window.__errors.join(' | ')}});
-</script>
-</body></html>
-"""
+    shown = {str(d["name"]) for d in response_designs(designs, rec)} if designs else set()
+    page = report_page.page(
+        study,
+        designs,
+        specs=specs,
+        notes=notes,
+        answer=answer,
+        summary=list(summary) if summary is not None else None,
+        recommended=rec,
+        styles={n: (s.colour, s.dash, s.shape) for n, s in design_styles(designs).items()},
+        in_responses=shown,
+        bundle=bundle,
+        font=FONT,
+    )
     try:
         path.write_text(page, encoding="utf-8")
     except OSError as exc:
