@@ -311,9 +311,11 @@ def implementation(study: Any, comp: Any, *, name: str, sample_time_s: float,
 
     # warnings with figures
     if not sm["closed_loop_stable"]:
+        r = sm["closed_loop_pole_radius"]
+        why = (f"largest closed-loop pole |z| = {r:.4g}" if r is not None else
+               f"{sm['closed_loop_unstable_poles']} closed-loop pole(s) with |z| ≥ 1")
         warnings.append(
-            f"the SAMPLED closed loop is UNSTABLE (largest closed-loop pole |z| = "
-            f"{sm['closed_loop_pole_radius']:.4g}); shorten the sample time or redesign"
+            f"the SAMPLED closed loop is UNSTABLE ({why}); shorten the sample time or redesign"
         )
     elif cont.get("closed_loop_stable") is False:
         warnings.append("the continuous design is unstable; the sampled loop is stable but "

@@ -53,6 +53,7 @@ __all__ = [
     "realize",
     "sample_plant",
     "closed_loop_matrix",
+    "closed_loop_roots_outside",
     "sampled_loop_metrics",
     "cont_loop_with",
 ]
@@ -67,6 +68,9 @@ WC_T_WARN_RAD = 0.5
 
 #: A closed-loop eigenvalue with modulus at or above 1 − this is called unstable.
 STABILITY_TOL = 1e-9
+#: Closed loops with more states than this (long delays in samples) are judged by the
+#: argument principle instead of the eigenvalues of the closed-loop matrix.
+MAX_EIG_STATES = 250
 
 _BISECT_ITERS = 64
 _GOLDEN_ITERS = 70
@@ -91,6 +95,10 @@ class DiscreteCompensator:
         """C(e^{jωT}) at the angular frequencies ω (rad/s)."""
         z = np.exp(1j * np.asarray(omega_rad_s, float) * self.sample_time_s)
         return _zpk_eval(self.gain, self.zeros, self.poles, z)
+
+    def at_z(self, z: np.ndarray) -> np.ndarray:
+        """C(z) at complex points z."""
+        return _zpk_eval(self.gain, self.zeros, self.poles, np.asarray(z, complex))
 
     def coefficients(self) -> tuple[np.ndarray, np.ndarray]:
         """Numerator and denominator in powers of z⁻¹ (b0 + b1 z⁻¹ + ..., a0 = 1), of
@@ -565,7 +573,16 @@ class SampledPlant:
     def freqresp(self, omega_rad_s: np.ndarray) -> np.ndarray:
         """H(e^{jωT}) at ω (rad/s), vectorised over ω (one batched linear solve)."""
         w = np.asarray(omega_rad_s, float).ravel()
-        z = np.exp(1j * w * self.sample_time_s)
+        return self.at_z(np.exp(1j * w * self.sample_time_s))
+
+    @property
+    def pure_delay_samples(self) -> int:
+        """m in H(z) = N(z)/(z^m·det(zI − Φ)): d, plus one for a fractional part."""
+        return self.d + (1 if self.eps_s > 0 else 0)
+
+    def at_z(self, z: np.ndarray) -> np.ndarray:
+        """H(z) at complex points z (vectorised)."""
+        z = np.asarray(z, complex).ravel()
         zinv = 1.0 / z
         n = self.n
         frac = self.eps_s > 0
@@ -575,7 +592,7 @@ class SampledPlant:
             x = np.linalg.solve(M, g[..., None])[..., 0]
             val = x @ self.c[0].astype(complex)
         else:
-            val = np.zeros(w.size, complex)
+            val = np.zeros(z.size, complex)
         val = val + self.dmat[0, 0] * (zinv if frac else 1.0)
         return val * zinv ** self.d
 
@@ -658,6 +675,44 @@ def closed_loop_matrix(sp: SampledPlant, comp: DiscreteCompensator) -> np.ndarra
         F[n + nc + i, n + nc + i - 1] = 1.0
     _ = iw
     return F
+
+
+def closed_loop_roots_outside(sp: SampledPlant, comp: DiscreteCompensator,
+                              grid_rad_s: np.ndarray) -> int:
+    """Roots of the closed-loop characteristic polynomial
+    χ(z) = z^m·Dc(z)·det(zI − Φ) + Nc(z)·N_H(z) with |z| ≥ ρ = 1 − STABILITY_TOL, by the
+    argument principle on the circle |z| = ρ (discrete Nyquist criterion): with
+    f = 1 + L = χ / (z^m·Dc·det), Z_out = P_out − W, P_out the roots of Dc·det (the
+    open-loop poles e^{pT} and the controller's poles) with |z| ≥ ρ, W the
+    counter-clockwise winding of f around 0 — twice the half circle's, by conjugate
+    symmetry (Åström & Wittenmark, Computer-Controlled Systems, 3rd ed., §3.4, the
+    Nyquist criterion for sampled systems — from memory). Requires m ≥ 1 (the degree
+    of χ is then m + deg Dc + n). Hidden (cancelled) modes are counted too: the
+    formula holds whatever f cancels."""
+    T = sp.sample_time_s
+    rho = 1.0 - STABILITY_TOL
+    open_poles = np.concatenate([np.array(comp.poles, complex),
+                                 np.exp(np.array(sp.plant.poles, complex) * T)])
+    p_out = int(np.sum(np.abs(open_poles) >= rho))
+    theta = np.concatenate([
+        [0.0],
+        np.logspace(-14, 0, 200) * float(grid_rad_s[0]) * T,
+        np.asarray(grid_rad_s, float) * T,
+        [math.pi],
+    ])
+    # fine points around every open-loop pole close to the circle
+    near = open_poles[np.abs(np.abs(open_poles) - 1.0) < 1e-3]
+    if near.size:
+        ang = np.abs(np.angle(near))
+        offs = np.concatenate([-np.logspace(-14, -2, 60), [0.0], np.logspace(-14, -2, 60)])
+        theta = np.concatenate([theta, (ang[:, None] + offs[None, :]).ravel()])
+    theta = np.unique(theta[(theta >= 0) & (theta <= math.pi)])
+    z = rho * np.exp(1j * theta)
+    f = 1.0 + comp.at_z(z) * sp.at_z(z)
+    arg = np.unwrap(np.angle(f))
+    half = (arg[-1] - arg[0]) / math.pi
+    winding = int(round(half))
+    return p_out - winding
 
 
 def _loop_value(sp: SampledPlant, comp: DiscreteCompensator, w: np.ndarray) -> np.ndarray:
@@ -804,11 +859,22 @@ def sampled_loop_metrics(sp: SampledPlant, comp: DiscreteCompensator,
 
     ms, w_ms = _peak(s_mag, grid)
     mt, w_mt = _peak(t_mag, grid)
-    # stability from the closed-loop matrix
-    F = closed_loop_matrix(sp, comp)
-    eig = np.linalg.eigvals(F) if F.size else np.zeros(0)
-    radius = float(np.max(np.abs(eig))) if eig.size else 0.0
-    stable = radius < 1.0 - STABILITY_TOL
+    # stability: eigenvalues of the closed-loop matrix; for long delays (many samples)
+    # the argument principle on the unit circle instead (the matrix grows with d)
+    n_states = sp.n + len(comp.poles) + sp.d + 1
+    radius: float | None
+    if n_states <= MAX_EIG_STATES:
+        F = closed_loop_matrix(sp, comp)
+        eig = np.linalg.eigvals(F) if F.size else np.zeros(0)
+        radius = float(np.max(np.abs(eig))) if eig.size else 0.0
+        unstable_count = int(np.sum(np.abs(eig) >= 1.0 - STABILITY_TOL))
+        stable = radius < 1.0 - STABILITY_TOL
+        how = "eigenvalues"
+    else:
+        radius = None
+        unstable_count = closed_loop_roots_outside(sp, comp, grid)
+        stable = unstable_count == 0
+        how = "argument principle"
     if wx.size:
         worst = int(np.argmin(pm))
         wc: float | None = float(wx[worst])
@@ -832,6 +898,8 @@ def sampled_loop_metrics(sp: SampledPlant, comp: DiscreteCompensator,
         "complementary_peak_rad_s": w_mt,
         "closed_loop_stable": bool(stable),
         "closed_loop_pole_radius": radius,
+        "closed_loop_unstable_poles": unstable_count,
+        "stability_method": how,
         "nyquist_rad_s": wn,
     }
 

@@ -17,6 +17,7 @@ from explorer.loop import Rational
 from explorer.metrics import frequency_metrics
 from explorer.sampled import (
     closed_loop_matrix,
+    closed_loop_roots_outside,
     compensator_stages,
     cont_loop_with,
     difference_equations,
@@ -434,3 +435,52 @@ def test_stability_agrees_with_simulation(T: float) -> None:
     else:
         assert np.max(np.abs(y[-100:])) > 1e3
     assert m["closed_loop_stable"] is (T == 2.5)
+
+
+def _verdicts(plant: Rational, comp: Rational, T: float, extra_s: float) -> tuple[int, int]:
+    from explorer.sampled import _grid
+
+    sp = sample_plant(plant, T, extra_s)
+    dc = discretize(comp, T, "tustin")
+    ev = np.abs(np.linalg.eigvals(closed_loop_matrix(sp, dc)))
+    grid = _grid(sp, dc, cont_loop_with(plant, comp, extra_s), [])
+    return int(np.sum(ev >= 1 - 1e-9)), closed_loop_roots_outside(sp, dc, grid)
+
+
+def test_argument_principle_agrees_with_eigenvalues() -> None:
+    """The two stability counts (argument principle on the unit circle, used for long
+    delays; eigenvalues of the closed-loop matrix, checked above against the
+    characteristic polynomial's roots) agree — stable and unstable loops, integer
+    and fractional delays, an integrating, an unstable and a delayed plant."""
+    duct_pi = Rational(gain=35.0, zeros=(-0.02, -0.1), poles=(0.0, -0.25))
+    fall_pid = Rational(gain=2.0, zeros=(-1.0, -3.0), poles=(0.0, -60.0))
+    mode_lead = Rational(gain=0.5, zeros=(-1.5,), poles=(-5.0,))
+    seen = set()
+    for plant, comp, T in ((DUCT, duct_pi, 0.5), (FALLING, fall_pid, 0.004),
+                           (MODE, mode_lead, 0.05)):
+        for factor in (0.3, 1.0, 3.0, 10.0):
+            for extra in (0.0, 0.37 * T, 3 * T):
+                c = Rational(gain=comp.gain * factor, zeros=comp.zeros, poles=comp.poles)
+                if extra == 0.0 and plant.delay_s == 0.0:
+                    continue  # the argument principle needs one pure delay sample
+                n_eig, n_arg = _verdicts(plant, c, T, extra)
+                assert n_eig == n_arg, (plant, factor, extra)
+                seen.add(n_eig > 0)
+    assert seen == {True, False}
+
+
+@pytest.mark.parametrize("factor", [1.0, 5.0])
+def test_long_delay_stability_vs_simulation(factor: float) -> None:
+    """Duct plant, 6 s delay sampled at 0.02 s (300 samples, judged by the argument
+    principle): the verdict agrees with simulating the difference equations."""
+    comp = Rational(gain=35.0 * factor, zeros=(-0.02, -0.1), poles=(0.0, -0.25))
+    T = 0.02
+    m = sampled_loop_metrics(sample_plant(DUCT, T), discretize(comp, T, "tustin"),
+                             cont_loop_with(DUCT, comp, 0.0))
+    assert m["stability_method"] == "argument principle"
+    y = _simulate(DUCT, comp, T, 40000)
+    if m["closed_loop_stable"]:
+        assert abs(y[-1] - 1.0) < 1e-3 and np.max(np.abs(y)) < 10
+    else:
+        assert np.max(np.abs(y[-1000:])) > 1e3
+    assert m["closed_loop_stable"] is (factor == 1.0)
