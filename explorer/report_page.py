@@ -180,13 +180,16 @@ def _plant_facts(study: Study) -> list[str]:
     return facts
 
 
+# names read in a sentence ("settling 2 % 6.5 > ..." would be confusing)
+_SAY = {"settling_time_s": "settling time", "rise_time_s": "rise time",
+        "hf_gain": "noise gain |C(j∞)|", "iae_load": "load IAE"}
 _KEY_RE = re.compile(r"\b(" + "|".join(sorted(METRIC_UNITS, key=len, reverse=True)) + r")\b")
 
 
 def readable(text: str) -> str:
     """A reason or summary line with METRICS keys written as their display names
     (``sensitivity_peak 1.83 > limit 1.7`` -> ``Ms 1.83 > limit 1.7``)."""
-    return _KEY_RE.sub(lambda m: METRIC_UNITS[m.group(1)][0], str(text))
+    return _KEY_RE.sub(lambda m: _SAY.get(m.group(1), METRIC_UNITS[m.group(1)][0]), str(text))
 
 
 def _c(r: complex) -> str:
@@ -593,6 +596,7 @@ color:#5f6b67;padding:2px 10px 2px 0}table.figs td{padding:2px 0;text-align:righ
 .diff{color:#6b726e;font-size:12px}
 tr.miss td{color:#7d837f}tr.rec td{background:#eaf5f2}
 tr.rec td:first-child{box-shadow:inset 4px 0 0 #1b6f6a}
+table.ranked td.name{min-width:240px}table.ranked td .sub{min-width:170px}
 .tf{font-family:ui-monospace,Menlo,Consolas,monospace;font-size:12px;color:#3d4a47}
 .sub{font-size:12px;color:#6b726e}
 ul.miss,p.miss{color:#8f2d3a;font-size:13px;margin:6px 0;padding-left:18px}
@@ -621,13 +625,16 @@ details{margin-top:8px;font-size:13px}
 _JS = """
 (function(){
 var SPECS = %(specs)s;
-var views = [], last = '[]', keys = Object.keys(SPECS);
+var views = window.loopscoutViews = [], last = '[]', keys = Object.keys(SPECS);
 function share(src){return function(name, value){
   var vals = (value || []).slice();
   var key = JSON.stringify(vals.map(function(t){return t.values;}));
   if (key === last) return;
   last = key;
-  views.forEach(function(v){ if (v !== src) { v.data('pick_store', vals.slice()).runAsync(); } });
+  views.forEach(function(v){
+    if (v === src) return;
+    try { v.data('pick_store', vals.slice()).runAsync(); } catch (e) {}  // no selection here
+  });
 };}
 Promise.all(keys.map(function(k){
   return vegaEmbed('#chart-' + k, SPECS[k], {renderer:'svg', actions:false}).then(function(r){
