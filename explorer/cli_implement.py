@@ -341,8 +341,10 @@ def implementation(study: Any, comp: Any, *, name: str, sample_time_s: float,
     if used_method == "matched":
         alias = [r for r in (*comp.zeros, *comp.poles) if abs(r.imag) >= wn]
         if alias:
-            warnings.append("matched mapping folds compensator roots above the Nyquist "
-                            "frequency onto lower ones: " + ", ".join(str(r) for r in alias))
+            warnings.append(
+                "matched mapping folds compensator roots above the Nyquist frequency onto "
+                "lower ones: " + ", ".join(f"{r.real:.4g}±{abs(r.imag):.4g}j"
+                                           for r in alias if r.imag > 0))
     plant_fast = [r for r in plant.poles if r.imag > 0 and abs(r.imag) >= wn]
     if plant_fast:
         warnings.append(

@@ -104,8 +104,8 @@ class DiscreteCompensator:
         """Numerator and denominator in powers of z⁻¹ (b0 + b1 z⁻¹ + ..., a0 = 1), of
         equal length."""
         n = max(len(self.zeros), len(self.poles))
-        b = self.gain * np.real(np.poly(np.array(self.zeros, dtype=complex)))
-        a = np.real(np.poly(np.array(self.poles, dtype=complex)))
+        b = self.gain * np.atleast_1d(np.real(np.poly(np.array(self.zeros, dtype=complex))))
+        a = np.atleast_1d(np.real(np.poly(np.array(self.poles, dtype=complex))))
         # z^-n · (z^nz ...) : pad at the end (higher powers of z^-1)
         b = np.concatenate([b, np.zeros(n + 1 - b.size)])
         a = np.concatenate([a, np.zeros(n + 1 - a.size)])
@@ -539,8 +539,9 @@ def realize(gain: float, zeros: Sequence[complex], poles: Sequence[complex]
         return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), np.array([[float(gain)]])
     sys: tuple[np.ndarray, ...] | None = None
     for i, (bp, bzs) in enumerate(zip(blocks, bz, strict=True)):
-        den = np.real(np.poly(np.array(bp, complex)))
-        num = np.real(np.poly(np.array(bzs, complex))) * (float(gain) if i == 0 else 1.0)
+        den = np.atleast_1d(np.real(np.poly(np.array(bp, complex))))
+        num = np.atleast_1d(np.real(np.poly(np.array(bzs, complex))))
+        num = num * (float(gain) if i == 0 else 1.0)
         blk = _block(np.atleast_1d(num), den)
         sys = blk if sys is None else _series(sys, blk)
     assert sys is not None

@@ -112,6 +112,18 @@ def test_from_designs_json_and_csv(tmp_path: Path, capsys: pytest.CaptureFixture
     assert CAUTION in out_csv.read_text()
 
 
+def test_pure_gain_design(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """A proportional-only design: one section b = [k, 0, 0], a = [1, 0, 0] (closed
+    form: C(z) = k), the P form, and the sampled loop still evaluated."""
+    path = tmp_path / "designs.json"
+    path.write_text('{"designs": [{"name": "k", "compensator": {"gain": 2.5}}]}')
+    obj = _run_json(capsys, str(ROOT / "studies" / "drum_level.toml"), "--from", str(path),
+                    "--design", "k", "--sample-time", "0.5")
+    assert obj["sections"][0]["b"] == [2.5, 0.0, 0.0] and obj["sections"][0]["a"] == [1, 0, 0]
+    assert obj["industrial_form"]["parallel"] == {"kp": 2.5}
+    assert obj["sampled_metrics"]["closed_loop_stable"] in (True, False)
+
+
 def test_long_sample_time_warns_with_figures(capsys: pytest.CaptureFixture[str]) -> None:
     """ωc·T above the rule's 0.5 rad (common practice): a warning naming ωc·T and the
     longest sample time within the rule."""
