@@ -21,6 +21,7 @@ import numpy as np
 from explorer.errors import LoopscoutError
 from explorer.evaluate import evaluated_record, given_designs
 from explorer.recommend import drop_near_duplicates, practical_misses, recommend
+from explorer.report import write_report
 from explorer.loop import Rational
 from explorer.structures import Structure, candidate_structures
 from explorer.study import LIMIT_KEYS, MAX_SEARCH_ORDER, Study, load_study
@@ -304,7 +305,9 @@ _REASONS = {
 }
 
 
-def _why_not(s: Structure, records: list[Any], pm_deg: float) -> str:
+def _why_not(
+    s: Structure, records: list[Any], pm_deg: float, required: frozenset[str] = frozenset()
+) -> str:
     """Why a structure has no design meeting targets and limits: every trial counted
     once under its first broken constraint (or its failed evaluation), largest count
     first, so the counts add up to the trials."""
@@ -332,6 +335,8 @@ def _why_not(s: Structure, records: list[Any], pm_deg: float) -> str:
     parts = []
     for key, n in sorted(counts.items(), key=lambda kv: -kv[1]):
         label = _REASONS.get(key, key.replace("limit:", "breaks the limit "))
+        if key.removeprefix("limit:") in required:
+            label = f"misses the required {key.removeprefix('limit:')}"
         extra = ""
         if key == "phase_balance_deg":
             extra = f" (best shortfall {min(r.constraints[key] for r in bal):.1f} deg)"
@@ -457,7 +462,7 @@ def explore(
             designs.append(rec)
             kept += bool(rec["meets_targets"])
         if not kept and si < len(structures):
-            why[s.label] = _why_not(s, recs, problem.pm_deg)
+            why[s.label] = _why_not(s, recs, problem.pm_deg, _required_keys(study))
     if show:
         show.close()
     designs += _hand_records(study, hand)
@@ -514,6 +519,12 @@ def _summary(
     return lines
 
 
+def _required_keys(study: Study) -> frozenset[str]:
+    """Search bounds that come from a step-response requirement (not a tighter limit)."""
+    return frozenset(k for k, v in study.targets.requirements.items()
+                     if v <= study.limits.get(k, math.inf))
+
+
 def _relax_hint(study: Study, structures: list[Structure], why: dict[str, str]) -> str:
     """What to change when nothing meets: only the changes the reasons point at — a
     higher search.max_order only when it adds structures (and which), a lower
@@ -534,6 +545,8 @@ def _relax_hint(study: Study, structures: list[Structure], why: dict[str, str]) 
     if "phase margin" in text or "unstable" in text or "crossover" in text:
         hints.append("lower the crossover or the phase margin")
     broken = sorted({k for k in study.limits if f"limit {k}" in text})
+    if any(f"required {k}" in text for k in study.targets.requirements):
+        hints.append("ease the overshoot or settling requirement")
     if broken:
         hints.append("loosen " + ", ".join(f"limits.{k}" for k in broken))
     if "max_pole_ratio" in text:
@@ -568,47 +581,5 @@ def _write(out: Path, study: Study, obj: dict[str, Any], frame: Any) -> None:
     if len(csv):
         csv["dominates_hand"] = [";".join(x) for x in csv["dominates_hand"]]
     csv.to_csv(out / "designs.csv", index=False)
-    try:
-        from explorer.report import write_report
-    except (ImportError, SyntaxError):  # the report module is optional here
-        _fallback_report(out / "report.html", study, obj)
-    else:
-        if not obj["designs"]:  # nothing to chart: the table page still says so
-            _fallback_report(out / "report.html", study, obj)
-            return
-        write_report(study, obj["designs"], out / "report.html")
-
-
-def _fallback_report(path: Path, study: Study, obj: dict[str, Any]) -> None:
-    from html import escape
-
-    cols = [
-        "order",
-        "crossover_rad_s",
-        "phase_margin_deg",
-        "sensitivity_peak",
-        "hf_gain",
-        "iae_load",
-    ]
-    head = "".join(
-        f"<th>{escape(c)}</th>" for c in ["design", "origin", "structure", *cols, "meets", "pareto"]
-    )
-    body = []
-    for d in obj["designs"]:
-        m = {**d["metrics"], "order": d["order"]}
-        cells = [
-            escape(d["name"]),
-            escape(d["origin"]),
-            escape(d["structure"]),
-            *[("" if m.get(c) is None else f"{m[c]:.4g}") for c in cols],
-            str(d["meets_targets"]),
-            str(d["pareto"]),
-        ]
-        body.append("<tr>" + "".join(f"<td>{c}</td>" for c in cells) + "</tr>")
-    lines = "".join(f"<p>{escape(s)}</p>" for s in obj["summary"])
-    path.write_text(
-        f"<!doctype html><meta charset='utf-8'><title>{escape(study.name)}</title>"
-        f"<h1>{escape(study.name)}</h1>{lines}<table border='1'><tr>{head}</tr>{''.join(body)}"
-        f"</table><p><b>{escape(CAUTION)}</b></p>\n",
-        encoding="utf-8",
-    )
+    write_report(study, obj["designs"], out / "report.html", answer=obj["answer"],
+                 summary=obj["summary"])
