@@ -208,6 +208,15 @@ def _table_rows() -> tuple[str, ...]:
 _TABLE_ROWS = _table_rows()
 
 
+#: Figures that read as robustness margins only when the closed loop is stable.
+_MARGIN_KEYS = frozenset({"phase_margin_deg", "gain_margin_db", "lower_gain_margin_db",
+                          "delay_margin_s", "sensitivity_peak", "complementary_peak"})
+UNSTABLE_MARGIN_NOTE = (
+    "* closed loop unstable: these figures are distances of the Nyquist curve from -1, "
+    "not margins of a working loop"
+)
+
+
 def _design_table(designs: list[dict[str, Any]]) -> str:
     """Metrics as rows, designs as columns, with units."""
     head = ["", *[_safe(str(d["name"])) for d in designs]]
@@ -216,10 +225,15 @@ def _design_table(designs: list[dict[str, Any]]) -> str:
         ["order", *[str(d["order"]) for d in designs]],
         ["compensator", *[_factored_dict(d["compensator"]) for d in designs]],
     ]
+    unstable = [d["metrics"].get("closed_loop_stable") is False for d in designs]
     for key in _TABLE_ROWS:
         label, unit = METRIC_UNITS.get(key, (key, ""))
         name = f"{label} [{unit}]" if unit and unit != "-" else label
-        rows.append([name, *[_fmt_value(key, d["metrics"].get(key)) for d in designs]])
+        rows.append([name, *[
+            _fmt_value(key, d["metrics"].get(key))
+            + (" *" if bad and key in _MARGIN_KEYS and d["metrics"].get(key) is not None else "")
+            for d, bad in zip(designs, unstable, strict=True)
+        ]])
     rows.append(["meets targets", *[_fmt_value("", d["meets_targets"]) for d in designs]])
     table = [head, *rows]
     widths = [max(len(r[i]) for r in table) for i in range(len(head))]
@@ -233,6 +247,8 @@ def _design_table(designs: list[dict[str, Any]]) -> str:
         )
         if j == 0:
             lines.append("  ".join("-" * w for w in widths))
+    if any(unstable):
+        lines.append(UNSTABLE_MARGIN_NOTE)
     return "\n".join(lines)
 
 

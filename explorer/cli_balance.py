@@ -58,11 +58,8 @@ def _run(args: argparse.Namespace) -> int:
 
     study = load_study(args.study)
     t = study.targets
-    if not isinstance(t.crossover_rad_s, (int, float)) or t.phase_margin_deg is None:
-        raise LoopscoutError(
-            f"{study.source}: the phase-balanced procedure needs a numeric `targets.crossover` "
-            "and `targets.phase_margin` (a range or a free crossover is for `explore`)"
-        )
+    # a crossover range, a free crossover or a missing phase margin is not bad input:
+    # each hand method refuses with its reason (docs/balance.md, "Errors")
     if args.trim_overshoot is not None and not (0 < args.trim_overshoot < 100):
         raise LoopscoutError(f"--trim-overshoot must be in (0, 100) %, got {args.trim_overshoot:g}")
     designs: list[dict[str, Any]] = []

@@ -218,6 +218,8 @@ def design_record(
         "pareto": pareto,
         "metrics": metrics,
     }
+    # the margins and peaks of an unstable loop are not robustness margins
+    rec["margins_valid"] = bool(metrics.get("closed_loop_stable"))
     if reasons is not None:
         rec["misses"] = reasons
     if extra:

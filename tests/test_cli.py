@@ -174,3 +174,18 @@ def test_a_console_that_cannot_encode_the_symbols_still_gets_the_table() -> None
     )
     assert run_.returncode == 0, run_.stderr
     assert b"hf gain |C(j?)|" in run_.stdout and b"Caution" in run_.stdout
+
+
+def test_margins_of_an_unstable_loop_are_marked(tmp_path, capsys) -> None:
+    """A pure integral gain of 50 on 1/((s+1)(s+2)) is unstable (Routh: s³+3s²+2s+50
+    has 3·2 < 50); its 'phase margin' is printed, but marked as no margin."""
+    f = tmp_path / "hot.toml"
+    f.write_text('[plant]\ngain=1\npoles=[-1,-2]\n[targets]\ncrossover=1\nphase_margin=50\n'
+                 'integrators=1\n[[compensator]]\nname="hot"\ngain=50\npoles=[0]\n')
+    assert main(["check", str(f)]) == 0
+    out = capsys.readouterr().out
+    pm_row = next(line for line in out.splitlines() if line.startswith("phase margin"))
+    assert pm_row.rstrip().endswith("*") and "closed loop unstable" in out
+    assert main(["check", str(f), "--json"]) == 0
+    (d,) = json.loads(capsys.readouterr().out)["designs"]
+    assert d["metrics"]["closed_loop_stable"] is False and d["margins_valid"] is False

@@ -56,10 +56,16 @@ def test_balance_refuses_with_reason(capsys: pytest.CaptureFixture[str]) -> None
     assert reasons and "short" in reasons[0]
 
 
-def test_balance_needs_numeric_targets(capsys: pytest.CaptureFixture[str]) -> None:
-    assert main(["balance", str(ROOT / "studies" / "drum_level.toml")]) == 2
-    err = capsys.readouterr().err
-    assert err.count("\n") == 1 and "targets.crossover" in err
+def test_balance_refuses_a_crossover_range_as_documented(
+    capsys: pytest.CaptureFixture[str],
+) -> None:
+    """docs/balance.md, "Errors": a crossover range is not bad input but a refusal of
+    each hand method, with the reason (exit 0, nothing designed)."""
+    assert main(["balance", str(ROOT / "studies" / "drum_level.toml"), "--json"]) == 0
+    obj = json.loads(capsys.readouterr().out)
+    assert obj["designs"] == [] and len(obj["refused"]) >= 3
+    assert all("range" in r["reason"] and "numeric crossover" in r["reason"]
+               for r in obj["refused"])
 
 
 def test_lag_design_reaches_error_constant(
