@@ -490,8 +490,10 @@ def _answer_html(
         cards.append(
             "<div class='card nothing' id='nothing-meets'><h2>No design meets the targets"
             f"</h2><p class='why'>{html.escape(why)}</p>"
-            "<p class='sub'>The closest designs and what stopped them are beside this; the "
-            "summary below says per structure what it reached.</p></div>"
+            + ("<p class='sub'>The closest designs and what stopped them are beside this; "
+               "the summary below says per structure what it reached.</p>" if designs else
+               "<p class='sub'>The summary below says per structure what it reached.</p>")
+            + "</div>"
         )
         close = sorted(designs, key=lambda x: (len(x.get("misses") or [1, 1, 1]),
                                                not x.get("metrics", {}).get("closed_loop_stable")))
