@@ -24,10 +24,13 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from scipy.optimize import minimize
 
 from explorer.loop import Rational
 from explorer.structures import Structure
-from explorer.tune import Problem, evaluate_batch
+from explorer.evaluate import PHASE_MARGIN_TOL_DEG
+from explorer.study import LIMIT_KEYS
+from explorer.tune import TIME_KEYS, Problem, evaluate_batch
 
 __all__ = ["CRITERIA", "Start", "coordinates", "evaluate_points", "iae_load_floor", "refine"]
 
@@ -133,6 +136,98 @@ def _evaluate_lazily(
     return res
 
 
+#: Central-difference step of the polish, as a fraction of each coordinate's range.
+_FD_STEP = 1e-6
+#: Margin kept inside each smooth constraint by the polish (relative to its scale).
+_POLISH_MARGIN = 1e-9
+
+
+def _smooth_constraints(problem: Problem, res: dict[str, Any]) -> np.ndarray:
+    """Signed, smooth forms (≥ 0 where they hold) of the constraints that bind at a
+    refined optimum: the smallest phase margin against its target, and every
+    frequency-domain ``[limits]`` bound, each relative to its scale. The others
+    (phase balance, stability, the crossover, the practical pole ratio) are checked by
+    feasibility, not followed."""
+    m = res["metrics"]
+    cols = [m["phase_margin_deg"] - (problem.pm_deg - PHASE_MARGIN_TOL_DEG)]
+    for key, bound in problem.limits.items():
+        if key in TIME_KEYS or key not in m:
+            continue
+        v = m[key]
+        scale = max(abs(bound), 1e-9)
+        if LIMIT_KEYS[key] == "upper":
+            cols.append(np.where(np.isnan(v), -1.0, (bound - v) / scale))
+        else:
+            cols.append(np.where(np.isnan(v), 1.0, (v - bound) / scale))
+    g = np.stack(cols, axis=1)
+    return np.where(np.isnan(g), -1.0, g) - _POLISH_MARGIN
+
+
+def _polish(
+    problem: Problem,
+    s: Structure,
+    coords,
+    x0: np.ndarray,
+    f0: float,
+    crit: str,
+    lo: np.ndarray,
+    hi: np.ndarray,
+    span: np.ndarray,
+) -> tuple[np.ndarray, float]:
+    """Converge a compass-search result onto its active constraints: SLSQP (Kraft,
+    "A software package for sequential quadratic programming", DFVLR-FB 88-28, 1988;
+    scipy.optimize.minimize) on the criterion with the smooth constraints of
+    :func:`_smooth_constraints`, every value and central-difference gradient from one
+    batch of 2d + 1 points. The compass search stops within its mesh of a curved
+    limit; this reaches the limit itself. The result is kept only when it is
+    feasible (every constraint of evaluate_batch) and better; else the best feasible
+    point on the segment from ``x0`` towards it, or ``x0``."""
+    d = x0.size
+    h = _FD_STEP * span
+    cache: dict[bytes, tuple[float, np.ndarray, np.ndarray, np.ndarray]] = {}
+    scale = max(abs(f0), 1e-12)
+
+    def point(x: np.ndarray) -> tuple[float, np.ndarray, np.ndarray, np.ndarray]:
+        key = x.tobytes()
+        if key not in cache:
+            pts = np.concatenate([x[None], x + np.diag(h), x - np.diag(h)], axis=0)
+            res = evaluate_points(problem, s, coords, pts, time_domain=False)
+            fv = CRITERIA[crit] * np.asarray(res["metrics"][crit], float) / scale
+            gv = _smooth_constraints(problem, res)
+            grad_f = (fv[1 : d + 1] - fv[d + 1 :]) / (2.0 * h)
+            grad_g = ((gv[1 : d + 1] - gv[d + 1 :]) / (2.0 * h)[:, None]).T
+            cache[key] = (float(fv[0]), grad_f, gv[0], grad_g)
+        return cache[key]
+
+    def ok(v: np.ndarray) -> np.ndarray:
+        return np.where(np.isfinite(v), v, -1.0)
+
+    try:
+        with np.errstate(all="ignore"):
+            opt = minimize(
+                lambda x: point(x)[0] if np.isfinite(point(x)[0]) else 1e6,
+                x0,
+                jac=lambda x: np.nan_to_num(point(x)[1]),
+                bounds=list(zip(lo, hi, strict=True)),
+                constraints=[{"type": "ineq", "fun": lambda x: ok(point(x)[2]),
+                              "jac": lambda x: np.nan_to_num(point(x)[3])}],
+                method="SLSQP",
+                options={"maxiter": 60, "ftol": 1e-12},
+            )
+        x1 = np.clip(np.asarray(opt.x, float), lo, hi)
+    except (ValueError, np.linalg.LinAlgError):  # a polish that cannot run keeps x0
+        return x0, f0
+    # the candidates: the SLSQP point and points on the way to it, in one batch
+    t = np.linspace(1.0, 0.0, 17)[:-1]
+    pts = x0[None] + t[:, None] * (x1 - x0)[None]
+    res = evaluate_points(problem, s, coords, pts, time_domain=False)
+    fc = _scores(res, [crit] * len(t))
+    j = int(np.argmin(fc))
+    if fc[j] < f0:
+        return pts[j], float(fc[j])
+    return x0, f0
+
+
 def iae_load_floor(plant: Rational, integral_gain: np.ndarray) -> np.ndarray:
     """Lower bound of ``iae_load`` per row: 1/|k_i| (0 where none is known).
 
@@ -209,12 +304,14 @@ def refine(
     min_step: float = MIN_STEP,
     max_iter: int = MAX_ITER,
     progress: Callable[[int, int], None] | None = None,
+    polish: bool = True,
 ) -> list[dict[str, float] | None]:
     """Refined parameters per start (the start itself when nothing better is found),
     or None for a start that is not feasible. Time-domain metrics are computed only
     when a study limit needs them (``problem.time_limits``); the caller re-evaluates
     the result fully. ``progress(iteration, max_iter)`` is called before each
-    iteration."""
+    iteration. ``polish``: finish a frequency-domain criterion on its active
+    constraints (:func:`_polish`)."""
     coords = coordinates(problem, s)
     d = len(coords)
     if not starts:
@@ -264,6 +361,11 @@ def refine(
             else:
                 last[k] = 0.0
                 step[k] *= 0.5
+    if polish and not td:
+        for i in range(len(starts)):
+            if np.isfinite(f[i]):
+                x[i], f[i] = _polish(problem, s, coords, x[i], f[i], crit[i],
+                                     lo_k[i], hi_k[i], span[i])
     out: list[dict[str, float] | None] = []
     for i in range(len(starts)):
         if not np.isfinite(f[i]):
