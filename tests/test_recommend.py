@@ -36,12 +36,12 @@ def test_a_fraction_of_ms_does_not_buy_many_times_the_noise() -> None:
                for line in lines)
 
 
-def test_weights_say_one_percent_ms_weighs_ten_percent_noise() -> None:
+def test_weights_say_one_percent_ms_weighs_fifteen_percent_noise() -> None:
     base = _d("a", ms=1.5, noise=10.0, ratio=2.0)
-    # 1 % more Ms against 10 % less noise gain and 10 % less noise ratio: a tie by the weights
-    other = _d("b", ms=1.5 * 1.01, noise=10.0 / 1.1, ratio=2.0 / 1.1)
+    # 1 % more Ms against 15 % less noise gain and 15 % less noise ratio: a tie by the weights
+    other = _d("b", ms=1.5 * 1.01, noise=10.0 / 1.15, ratio=2.0 / 1.15)
     c = cost([base, other], searched_wc=False)
-    assert W_MS * math.log(1.01) == pytest.approx(W_NOISE * math.log(1.1), rel=0.05)
+    assert W_MS * math.log(1.01) == pytest.approx(W_NOISE * math.log(1.15), rel=0.05)
     assert c[0] == pytest.approx(c[1], abs=0.01)
 
 
