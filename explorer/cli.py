@@ -161,6 +161,19 @@ def _print_study(study: Any) -> None:
         print(f"  converted: {line}")
     if study.limits:
         print("limits: " + ", ".join(f"{k} {v:g}" for k, v in study.limits.items()))
+    v = getattr(study, "variation", None)
+    if v is not None:
+        parts = []
+        if v.gain:
+            parts.append(f"gain x[{v.gain[0]:g}, {v.gain[1]:g}]")
+        if v.delay_s:
+            parts.append(f"delay [{v.delay_s[0]:g}, {v.delay_s[1]:g}] s")
+        if v.time_scale:
+            parts.append(f"time scale x[{v.time_scale[0]:g}, {v.time_scale[1]:g}]")
+        if v.members:
+            parts.append(f"{len(v.members)} listed member(s)")
+        print("plant family: " + ", ".join(parts)
+              + " (limits and stability apply to every member; targets to the nominal)")
     print()
 
 
@@ -234,6 +247,16 @@ def _design_table(designs: list[dict[str, Any]]) -> str:
             + (" *" if bad and key in _MARGIN_KEYS and d["metrics"].get(key) is not None else "")
             for d, bad in zip(designs, unstable, strict=True)
         ]])
+    if any("worst" in d for d in designs):
+        from explorer.family import WORST_KEYS
+
+        for key in WORST_KEYS:
+            label, unit = METRIC_UNITS.get(key, (key, ""))
+            name = f"worst {label} [{unit}]" if unit and unit != "-" else f"worst {label}"
+            rows.append([name, *[
+                _fmt_value(key, d["worst"].get(key)) if "worst" in d else "" for d in designs
+            ]])
+        rows.append(["worst-Ms member", *[_member(d.get("worst_member")) for d in designs]])
     rows.append(["meets targets", *[_fmt_value("", d["meets_targets"]) for d in designs]])
     table = [head, *rows]
     widths = [max(len(r[i]) for r in table) for i in range(len(head))]
@@ -250,6 +273,15 @@ def _design_table(designs: list[dict[str, Any]]) -> str:
     if any(unstable):
         lines.append(UNSTABLE_MARGIN_NOTE)
     return "\n".join(lines)
+
+
+def _member(m: dict[str, Any] | None) -> str:
+    """A worst member in a table cell: gain factor, delay, time scale (or its label)."""
+    if not m:
+        return ""
+    if m.get("gain_factor") is None:
+        return str(m.get("where", ""))
+    return f"g x{m['gain_factor']:.3g}, {m['delay_s']:.3g} s, t x{m['time_scale']:.3g}"
 
 
 def _factored_dict(c: dict[str, Any]) -> str:

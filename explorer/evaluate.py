@@ -112,16 +112,25 @@ def meets_targets(
     targets: Targets,
     limits: dict[str, float],
     loop_integrators: int,
+    worst: dict[str, Any] | None = None,
 ) -> tuple[bool, list[str]]:
     """interface.md's test, with the reasons a design misses (empty when it meets).
+
+    ``worst``: for a plant family, the worst values over the family (DESIGN
+    ``"worst"``); then closed-loop stability and every limit are read from it, the
+    targets from ``metrics`` (the nominal plant).
 
     A lower-bound limit on a margin that is null ("does not exist": no crossover or
     no phase crossover, i.e. infinite) holds; an upper-bound limit on a null value
     (unstable, improper, never settles) fails.
     """
     why: list[str] = []
+    lim_src = metrics if worst is None else worst
+    tag = "" if worst is None else " (worst over the plant family)"
     if not metrics.get("closed_loop_stable"):
         why.append("closed loop unstable")
+    elif worst is not None and not worst.get("closed_loop_stable"):
+        why.append("closed loop unstable for some member of the plant family")
     if loop_integrators < targets.integrators:
         why.append(f"loop has {loop_integrators} integrator(s), needs {targets.integrators}")
     wc = targets.crossover_rad_s
@@ -158,14 +167,14 @@ def meets_targets(
             unit = METRIC_UNITS[key][1]
             why.append(f"{key} {_fmt(value)} > required {req:g} {unit}")
     for key, bound in limits.items():
-        value = metrics.get(key)
+        value = lim_src.get(key) if key in lim_src else metrics.get(key)
         kind = LIMIT_KEYS[key]
         unit = METRIC_UNITS.get(key, (key, ""))[1].strip("-")
         if kind == "upper":
             if value is None or value > bound:
-                why.append(f"{key} {_fmt(value)} > limit {bound:g} {unit}".rstrip())
+                why.append(f"{key} {_fmt(value)} > limit {bound:g} {unit}".rstrip() + tag)
         elif value is not None and value < bound:
-            why.append(f"{key} {_fmt(value)} < limit {bound:g} {unit}".rstrip())
+            why.append(f"{key} {_fmt(value)} < limit {bound:g} {unit}".rstrip() + tag)
     return (not why), why
 
 
@@ -240,9 +249,17 @@ def evaluated_record(
     (:func:`design_metrics`) and the target check (:func:`meets_targets`); raises
     what ``design_metrics`` raises."""
     metrics = design_metrics(study.plant, comp)
+    fam: dict[str, Any] = {}
+    if study.variation is not None:
+        from explorer.family import worst_of_design
+
+        fam = worst_of_design(study.plant, study.variation, comp, metrics)
     ok, why = meets_targets(
-        metrics, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators
+        metrics, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators,
+        worst=fam.get("worst"),
     )
+    if fam:
+        extra = {**fam, **(extra or {})}
     return design_record(
         name=name, origin=origin, structure=structure, comp=comp, metrics=metrics,
         meets=ok, reasons=why, extra=extra,

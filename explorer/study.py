@@ -32,6 +32,7 @@ __all__ = [
     "SearchOptions",
     "NamedCompensator",
     "Study",
+    "Variation",
     "LIMIT_KEYS",
     "load_study",
     "parse_study",
@@ -70,11 +71,16 @@ _LIMIT_RANGES: dict[str, tuple[float, bool, float, bool, str]] = {
 }
 
 MAX_SEARCH_ORDER = 6
-_TOP_KEYS = ("name", "plant", "targets", "limits", "search", "compensator")
+_TOP_KEYS = ("name", "plant", "targets", "limits", "search", "compensator", "variation")
 _ROOT_FORM = ("gain", "zeros", "poles")
 _POLY_FORM = ("num", "den")
 _PLANT_KEYS = (*_ROOT_FORM, *_POLY_FORM, "delay")
 _COMP_KEYS = ("name", *_ROOT_FORM, *_POLY_FORM)
+_VARIATION_KEYS = ("gain", "delay", "time_scale", "member")
+#: Largest hi/lo of a [variation] gain or time_scale factor range.
+MAX_FACTOR_RATIO = 1e3
+#: Most [[variation.member]] entries (each is a full evaluation of every design).
+MAX_MEMBERS = 20
 _TARGET_KEYS = (
     "crossover",
     "phase_margin",
@@ -196,8 +202,22 @@ class NamedCompensator:
 
 
 @dataclass(frozen=True, kw_only=True)
+class Variation:
+    """A plant family (``[variation]``, docs/study-file.md): every plant
+    g·P(σ·s)·e^(−sτ) with g in ``gain``, τ in ``delay_s`` and σ in ``time_scale``
+    (P the nominal rational part; a range is None when absent), plus the listed
+    ``members`` (full plants with their own delays)."""
+
+    gain: tuple[float, float] | None = None
+    delay_s: tuple[float, float] | None = None
+    time_scale: tuple[float, float] | None = None
+    members: tuple[Rational, ...] = ()
+
+
+@dataclass(frozen=True, kw_only=True)
 class Study:
-    """A validated study. ``source`` is the file name as given (for messages)."""
+    """A validated study. ``source`` is the file name as given (for messages).
+    ``variation`` is None for a study of one plant."""
 
     name: str
     source: str
@@ -206,6 +226,7 @@ class Study:
     limits: dict[str, float]
     search: SearchOptions
     compensators: tuple[NamedCompensator, ...]
+    variation: Variation | None = None
 
 
 # -- entry points ---------------------------------------------------------------------------
@@ -316,6 +337,9 @@ def parse_study(data: dict[str, Any], source: str = "<study>") -> Study:
     search = _search(_table(data, "search", "", required=False))
     compensators = _compensators(data.get("compensator"))
     _check_domain(plant, plant_tab, targets, compensators, data.get("compensator"))
+    variation = None
+    if "variation" in data:
+        variation = _variation(_table(data, "variation", "", required=True), plant)
     return Study(
         name=name,
         source=source,
@@ -324,6 +348,7 @@ def parse_study(data: dict[str, Any], source: str = "<study>") -> Study:
         limits=limits,
         search=search,
         compensators=compensators,
+        variation=variation,
     )
 
 
@@ -501,6 +526,99 @@ def _compensators(value: Any) -> tuple[NamedCompensator, ...]:
                         "; its high-frequency gain would be infinite")
         out.append(NamedCompensator(name=name, compensator=comp))
     return tuple(out)
+
+
+def _range(value: Any, key: str, unit: str = "") -> tuple[float, float]:
+    if not isinstance(value, list) or len(value) != 2:
+        raise StudyFileError(key, f"must be a range [low, high]{unit}, got {_describe(value)}")
+    lo = _number(value[0], f"{key}[0]")
+    hi = _number(value[1], f"{key}[1]")
+    if lo > hi:
+        raise StudyFileError(key, f"must have low ≤ high, got [{_fmt(lo)}, {_fmt(hi)}]")
+    return lo, hi
+
+
+def _factor_range(tab: Mapping[str, Any], name: str) -> tuple[float, float] | None:
+    if name not in tab:
+        return None
+    key = f"variation.{name}"
+    lo, hi = _range(tab[name], key)
+    if lo <= 0.0:
+        raise StudyFileError(key, f"must have factors > 0, got low = {_fmt(lo)}")
+    if not lo <= 1.0 <= hi:
+        raise StudyFileError(key, f"must contain the nominal factor 1, got [{_fmt(lo)}, "
+                                  f"{_fmt(hi)}]")
+    if hi > MAX_FACTOR_RATIO * lo:
+        raise StudyFileError(key, f"spans a factor {_fmt(hi / lo)}; at most "
+                                  f"{_fmt(MAX_FACTOR_RATIO)} is allowed (numerical domain)")
+    return lo, hi
+
+
+def _variation(tab: Mapping[str, Any], plant: Rational) -> Variation:
+    """``[variation]``: ranges containing the nominal plant, and listed members."""
+    _check_keys(tab, _VARIATION_KEYS, "variation")
+    gain = _factor_range(tab, "gain")
+    ts = _factor_range(tab, "time_scale")
+    delay = None
+    if "delay" in tab:
+        lo, hi = _range(tab["delay"], "variation.delay", " in s")
+        if lo < 0.0:
+            raise StudyFileError("variation.delay", f"must have delays ≥ 0 s, got low = "
+                                                    f"{_fmt(lo)}")
+        d0 = plant.delay_s
+        if not lo <= d0 <= hi:
+            raise StudyFileError("variation.delay", f"must contain the nominal plant.delay "
+                                                    f"{_fmt(d0)} s, got [{_fmt(lo)}, {_fmt(hi)}]")
+        for v, i in ((lo, 0), (hi, 1)):
+            if v and not 1.0 / FREQ_MAX <= v <= 1.0 / FREQ_MIN:
+                raise StudyFileError(
+                    f"variation.delay[{i}]", f"must be 0 or in [{_fmt(1.0 / FREQ_MAX)}, "
+                    f"{_fmt(1.0 / FREQ_MIN)}] s (numerical domain), got {_fmt(v)}")
+        delay = (lo, hi)
+    if ts is not None:
+        for r in (*plant.zeros, *plant.poles):
+            if r != 0 and r.real == 0:
+                raise StudyFileError(
+                    "variation.time_scale", "needs a plant without undamped roots off the "
+                    f"origin (the plant has {_fmt_root(r)}): the worst-case bound over the "
+                    "time scale divides by each root's damping")
+            for f in ts:
+                if r != 0:
+                    _check_window(abs(r) / f, "variation.time_scale", "moves a plant root to",
+                                  r / f)
+    members: list[Rational] = []
+    raw = tab.get("member", [])
+    if not isinstance(raw, list):
+        raise StudyFileError("variation.member", "must be written as [[variation.member]] "
+                                                 f"tables, got {_describe(raw)}")
+    if len(raw) > MAX_MEMBERS:
+        raise StudyFileError("variation.member", f"has {len(raw)} entries; at most "
+                                                 f"{MAX_MEMBERS} are allowed")
+    from explorer.loop import feedback_sign
+
+    for i, entry in enumerate(raw):
+        where = f"variation.member[{i}]"
+        if not isinstance(entry, Mapping):
+            raise StudyFileError(where, f"must be a table, got {_describe(entry)}")
+        _check_keys(entry, _PLANT_KEYS, where)
+        m = _rational(entry, where, allow_delay=True)
+        _require_proper(m, entry, where, "plant", "")
+        if feedback_sign(m) != feedback_sign(plant):
+            raise StudyFileError(
+                f"{where}.gain", "acts in the opposite direction to the nominal plant (its "
+                "static gain has the other sign): no one compensator can be negative "
+                "feedback for both")
+        if m.n_integrators != plant.n_integrators:
+            raise StudyFileError(
+                where, f"has {m.n_integrators} integrator(s), the nominal plant "
+                f"{plant.n_integrators}: members must share the plant's integrators")
+        _check_domain(m, entry, Targets(crossover_rad_s=None, phase_margin_deg=None,
+                                        integrators=0), (), None, where)
+        members.append(m)
+    if gain is None and delay is None and ts is None and not members:
+        raise StudyFileError("variation", "is empty: give gain, delay, time_scale or "
+                                          "[[variation.member]] entries")
+    return Variation(gain=gain, delay_s=delay, time_scale=ts, members=tuple(members))
 
 
 # -- rational factors -------------------------------------------------------------------------
@@ -711,6 +829,7 @@ def _check_domain(
     targets: Targets,
     compensators: tuple[NamedCompensator, ...],
     comp_raw: Any,
+    where: str = "plant",
 ) -> None:
     """The study-wide parts of the numerical domain (docs/study-file.md): the span of its
     characteristic frequencies, and finite products of root factors in every loop."""
@@ -722,9 +841,9 @@ def _check_domain(
                            (r.poles, "den" if poly else "poles")):
             freqs.extend((abs(x), f"{where}.{key}") for x in roots if x != 0)
 
-    factor(plant, plant_tab, "plant")
+    factor(plant, plant_tab, where)
     if plant.delay_s > 0:
-        freqs.append((1.0 / plant.delay_s, "plant.delay"))
+        freqs.append((1.0 / plant.delay_s, f"{where}.delay"))
     wc = targets.crossover_rad_s
     wc_key = "targets.settling_time" if targets.settling_time_s is not None else \
         "targets.crossover"
@@ -760,7 +879,7 @@ def _check_domain(
             )
     if plant.delay_s > 0 and lo is not None and 1.0 / plant.delay_s > DELAY_SPAN * lo[0]:
         raise StudyFileError(
-            "plant.delay", f"of {_fmt(plant.delay_s)} s is shorter than the numerical domain "
+            f"{where}.delay", f"of {_fmt(plant.delay_s)} s is shorter than the numerical domain "
                            f"allows against the {_fmt(lo[0])} rad/s of `{lo[1]}`: 1/delay may "
                            f"be at most {_fmt(DELAY_SPAN)} times the study's slowest frequency "
                            f"(delay ≥ {_fmt(1.0 / (DELAY_SPAN * lo[0]))} s); give delay = 0 "
@@ -769,7 +888,7 @@ def _check_domain(
     f_lo = lo[0] if lo else 1.0
     f_hi = hi[0] if hi else 1.0
     points = (f_lo / MAGNITUDE_REACH, f_hi * MAGNITUDE_REACH)
-    loops = [(plant, "plant", "the plant's")]
+    loops = [(plant, where, "the plant's")]
     loops += [(plant * c.compensator, f"compensator[{i}]", "the loop's")
               for i, c in enumerate(compensators)]
     for loop, key, whose in loops:

@@ -1,0 +1,596 @@
+"""Worst case of a design over a plant family (``[variation]``, docs/metrics.md
+"Worst case over a plant family").
+
+The family is every plant g·P(σ·s)·e^(−sτ) with g ∈ [g_lo, g_hi], τ ∈ [τ_lo, τ_hi],
+σ ∈ [σ_lo, σ_hi] (P the nominal rational part), plus listed members.
+
+**Exact geometry for gain × delay.** At one frequency the loop values
+g·e^(−jωτ)·L_σ(jω) of the gain × delay box fill an annular sector: radii
+|L_σ|·[g_lo, g_hi], angles arg L_σ − ω·[τ_lo, τ_hi] (L_σ with no delay). Its distance
+to −1 is closed-form (:func:`sector_distance`): radial when the angular span covers
+the direction of −1 (always when the span is ≥ 2π), else the distance to the nearer
+edge segment (the arcs' nearest points are their ends, which lie on the segments).
+max |S| over the box at ω is 1/that distance; max |T| = max 1/|1 + 1/L| is the same
+with the inverse sector (radii 1/r, angles negated).
+
+**Time scale: a bound.** d ln P(jσω)/d ln σ = Σ_z jσω/(jσω − z) − Σ_p jσω/(jσω − p);
+each term has modulus ≤ |r|/|Re r| = 1/ζ_r (the largest of ω/|jω − r| over ω), and
+exactly 1 for a root at the origin. So over a cell |ln σ − ln σ_m| ≤ h,
+|ln L_σ − ln L_σm| ≤ δ = h·Σ 1/ζ_r at every ω: the cell lies inside the sector of σ_m
+widened by the factor e^(±δ) in radius and ±δ in angle. The σ range is cut into
+cells until δ ≤ ``TIME_SCALE_TOL`` (at most ``MAX_CELLS`` cells; the δ reached is
+reported), so the value reported is an upper bound of the worst over the cell, and
+at most a factor e^(2δ) above it where the peak is radial.
+
+**Frequencies.** Each (design, cell) row is evaluated on the metrics grid of its
+loop at the largest delay (docs/metrics.md: it resolves the delay's phase rotation),
+then the smallest local minima of the distance are refined by golden-section search
+in ln ω between their grid neighbours.
+
+**Stability.** A family whose nominal member is closed-loop stable stays stable
+while no member puts −1 on its Nyquist curve: the closed-loop poles move
+continuously with (g, τ, σ) over the connected box, and cross into the right half
+plane only through the imaginary axis, i.e. where 1 + L(jω) = 0 for some member and
+ω — where −1 lies in the sector of that ω (zero exclusion: Barmish, *New Tools for
+Robustness of Linear Systems*, Macmillan 1994, ch. 7). The open-loop right-half-plane
+poles and the integrators are the same for every member (g > 0, σ > 0), so the
+Nyquist count does not change otherwise. Here: the family is stable when every
+sampled member (nominal, corners, listed) is stable by the Nyquist engine and the
+refined minimum distance from −1 to the sectors is positive (above ``MIN_DISTANCE``).
+
+**Margins.** Worst phase margin: min over ω where some gain of the box makes a
+crossover (r_lo ≤ 1 ≤ r_hi) of π + the smallest angle of the sector (wrapped into
+(−π, π]); worst delay margin: that margin (≥ 0) over ω; worst gain margin: min over ω
+where the sector's angles cover −180° and r_hi < 1 of −20·log10 r_hi. Evaluated on
+the grid and at the edges of those frequency sets (crossovers of the extreme
+members, refined by bisection), combined with the exact margins of the sampled
+members. Time-domain worst values have no such geometry: they are the worst over
+a stated finite set (:func:`time_members`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from explorer.loop import LoopBatch, Rational
+from explorer.study import Variation
+
+__all__ = [
+    "Member",
+    "scaled_plant",
+    "sector_distance",
+    "sampled_members",
+    "time_members",
+    "box_worst_batch",
+    "family_worst_batch",
+    "WORST_KEYS",
+    "TIME_SCALE_TOL",
+]
+
+#: Largest log-deviation δ of a time-scale cell (radius factor e^δ, angle δ rad).
+TIME_SCALE_TOL = 0.02
+MAX_CELLS = 48
+#: Below this distance from −1 to a sector the family counts as touching −1.
+MIN_DISTANCE = 1e-9
+_GOLDEN_ITERS = 40
+_BISECT_ITERS = 50
+_CANDIDATES = 3
+
+WORST_KEYS = (
+    "sensitivity_peak",
+    "complementary_peak",
+    "phase_margin_deg",
+    "gain_margin_db",
+    "delay_margin_s",
+    "closed_loop_stable",
+    "overshoot_pct",
+    "settling_time_s",
+    "iae_load",
+)
+
+
+@dataclass(frozen=True, kw_only=True)
+class Member:
+    """One operating point: factors on the nominal plant (None for a listed member)
+    and the plant itself."""
+
+    gain_factor: float | None
+    delay_s: float
+    time_scale: float | None
+    plant: Rational
+    label: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"gain_factor": self.gain_factor, "delay_s": self.delay_s,
+                "time_scale": self.time_scale, "label": self.label}
+
+
+def scaled_plant(plant: Rational, gain_factor: float, delay_s: float,
+                 time_scale: float) -> Rational:
+    """g·P(σ·s)·e^(−sτ): roots divided by σ, gain g·k·σ^(nz − np) (the static gain,
+    or an integrating plant's velocity constant per unit of time-scaled time,
+    follows P(σ·s))."""
+    sig = float(time_scale)
+    nz, npl = len(plant.zeros), len(plant.poles)
+    return Rational(
+        gain=plant.gain * gain_factor * sig ** (nz - npl),
+        zeros=tuple(z / sig for z in plant.zeros),
+        poles=tuple(p / sig for p in plant.poles),
+        delay_s=delay_s,
+    )
+
+
+def _ranges(plant: Rational, v: Variation) -> tuple[tuple[float, float], ...]:
+    g = v.gain or (1.0, 1.0)
+    d = v.delay_s or (plant.delay_s, plant.delay_s)
+    s = v.time_scale or (1.0, 1.0)
+    return g, d, s
+
+
+def has_box(plant: Rational, v: Variation) -> bool:
+    g, d, s = _ranges(plant, v)
+    return g[0] < g[1] or d[0] < d[1] or s[0] < s[1]
+
+
+def sampled_members(plant: Rational, v: Variation) -> list[Member]:
+    """Nominal first, then the corners of the box (distinct ones), then the listed
+    members."""
+    g, d, s = _ranges(plant, v)
+    out = [Member(gain_factor=1.0, delay_s=plant.delay_s, time_scale=1.0, plant=plant,
+                  label="nominal")]
+    seen = {(1.0, plant.delay_s, 1.0)}
+    for gi in sorted(set(g)):
+        for di in sorted(set(d)):
+            for si in sorted(set(s)):
+                key = (gi, di, si)
+                if key in seen:
+                    continue
+                seen.add(key)
+                out.append(Member(gain_factor=gi, delay_s=di, time_scale=si,
+                                  plant=scaled_plant(plant, gi, di, si),
+                                  label=f"corner g×{gi:g}, τ={di:g} s, σ×{si:g}"))
+    for i, m in enumerate(v.members):
+        out.append(Member(gain_factor=None, delay_s=m.delay_s, time_scale=None, plant=m,
+                          label=f"member[{i}]"))
+    return out
+
+
+def time_members(plant: Rational, v: Variation) -> list[Member]:
+    """The finite set the time-domain worst values are taken over (besides the
+    worst-Ms member of each design): nominal, every corner, every listed member."""
+    return sampled_members(plant, v)
+
+
+# --------------------------------------------------------------------------------------
+# geometry
+# --------------------------------------------------------------------------------------
+def sector_distance(theta_lo: np.ndarray, span: np.ndarray, r_lo: np.ndarray,
+                    r_hi: np.ndarray) -> np.ndarray:
+    """Distance from −1 to {r·e^(jθ): r_lo ≤ r ≤ r_hi, θ_lo ≤ θ ≤ θ_lo + span}
+    (span ≥ 0, radii ≥ 0, broadcast). Closed form, see the module doc."""
+    theta_lo, span, r_lo, r_hi = np.broadcast_arrays(
+        np.asarray(theta_lo, float), np.asarray(span, float), np.asarray(r_lo, float),
+        np.asarray(r_hi, float))
+    inside = (span >= 2.0 * np.pi) | (np.mod(np.pi - theta_lo, 2.0 * np.pi) <= span)
+    with np.errstate(invalid="ignore"):
+        radial = np.maximum(np.maximum(r_lo - 1.0, 1.0 - r_hi), 0.0)
+        best = np.full(theta_lo.shape, np.inf)
+        for th in (theta_lo, theta_lo + span):
+            c = np.cos(th)
+            t = np.clip(-c, r_lo, r_hi)
+            d2 = 1.0 + 2.0 * t * c + t * t
+            best = np.minimum(best, np.sqrt(np.maximum(d2, 0.0)))
+    return np.where(inside, radial, best)
+
+
+def _wrap(a: np.ndarray) -> np.ndarray:
+    """Into (−π, π]."""
+    return np.pi - np.mod(np.pi - a, 2.0 * np.pi)
+
+
+@dataclass(frozen=True)
+class _Box:
+    g: tuple[float, float]
+    d: tuple[float, float]
+    sig_centres: np.ndarray
+    delta: float  # log-deviation bound of a time-scale cell
+
+
+def _box(plant: Rational, v: Variation) -> _Box:
+    g, d, s = _ranges(plant, v)
+    if s[0] == s[1]:
+        return _Box(g, d, np.array([s[0]]), 0.0)
+    b = 0.0
+    for r in (*plant.zeros, *plant.poles):
+        b += 1.0 if r == 0 else abs(r) / abs(r.real)
+    width = math.log(s[1] / s[0])
+    n = max(1, min(MAX_CELLS, math.ceil(width * b / (2.0 * TIME_SCALE_TOL))))
+    h = width / (2 * n)
+    centres = np.exp(math.log(s[0]) + h * (2 * np.arange(n) + 1))
+    return _Box(g, d, centres, h * b)
+
+
+class _Rows:
+    """(design, cell) rows of the box: the loop at the cell's centre with the largest
+    delay, and the sector bounds at any ω."""
+
+    def __init__(self, plant: Rational, box: _Box, cg, cz, cp) -> None:
+        n = cg.shape[0]
+        self.n = n
+        self.box = box
+        parts = [
+            LoopBatch.series(scaled_plant(plant, 1.0, box.d[1], s), cg, cz, cp)
+            for s in box.sig_centres
+        ]
+        self.loops = LoopBatch(
+            gain=np.concatenate([p.gain for p in parts]),
+            zeros=np.concatenate([p.zeros for p in parts]),
+            poles=np.concatenate([p.poles for p in parts]),
+            delay_s=np.concatenate([p.delay_s for p in parts]),
+        )
+        self.design = np.tile(np.arange(n), len(parts))
+        self.cell = np.repeat(np.arange(len(parts)), n)
+
+    def sector(self, lval: np.ndarray, w: np.ndarray):
+        """(θ_lo, span, r_lo, r_hi) of the box at loop values ``lval`` (largest delay)."""
+        b = self.box
+        mag = np.abs(lval)
+        e = math.exp(b.delta)
+        theta_lo = np.angle(lval) - b.delta
+        span = w * (b.d[1] - b.d[0]) + 2.0 * b.delta
+        return theta_lo, span, mag * b.g[0] / e, mag * b.g[1] * e
+
+    def values(self, rows: np.ndarray, w: np.ndarray) -> np.ndarray:
+        val, _ = self.loops.value_at(rows, w)
+        return val
+
+
+def _dist_s(rows: _Rows, lval, w):
+    return sector_distance(*rows.sector(lval, w))
+
+
+def _dist_t(rows: _Rows, lval, w):
+    th, span, r_lo, r_hi = rows.sector(lval, w)
+    with np.errstate(divide="ignore"):
+        return sector_distance(-(th + span), span, 1.0 / r_hi, 1.0 / r_lo)
+
+
+def _refined_min(rows: _Rows, grid: np.ndarray, dist: np.ndarray, fn) -> tuple:
+    """Per row: min over ω of ``fn`` refined from the grid's smallest local minima
+    by golden-section search in ln ω; returns (min, ω at min)."""
+    nr, m = dist.shape
+    d = np.where(np.isfinite(dist), dist, np.inf)
+    k0 = np.argmin(d, axis=1)
+    best = d[np.arange(nr), k0]
+    best_w = grid[np.arange(nr), k0]
+    interior = np.zeros_like(d, dtype=bool)
+    interior[:, 1:-1] = (d[:, 1:-1] <= d[:, :-2]) & (d[:, 1:-1] <= d[:, 2:])
+    cand = np.where(interior, d, np.inf)
+    k = min(_CANDIDATES, m - 2)
+    if k <= 0:
+        return best, best_w
+    idx = np.argpartition(cand, k - 1, axis=1)[:, :k]
+    ri = np.repeat(np.arange(nr), k)
+    ki = idx.ravel()
+    ok = np.isfinite(cand[ri, ki])
+    ri, ki = ri[ok], ki[ok]
+    if ri.size == 0:
+        return best, best_w
+    a = np.log(grid[ri, ki - 1])
+    b = np.log(grid[ri, ki + 1])
+    gr = (math.sqrt(5.0) - 1.0) / 2.0
+    c = b - gr * (b - a)
+    e = a + gr * (b - a)
+
+    def f(x):
+        w = np.exp(x)
+        return fn(rows, rows.values(ri, w), w)
+
+    fc, fe = f(c), f(e)
+    for _ in range(_GOLDEN_ITERS):
+        left = fc < fe  # the minimum is in [a, e]: e ← c; else in [c, b]: c ← e
+        a, b = np.where(left, a, c), np.where(left, e, b)
+        c_new = np.where(left, b - gr * (b - a), e)
+        e_new = np.where(left, c, a + gr * (b - a))
+        xn = np.where(left, c_new, e_new)
+        fn_new = f(xn)
+        fc, fe = np.where(left, fn_new, fe), np.where(left, fc, fn_new)
+        c, e = c_new, e_new
+    xs = np.where(fc < fe, c, e)
+    fs = np.minimum(fc, fe)
+    order = np.lexsort((fs, ri))
+    rs, fs, xs = ri[order], fs[order], xs[order]
+    first = np.r_[True, rs[1:] != rs[:-1]]
+    rs, fs, xs = rs[first], fs[first], xs[first]
+    better = fs < best[rs]
+    best[rs[better]] = fs[better]
+    best_w[rs[better]] = np.exp(xs[better])
+    return best, best_w
+
+
+def _edge_points(rows: _Rows, grid: np.ndarray, fval: np.ndarray, fn) -> tuple:
+    """Sign changes of ``fval`` along each row's grid refined by bisection on ``fn``
+    (rows, ω) → real; returns (rows, ω) of the events."""
+    s = np.sign(fval)
+    br = (s[:, :-1] * s[:, 1:] < 0)
+    ri, ki = np.nonzero(br)
+    if ri.size == 0:
+        return ri, np.zeros(0)
+    a = np.log(grid[ri, ki])
+    b = np.log(grid[ri, ki + 1])
+    fa = fval[ri, ki]
+    for _ in range(_BISECT_ITERS):
+        mid = 0.5 * (a + b)
+        fm = fn(ri, np.exp(mid))
+        same = np.sign(fm) == np.sign(fa)
+        a = np.where(same, mid, a)
+        fa = np.where(same, fm, fa)
+        b = np.where(same, b, mid)
+    return ri, np.exp(0.5 * (a + b))
+
+
+def box_worst_batch(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.ndarray]:
+    """Worst frequency figures over the box for a batch of compensators (arrays of
+    shape (n,), NaN = null/infinite): ``sensitivity_peak``, ``complementary_peak``,
+    ``phase_margin_deg``, ``gain_margin_db``, ``delay_margin_s``, ``min_distance``,
+    and the Ms member ``ms_gain_factor``, ``ms_delay_s``, ``ms_time_scale``; and
+    ``time_scale_bound`` (δ of the time-scale cells)."""
+    from explorer.metrics import design_grid
+
+    cg = np.asarray(cg, float).ravel()
+    n = cg.shape[0]
+    cz = np.asarray(cz, complex).reshape(n, -1)
+    cp = np.asarray(cp, complex).reshape(n, -1)
+    box = _box(plant, v)
+    rows = _Rows(plant, box, cg, cz, cp)
+    grid = design_grid(rows.loops)
+    lval = rows.loops.freqresp(grid)
+    ds = _dist_s(rows, lval, grid)
+    dt = _dist_t(rows, lval, grid)
+    s_min, s_w = _refined_min(rows, grid, ds, _dist_s)
+    t_min, _ = _refined_min(rows, grid, dt, _dist_t)
+
+    # margins on the grid
+    th, span, r_lo, r_hi = rows.sector(lval, grid)
+    cross = (r_lo <= 1.0) & (r_hi >= 1.0)
+    pm = _wrap(np.pi + th)
+    pm_g = np.where(cross, pm, np.inf)
+    dm_g = np.where(cross, np.maximum(pm, 0.0) / grid, np.inf)
+    covers = (span >= 2.0 * np.pi) | (np.mod(np.pi - th, 2.0 * np.pi) <= span)
+    gm_g = np.where(covers & (r_hi < 1.0), -20.0 * np.log10(np.maximum(r_hi, 1e-300)), np.inf)
+    pm_min = pm_g.min(axis=1)
+    dm_min = dm_g.min(axis=1)
+    gm_min = gm_g.min(axis=1)
+
+    # edges of the crossover set (ln r_lo = 0, ln r_hi = 0) and of the phase set
+    # (an edge angle at −180°), refined by bisection
+    def lr(which):
+        def f(ri, w):
+            _, _, a, b = rows.sector(rows.values(ri, w), w)
+            return np.log(np.maximum(a if which == 0 else b, 1e-300))
+        return f
+
+    def ang(which):
+        def f(ri, w):
+            t, sp, _, _ = rows.sector(rows.values(ri, w), w)
+            return np.sin(t if which == 0 else t + sp)
+        return f
+
+    with np.errstate(divide="ignore"):
+        for which, src in ((0, r_lo), (1, r_hi)):
+            ri, w = _edge_points(rows, grid, np.log(np.maximum(src, 1e-300)), lr(which))
+            if ri.size:
+                t, _, _, _ = rows.sector(rows.values(ri, w), w)
+                p = _wrap(np.pi + t)
+                np.minimum.at(pm_min, ri, p)
+                np.minimum.at(dm_min, ri, np.maximum(p, 0.0) / w)
+        for which in (0, 1):
+            edge = th if which == 0 else th + span
+            f_grid = np.where(np.cos(edge) < 0, np.sin(edge), np.nan)
+            ri, w = _edge_points(rows, grid, np.nan_to_num(f_grid, nan=0.0), ang(which))
+            if ri.size:
+                t, sp, _, rh = rows.sector(rows.values(ri, w), w)
+                e = t if which == 0 else t + sp
+                ok = (np.cos(e) < 0) & (rh < 1.0)
+                vals = np.where(ok, -20.0 * np.log10(np.maximum(rh, 1e-300)), np.inf)
+                np.minimum.at(gm_min, ri, vals)
+
+    # per design: worst over the cells
+    def per_design(x, fn):
+        out = np.full(n, np.inf if fn is np.minimum else -np.inf)
+        fn.at(out, rows.design, x)
+        return out
+
+    s_design = per_design(s_min, np.minimum)
+    cell_of = np.zeros(n, int)
+    w_of = np.zeros(n)
+    for r in np.argsort(-s_min):  # ends with the smallest per design
+        cell_of[rows.design[r]] = rows.cell[r]
+        w_of[rows.design[r]] = s_w[r]
+    # the member at the nearest point of the worst sector
+    rr = cell_of * n + np.arange(n)
+    lv = rows.values(rr, w_of)
+    th1, sp1, rl1, rh1 = rows.sector(lv, w_of)
+    g_f, tau = _nearest_member(th1, sp1, rl1, rh1, np.abs(lv), np.angle(lv), w_of, box)
+    with np.errstate(divide="ignore"):
+        out = {
+            "sensitivity_peak": 1.0 / s_design,
+            "complementary_peak": 1.0 / per_design(t_min, np.minimum),
+            "phase_margin_deg": np.degrees(per_design(pm_min, np.minimum)),
+            "gain_margin_db": per_design(gm_min, np.minimum),
+            "delay_margin_s": per_design(dm_min, np.minimum),
+            "min_distance": s_design,
+            "ms_gain_factor": g_f,
+            "ms_delay_s": tau,
+            "ms_time_scale": box.sig_centres[cell_of],
+            "ms_rad_s": w_of,
+        }
+    for key in ("phase_margin_deg", "gain_margin_db", "delay_margin_s"):
+        out[key] = np.where(np.isfinite(out[key]), out[key], np.nan)
+    out["time_scale_bound"] = np.full(n, box.delta)
+    return out
+
+
+def _nearest_member(th, span, r_lo, r_hi, mag, arg, w, box: _Box):
+    """Gain factor and delay of the sector point nearest −1 (clipped to the box)."""
+    inside = (span >= 2.0 * np.pi) | (np.mod(np.pi - th, 2.0 * np.pi) <= span)
+    # radial: angle π; else the nearer edge
+    d_lo = sector_distance(th, np.zeros_like(th), r_lo, r_hi)
+    d_hi = sector_distance(th + span, np.zeros_like(th), r_lo, r_hi)
+    ang = np.where(inside, th + np.mod(np.pi - th, 2.0 * np.pi),
+                   np.where(d_lo <= d_hi, th, th + span))
+    r = np.clip(-np.cos(ang), r_lo, r_hi)
+    r = np.where(inside, np.clip(1.0, r_lo, r_hi), r)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        g = np.clip(r / mag, box.g[0], box.g[1])
+        # angle of the member = arg(L at τ_hi) + ω(τ_hi − τ)  → τ = τ_hi − (ang − arg)/ω
+        extra = np.mod(ang - arg + box.delta, 2.0 * np.pi) - box.delta
+        tau = np.clip(box.d[1] - extra / np.where(w > 0, w, 1.0), box.d[0], box.d[1])
+    return np.where(np.isfinite(g), g, 1.0), np.where(np.isfinite(tau), tau, box.d[1])
+
+
+def family_worst_batch(plant: Rational, v: Variation, cg, cz, cp, *,
+                       nominal: dict[str, np.ndarray] | None = None,
+                       members: list[Member] | None = None) -> dict[str, np.ndarray]:
+    """Worst frequency figures over the whole family (box and listed members) for a
+    batch of compensators: the box geometry combined with the exact metrics of the
+    sampled members (``frequency_metrics_batch`` on each). Keys: the frequency
+    WORST_KEYS, ``worst_gain_factor``, ``worst_delay_s``, ``worst_time_scale`` (the
+    Ms member; NaN factors for a listed member), ``worst_member`` (index into the
+    sampled members, −1 for a point inside the box). ``nominal``: the nominal
+    frequency metrics when already computed."""
+    from explorer.metrics import frequency_metrics_batch
+
+    cg = np.asarray(cg, float).ravel()
+    n = cg.shape[0]
+    members = sampled_members(plant, v) if members is None else members
+    ms = np.full(n, -np.inf)
+    mt = np.full(n, -np.inf)
+    pm = np.full(n, np.inf)
+    gm = np.full(n, np.inf)
+    dm = np.full(n, np.inf)
+    stable = np.ones(n, bool)
+    who = np.zeros(n, int)
+    wg = np.full(n, np.nan)
+    wd = np.full(n, np.nan)
+    ws = np.full(n, np.nan)
+    for i, m in enumerate(members):
+        fm = nominal if (i == 0 and nominal is not None) else \
+            frequency_metrics_batch(m.plant, cg, cz, cp)
+        st = np.asarray(fm["closed_loop_stable"], bool)
+        stable &= st
+        v_ms = np.where(np.isnan(fm["sensitivity_peak"]), np.inf, fm["sensitivity_peak"])
+        v_ms = np.where(st, v_ms, np.inf)
+        upd = v_ms > ms
+        ms = np.where(upd, v_ms, ms)
+        who = np.where(upd, i, who)
+        wg = np.where(upd, np.nan if m.gain_factor is None else m.gain_factor, wg)
+        wd = np.where(upd, m.delay_s, wd)
+        ws = np.where(upd, np.nan if m.time_scale is None else m.time_scale, ws)
+        v_mt = np.where(np.isnan(fm["complementary_peak"]), np.inf, fm["complementary_peak"])
+        mt = np.maximum(mt, np.where(st, v_mt, np.inf))
+        for acc, key in ((pm, "phase_margin_deg"), (gm, "gain_margin_db"),
+                         (dm, "delay_margin_s")):
+            x = np.asarray(fm[key], float)
+            np.minimum(acc, np.where(np.isnan(x), np.inf, x), out=acc)
+    if has_box(plant, v):
+        bx = box_worst_batch(plant, v, cg, cz, cp)
+        # a sampled member keeps the label when the box is no worse than it (to 1e-7)
+        upd = bx["sensitivity_peak"] > ms * (1.0 + 1e-7)
+        ms = np.maximum(ms, bx["sensitivity_peak"])
+        who = np.where(upd, -1, who)
+        wg = np.where(upd, bx["ms_gain_factor"], wg)
+        wd = np.where(upd, bx["ms_delay_s"], wd)
+        ws = np.where(upd, bx["ms_time_scale"], ws)
+        mt = np.maximum(mt, bx["complementary_peak"])
+        for acc, key in ((pm, "phase_margin_deg"), (gm, "gain_margin_db"),
+                         (dm, "delay_margin_s")):
+            x = bx[key]
+            np.minimum(acc, np.where(np.isnan(x), np.inf, x), out=acc)
+        stable &= bx["min_distance"] > MIN_DISTANCE
+    fin = lambda x: np.where(np.isfinite(x), x, np.nan)  # noqa: E731
+    return {
+        "sensitivity_peak": fin(ms),
+        "complementary_peak": fin(mt),
+        "phase_margin_deg": fin(pm),
+        "gain_margin_db": fin(gm),
+        "delay_margin_s": fin(dm),
+        "closed_loop_stable": stable,
+        "worst_member": who,
+        "worst_gain_factor": wg,
+        "worst_delay_s": wd,
+        "worst_time_scale": ws,
+    }
+
+
+def worst_of_design(plant: Rational, v: Variation, comp: Rational,
+                    nominal: dict[str, Any]) -> dict[str, Any]:
+    """The ``worst``, ``worst_member`` and ``worst_basis`` parts of one DESIGN record.
+
+    ``nominal``: the design's METRICS on the nominal plant (its time-domain values are
+    reused). Frequency keys: the whole family (:func:`family_worst_batch`);
+    time-domain keys: the worst over the nominal plant, the corners of the box, the
+    listed members and the worst-Ms member — a finite set, named in ``worst_basis``.
+    Time-domain keys are None when any member is unstable."""
+    from explorer.metrics import frequency_metrics
+    from explorer.timeresp import step_metrics
+
+    g = np.array([comp.gain])
+    z = np.array([comp.zeros], dtype=complex).reshape(1, -1)
+    p = np.array([comp.poles], dtype=complex).reshape(1, -1)
+    members = sampled_members(plant, v)
+    fw = family_worst_batch(plant, v, g, z, p, members=members)
+    who = int(fw["worst_member"][0])
+    if who >= 0:
+        wm = members[who]
+    else:
+        gf = float(fw["worst_gain_factor"][0])
+        d = float(fw["worst_delay_s"][0])
+        sg = float(fw["worst_time_scale"][0])
+        wm = Member(gain_factor=gf, delay_s=d, time_scale=sg,
+                    plant=scaled_plant(plant, gf, d, sg), label="inside the box")
+    stable = bool(fw["closed_loop_stable"][0])
+    tset = list(members)
+    if who < 0:
+        tset.append(wm)
+    tkeys = ("overshoot_pct", "settling_time_s", "iae_load")
+    tw: dict[str, float | None] = {k: None for k in tkeys}
+    if stable:
+        vals: dict[str, list[float | None]] = {k: [] for k in tkeys}
+        for i, m in enumerate(tset):
+            if i == 0:
+                tm = {k: nominal.get(k) for k in tkeys}
+            else:
+                st = True
+                if i >= len(members):
+                    st = bool(frequency_metrics(m.plant, comp)["closed_loop_stable"])
+                tm = step_metrics(m.plant, comp, stable=st) if st else {k: None for k in tkeys}
+            for k in tkeys:
+                x = tm.get(k)
+                vals[k].append(None if x is None or not math.isfinite(float(x)) else float(x))
+        for k in tkeys:
+            tw[k] = None if any(x is None for x in vals[k]) else max(vals[k])  # type: ignore
+    worst: dict[str, Any] = {}
+    for k in WORST_KEYS:
+        if k == "closed_loop_stable":
+            worst[k] = stable
+        elif k in tkeys:
+            worst[k] = tw[k]
+        else:
+            x = float(fw[k][0])
+            worst[k] = x if math.isfinite(x) else None
+    box = _box(plant, v)
+    return {
+        "worst": worst,
+        "worst_member": {"gain_factor": wm.gain_factor, "delay_s": wm.delay_s,
+                         "time_scale": wm.time_scale, "where": wm.label},
+        "worst_basis": {
+            "frequency": "every member of the box (sector geometry) and every listed member",
+            "time": [m.label for m in tset],
+            "time_scale_bound": box.delta,
+        },
+    }
