@@ -2,13 +2,17 @@
 
 For each drawn study (process loops with delay, motion axes with an integrating plant
 and sometimes a lightly damped mode, delay-free thermal lags, open-loop unstable
-plants, plants with a right-half-plane zero; random targets and limits) it runs
-``explore`` and checks:
+plants, plants with a right-half-plane zero, and reverse-acting ones: a cooling
+process with delay and an unstable plant, both with a negative gain; random targets
+and limits) it runs ``explore`` and checks:
 
 * every design claiming ``meets_targets`` is re-checked with the metric engine;
-* where a hand design (phase-balanced, lead, PI + lead) meets the targets and limits,
-  some optimized design meets them with an Ms no higher than the best such hand design;
-* where none does, whether explore still finds a design meeting them (reported).
+* where a hand design (phase-balanced, lead, PI + lead) meets the targets and limits
+  and keeps the practical pole limit, some optimized design meets them with an Ms no
+  higher than the best such hand design;
+* where none does, whether explore still finds a design meeting them (reported);
+* the study's twin with the plant gain negated gets the same answer (design name,
+  order) — explore must not care about the loop's sign (``--no-twins`` skips it).
 
 Run: ``python benchmarks/sweep_explore.py [N_CASES] [--trials T] [--jobs J]``
 (default 24 cases, 100 trials, 2 processes). Prints one line per case and a tally;
@@ -29,8 +33,10 @@ import numpy as np
 
 
 def draw_study(k: int, rng: np.random.Generator) -> dict[str, Any]:
-    """Study k: one of three loop families, with random targets and limits."""
-    kind = ("process", "motion", "thermal", "unstable", "inverse")[k % 5]
+    """Study k: one of seven loop families, with random targets and limits."""
+    kinds = ("process", "motion", "thermal", "unstable", "inverse", "cooling",
+             "reverse unstable")
+    kind = kinds[k % len(kinds)]
     pm = float(rng.uniform(45.0, 65.0))
     limits: dict[str, float] = {}
     if rng.random() < 0.5:
@@ -62,6 +68,21 @@ def draw_study(k: int, rng: np.random.Generator) -> dict[str, Any]:
         if rng.random() < 0.5:
             plant["delay"] = float(rng.uniform(0.0, 0.25)) / wc
         integrators = 1 if rng.random() < 0.6 else 2
+    elif kind == "cooling":  # reverse acting: more cooling, lower temperature; with delay
+        t1 = float(10 ** rng.uniform(0, 2))
+        poles = [-1.0 / t1, -1.0 / (t1 * float(rng.uniform(0.1, 0.5)))]
+        theta = t1 * float(rng.uniform(0.03, 0.3))
+        gain = -float(10 ** rng.uniform(-1, 1)) * math.prod(-p for p in poles)
+        wc = float(rng.uniform(0.2, 0.6)) / theta
+        plant = {"gain": gain, "poles": poles, "delay": theta}
+        integrators = 1
+    elif kind == "reverse unstable":  # an exothermic mode at +a; the actuator removes heat
+        a = float(10 ** rng.uniform(-0.5, 1.0))
+        poles = [a, -a * float(rng.uniform(8.0, 30.0))]
+        gain = -float(10 ** rng.uniform(-1, 1)) * math.prod(abs(p) for p in poles)
+        wc = a * float(rng.uniform(2.5, 5.0))
+        plant = {"gain": gain, "poles": poles}
+        integrators = 1
     elif kind == "unstable":  # a falling mode at +a, a slower stable lag, an actuator lag
         a = float(10 ** rng.uniform(-0.5, 1.0))
         poles = [a, -a * float(rng.uniform(0.3, 1.5)), -a * float(rng.uniform(8.0, 30.0))]
@@ -95,20 +116,36 @@ def draw_study(k: int, rng: np.random.Generator) -> dict[str, Any]:
     return study
 
 
-def run_case(args: tuple[int, dict[str, Any], int]) -> dict[str, Any]:
+def _answer(study: Any, trials: int) -> tuple[Any, Any] | str:
     from explorer.errors import LoopscoutError
-    from explorer.evaluate import evaluated_record
     from explorer.explore import explore
-    from explorer.loop import Rational
-    from explorer.study import parse_study
 
-    k, data, trials = args
-    study = parse_study(data)
     with tempfile.TemporaryDirectory() as tmp:
         try:
             res = explore(study, Path(tmp), trials=trials, seed=1, progress=False)
         except LoopscoutError as exc:
-            return {"k": k, "name": data["name"], "refused": str(exc)}
+            return str(exc)
+    return res, (res.obj["answer"]["design"], res.obj["answer"]["order"])
+
+
+def run_case(args: tuple[int, dict[str, Any], int, bool]) -> dict[str, Any]:
+    from explorer.evaluate import evaluated_record
+    from explorer.loop import Rational
+    from explorer.study import parse_study
+
+    k, data, trials, twins = args
+    study = parse_study(data)
+    got = _answer(study, trials)
+    if isinstance(got, str):
+        return {"k": k, "name": data["name"], "refused": got}
+    res, answer = got
+    twin_differs = None
+    if twins:
+        mirror = {**data, "plant": {**data["plant"], "gain": -data["plant"]["gain"]}}
+        other = _answer(parse_study(mirror), trials)
+        other_answer = other if isinstance(other, str) else other[1]
+        if other_answer != answer:
+            twin_differs = f"{answer} vs negated gain {other_answer}"
     false_claims = []
     for d in res.designs:  # re-check from the JSON-form records (compensator roots as written)
         c = d["compensator"]
@@ -117,7 +154,8 @@ def run_case(args: tuple[int, dict[str, Any], int]) -> dict[str, Any]:
         again = evaluated_record(study, comp, name=d["name"], origin="", structure="")
         if again["meets_targets"] != d["meets_targets"]:
             false_claims.append(d["name"])
-    hand = [d for d in res.designs if d["origin"] != "optimized" and d["meets_targets"]]
+    hand = [d for d in res.designs if d["origin"] in ("hand", "phase-balanced")
+            and d["meets_targets"] and not d["practical_misses"]]
     opt = [d for d in res.designs if d["origin"] == "optimized" and d["meets_targets"]]
     return {
         "k": k,
@@ -126,6 +164,7 @@ def run_case(args: tuple[int, dict[str, Any], int]) -> dict[str, Any]:
         "opt_ms": min((d["metrics"]["sensitivity_peak"] for d in opt), default=None),
         "opt_order": min((d["order"] for d in opt), default=None),
         "false_claims": false_claims,
+        "twin_differs": twin_differs,
     }
 
 
@@ -135,9 +174,10 @@ def main() -> int:
     ap.add_argument("--trials", type=int, default=100)
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--seed", type=int, default=2026)
+    ap.add_argument("--no-twins", action="store_true", help="skip the negated-gain twins")
     a = ap.parse_args()
     rng = np.random.default_rng(a.seed)
-    cases = [(k, draw_study(k, rng), a.trials) for k in range(a.cases)]
+    cases = [(k, draw_study(k, rng), a.trials, not a.no_twins) for k in range(a.cases)]
     broken = hand_solved = hand_beaten = hand_refused = found_anyway = 0
     with ProcessPoolExecutor(max_workers=a.jobs) as pool:
         for r in pool.map(run_case, cases):
@@ -147,6 +187,9 @@ def main() -> int:
             verdict = "ok"
             if r["false_claims"]:
                 verdict = f"FALSE CLAIM {r['false_claims']}"
+                broken += 1
+            if r["twin_differs"]:
+                verdict = f"TWIN DIFFERS {r['twin_differs']}"
                 broken += 1
             if r["hand_ms"] is not None:
                 hand_solved += 1
