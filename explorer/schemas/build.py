@@ -26,7 +26,7 @@ HERE = Path(__file__).resolve().parent
 Schema = dict[str, Any]
 
 
-def _num(desc: str, *, null: bool = True, **bounds: float) -> Schema:
+def _num(desc: str, *, null: bool = True, **bounds: Any) -> Schema:
     out: Schema = {"type": ["number", "null"] if null else "number", "description": desc}
     out.update(bounds)
     return out
@@ -75,8 +75,8 @@ FACTOR: Schema = _obj(
     "a rational factor in roots form (s-plane, or z-plane for discrete ones)",
 )
 
-_W = {"exclusiveMinimum": 0}  # a frequency, rad/s
-_NONNEG = {"minimum": 0}
+_W: dict[str, Any] = {"exclusiveMinimum": 0}  # a frequency, rad/s
+_NONNEG: dict[str, Any] = {"minimum": 0}
 
 #: stable METRICS keys (docs/interface.md, "Metrics")
 STABLE_METRICS: dict[str, Schema] = {
