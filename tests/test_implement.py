@@ -121,7 +121,22 @@ def test_pure_gain_design(tmp_path: Path, capsys: pytest.CaptureFixture[str]) ->
                     "--design", "k", "--sample-time", "0.5")
     assert obj["sections"][0]["b"] == [2.5, 0.0, 0.0] and obj["sections"][0]["a"] == [1, 0, 0]
     assert obj["industrial_form"]["parallel"] == {"kp": 2.5}
-    assert obj["sampled_metrics"]["closed_loop_stable"] in (True, False)
+    # the sampled verdict against scipy: ZOH of the plant (scipy.signal.cont2discrete),
+    # closed-loop poles = roots of den_H(z) + k·num_H(z) (numpy.roots); the drum is
+    # direct-acting with a right-half-plane zero: small k stable, large or negative k not
+    verdicts = []
+    for k in (2.5, 0.05, 0.3, 1.0, -0.3):
+        path.write_text(json.dumps({"designs": [{"name": "k", "compensator": {"gain": k}}]}))
+        obj = _run_json(capsys, str(ROOT / "studies" / "drum_level.toml"), "--from",
+                        str(path), "--design", "k", "--sample-time", "0.5")
+        num, den = signal.zpk2tf([0.25], [0.0, -0.5], -1.0)
+        num_d, den_d, _ = signal.cont2discrete((num, den), 0.5, method="zoh")
+        num_d = np.trim_zeros(np.ravel(num_d), "f")
+        char = np.polyadd(den_d, k * num_d)
+        stable = bool(np.max(np.abs(np.roots(char))) < 1.0)
+        assert obj["sampled_metrics"]["closed_loop_stable"] is stable, k
+        verdicts.append(stable)
+    assert True in verdicts and False in verdicts  # both verdicts exercised
 
 
 def test_long_sample_time_warns_with_figures(capsys: pytest.CaptureFixture[str]) -> None:

@@ -102,7 +102,10 @@ def test_common_practice_settling_4s():
     assert specs.sigma_from_settling(4.0, 0.02) == pytest.approx(1.0)
     assert specs.sigma_from_settling(3.0, 0.05) == pytest.approx(1.0)
     assert specs.settling_from_sigma(1.0, 0.02) == pytest.approx(4.0)
-    assert specs.SETTLING_CONSTANTS == {0.02: 4.0, 0.05: 3.0}
+    # the constants are the envelope e^(-σt) reaching the band, rounded:
+    # ln(1/0.02) = 3.91 → 4, ln(1/0.05) = 3.00 → 3 (references.md §1)
+    assert specs.settling_from_sigma(1.0, 0.02) == pytest.approx(math.log(1 / 0.02), abs=0.1)
+    assert specs.settling_from_sigma(1.0, 0.05) == pytest.approx(math.log(1 / 0.05), abs=0.01)
 
 
 def test_bad_settling_band():
