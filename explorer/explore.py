@@ -20,9 +20,9 @@ import numpy as np
 
 from explorer.errors import LoopscoutError
 from explorer.evaluate import evaluated_record, given_designs
+from explorer.loop import Rational
 from explorer.recommend import drop_near_duplicates, practical_misses, recommend
 from explorer.report import write_report
-from explorer.loop import Rational
 from explorer.structures import Structure, candidate_structures
 from explorer.study import LIMIT_KEYS, MAX_SEARCH_ORDER, Study, load_study
 
@@ -82,7 +82,7 @@ def make_problem(study: Study):  # -> explorer.tune.Problem
         pm = float(study.limits.get("phase_margin_deg", PM_SEARCH_DEG[0]))
         if pm < PM_SEARCH_DEG[1]:
             pm_range = (pm, PM_SEARCH_DEG[1])
-    common = dict(
+    common: dict[str, Any] = dict(
         plant=study.plant,
         targets=t,
         limits=search_limits(study),
@@ -90,6 +90,7 @@ def make_problem(study: Study):  # -> explorer.tune.Problem
         pm_range_deg=pm_range,
         max_pole_ratio=study.search.max_pole_ratio,
         crossover_tol=t.crossover_tolerance,
+        variation=study.variation,
     )
     wc = t.crossover_rad_s
     if isinstance(wc, (int, float)):

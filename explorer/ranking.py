@@ -23,9 +23,16 @@ REFERENCE_ORIGINS = ("hand", "phase-balanced", "given")
 RANK_KEYS = ("order", "sensitivity_peak", "noise_gain", "iae_load")
 
 
+def _rank_value(r: dict[str, Any], k: str) -> Any:
+    """A row's ranking figure: its worst over the plant family where it has one."""
+    w = f"worst_{k}"
+    return r[w] if w in r else r.get(k)
+
+
 def _matrix(rows: list[dict[str, Any]]) -> np.ndarray:
     m = np.array(
-        [[float("nan") if r.get(k) is None else float(r[k]) for k in RANK_KEYS] for r in rows],
+        [[float("nan") if _rank_value(r, k) is None else float(_rank_value(r, k))
+          for k in RANK_KEYS] for r in rows],
         float,
     )
     return np.where(np.isnan(m), np.inf, m).reshape(len(rows), len(RANK_KEYS))
@@ -76,6 +83,8 @@ def rank_designs(designs: list[dict[str, Any]]) -> pd.DataFrame:
         for k, v in d["metrics"].items():
             if k != "crossovers_rad_s":
                 row[k] = v
+        for k, v in (d.get("worst") or {}).items():
+            row[f"worst_{k}"] = v
         rows.append(row)
     frame = pd.DataFrame(rows)
     if frame.empty:
@@ -110,11 +119,12 @@ def rank_designs(designs: list[dict[str, Any]]) -> pd.DataFrame:
     frame["pareto"] = front == 0
     frame["dominates_hand"] = dom_hand
     frame["_sort"] = np.where(meets, front, 10**6)
+    frame["_ms"] = [_rank_value(r, "sensitivity_peak") for r in rows]
     frame = (
         frame.sort_values(
-            ["_sort", "order", "sensitivity_peak", "name"], kind="stable", na_position="last"
+            ["_sort", "order", "_ms", "name"], kind="stable", na_position="last"
         )
-        .drop(columns="_sort")
+        .drop(columns=["_sort", "_ms"])
         .reset_index(drop=True)
     )
     return frame

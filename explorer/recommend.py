@@ -49,6 +49,13 @@ def practical_misses(d: dict[str, Any], max_pole_ratio: float) -> list[str]:
     return []
 
 
+def _fig(d: dict[str, Any]) -> dict[str, Any]:
+    """The figures a design is judged by: its metrics, with the worst over the plant
+    family in place of the nominal value where it has one (DESIGN ``worst``)."""
+    w = d.get("worst")
+    return d["metrics"] if not w else {**d["metrics"], **w}
+
+
 def _ln(v: Any) -> float | None:
     return math.log(v) if isinstance(v, (int, float)) and v > 0 and math.isfinite(v) else None
 
@@ -64,7 +71,7 @@ def cost(designs: list[dict[str, Any]], searched_wc: bool) -> list[float]:
         terms.append(("crossover_rad_s", -W_SPEED))
     out = [0.0] * len(designs)
     for key, w in terms:
-        vals = [_ln(d["metrics"].get(key)) for d in designs]
+        vals = [_ln(_fig(d).get(key)) for d in designs]
         present = [v for v in vals if v is not None]
         worst = (max(present) if w > 0 else min(present)) if present else 0.0
         for i, v in enumerate(vals):
@@ -129,13 +136,13 @@ def _change(key: str, a: float, b: float, sense: int) -> str:
 
 def _tradeoff(ans: dict[str, Any], alt: dict[str, Any], key: str, sense: int,
               searched_wc: bool) -> str:
-    gain = _change(key, ans["metrics"][key], alt["metrics"][key], sense)
+    gain = _change(key, _fig(ans)[key], _fig(alt)[key], sense)
     costs = []
     keys = [k for _, k, _ in _CRITERIA if k != key]
     if searched_wc:
         keys.append("crossover_rad_s")
     for k in keys:
-        a, b = ans["metrics"].get(k), alt["metrics"].get(k)
+        a, b = _fig(ans).get(k), _fig(alt).get(k)
         if a is None or b is None or a <= 0 or b <= 0:
             continue
         s = -1 if k == "crossover_rad_s" else +1
@@ -160,13 +167,13 @@ def recommend(
                 "requirements and limits"}, []
     practical = [d for d in ok if not practical_misses(d, max_pole_ratio)]
     pool = practical or ok
-    rejecting = [d for d in pool if d["metrics"].get("iae_load") is not None]
+    rejecting = [d for d in pool if _fig(d).get("iae_load") is not None]
     pool2 = rejecting or pool
     low = min(d["order"] for d in pool2)
     tier = [d for d in pool2 if d["order"] == low]
     costs = cost(tier, searched_wc)
     best = tier[min(range(len(tier)), key=lambda i: (costs[i], tier[i]["name"]))]
-    m = best["metrics"]
+    m = _fig(best)
     reasons = [f"order {low} is the lowest that meets every target, requirement and limit"
                + (" and rejects a constant load at the plant input" if rejecting else "")]
     if not practical:
@@ -186,20 +193,30 @@ def recommend(
         figs.append(f"load IAE {m['iae_load']:.3g}")
     if m.get("settling_time_s") is not None:
         figs.append(f"settling {m['settling_time_s']:.3g} s")
+    wm = best.get("worst_member")
+    if best.get("worst"):
+        figs[0] = "worst over the plant family " + figs[0]
+        if wm:
+            where = (wm.get("where") if wm.get("gain_factor") is None else
+                     f"gain ×{wm['gain_factor']:.3g}, delay {wm['delay_s']:.3g} s, "
+                     f"time scale ×{wm['time_scale']:.3g}")
+            figs.append(f"worst Ms at {where}")
     why = "; ".join(reasons) + ": " + ", ".join(figs)
     whose = {"given": " (the study's own design)", "hand": " (a hand design)",
              "phase-balanced": " (the phase-balanced hand design)"}.get(best["origin"], "")
     lines = [f"answer: order {low} suffices — {best['name']}{whose} is recommended: {why}"]
     seen = {best["name"]}
     for phrase, key, sense in _CRITERIA:
-        have = [d for d in ok if d["metrics"].get(key) is not None]
-        if not have or best["metrics"].get(key) is None:
+        have = [d for d in ok if _fig(d).get(key) is not None]
+        if not have or _fig(best).get(key) is None:
             continue
-        alt = min(have, key=lambda d: (sense * d["metrics"][key], d["order"], d["name"]))
-        if alt["name"] in seen or alt["metrics"][key] == best["metrics"][key]:
+        alt = min(have, key=lambda d: (sense * _fig(d)[key], d["order"], d["name"]))
+        if alt["name"] in seen or _fig(alt)[key] == _fig(best)[key]:
             continue
         seen.add(alt["name"])
         lines.append(f"  {phrase}: {alt['name']} — "
                      f"{_tradeoff(best, alt, key, sense, searched_wc)}")
-    answer = {"design": best["name"], "order": low, "why": why}
+    answer: dict[str, Any] = {"design": best["name"], "order": low, "why": why}
+    if wm:
+        answer["worst_member"] = wm
     return answer, lines

@@ -26,9 +26,9 @@ from typing import Any
 import numpy as np
 from scipy.optimize import minimize
 
+from explorer.evaluate import PHASE_MARGIN_TOL_DEG
 from explorer.loop import Rational
 from explorer.structures import Structure
-from explorer.evaluate import PHASE_MARGIN_TOL_DEG
 from explorer.study import LIMIT_KEYS
 from explorer.tune import TIME_KEYS, Problem, evaluate_batch
 
@@ -153,7 +153,7 @@ def _smooth_constraints(problem: Problem, res: dict[str, Any]) -> np.ndarray:
     for key, bound in problem.limits.items():
         if key in TIME_KEYS or key not in m:
             continue
-        v = m[key]
+        v = m.get("worst_" + key, m[key])
         scale = max(abs(bound), 1e-9)
         if LIMIT_KEYS[key] == "upper":
             cols.append(np.where(np.isnan(v), -1.0, (bound - v) / scale))

@@ -38,7 +38,7 @@ from explorer.evaluate import CROSSOVER_REL_TOL, PHASE_MARGIN_TOL_DEG
 from explorer.loop import Rational
 from explorer.metrics import frequency_metrics_batch
 from explorer.structures import Structure, balance
-from explorer.study import LIMIT_KEYS, Targets
+from explorer.study import LIMIT_KEYS, Targets, Variation
 
 __all__ = [
     "Problem",
@@ -85,6 +85,9 @@ class Problem:
     max_pole_ratio: float = math.inf
     #: relative tolerance of a numeric crossover target (targets.crossover_tolerance)
     crossover_tol: float = CROSSOVER_REL_TOL
+    #: the plant family (study ``[variation]``): stability, limits and objectives are
+    #: then taken at their worst over it (explorer.family); None for one plant
+    variation: Variation | None = None
 
     @property
     def searched_wc(self) -> bool:
@@ -197,6 +200,8 @@ def evaluate_batch(
                 if k in src:
                     metrics[k][idx] = np.asarray(src[k], float)
             metrics["closed_loop_stable"][idx] = stable
+            if problem.variation is not None:
+                _family_into(problem, g, z, p, fm, tm, time_domain, idx, metrics)
             xs = np.asarray(fm["crossovers_rad_s"], float).reshape(idx.size, -1)
             rel = np.abs(xs / wc_rad_s[idx, None] - 1.0)
             rel = np.where(np.isnan(rel), np.inf, rel)
@@ -230,7 +235,7 @@ def evaluate_batch(
         )
         cons[2] = np.where(ok, np.maximum(cons[2], out_rng), 0.0)
     for key, bound in problem.limits.items():
-        v = metrics.get(key)
+        v = metrics.get("worst_" + key, metrics.get(key))
         if v is None or (not time_domain and key in TIME_KEYS):
             # a limit on a key not computed in this batch: checked at the end
             cons.append(np.zeros(n))
@@ -272,6 +277,52 @@ def evaluate_batch(
         "fail": fail,
         "feasible": np.all(constraints <= 0.0, axis=1),
     }
+
+
+#: Keys whose worst over the family replaces the nominal value in a batch's metrics
+#: (the search ranks and constrains on them); the phase margin stays nominal (the
+#: target) and its worst goes to ``worst_phase_margin_deg`` for a limit.
+_FAMILY_KEYS = ("sensitivity_peak", "complementary_peak", "gain_margin_db",
+                "delay_margin_s", "closed_loop_stable")
+_FAMILY_TIME_KEYS = ("overshoot_pct", "settling_time_s", "iae_load")
+
+
+def _family_into(
+    problem: Problem, g: np.ndarray, z: np.ndarray, p: np.ndarray,
+    fm: dict[str, np.ndarray], tm: dict[str, np.ndarray], time_domain: bool,
+    idx: np.ndarray, metrics: dict[str, np.ndarray],
+) -> None:
+    """Worst values over the plant family into ``metrics`` rows ``idx``: frequency
+    figures over the whole family (explorer.family.family_worst_batch, box geometry
+    plus the listed members); step figures over explorer.family.search_time_members
+    (nominal, the corners at the largest delay, the listed members)."""
+    from explorer.family import family_worst_batch, sampled_members, search_time_members
+    from explorer.timeresp import step_metrics_batch
+
+    v = problem.variation
+    assert v is not None
+    members = sampled_members(problem.plant, v)
+    listed = [m for m in members if m.gain_factor is None]
+    fw = family_worst_batch(problem.plant, v, g, z, p, nominal=fm,
+                            members=[members[0], *listed])
+    for k in _FAMILY_KEYS:
+        if k not in metrics:
+            metrics[k] = np.full(metrics["sensitivity_peak"].shape[0], np.nan)
+        metrics[k][idx] = fw[k]
+    key = "worst_phase_margin_deg"
+    if key not in metrics:
+        metrics[key] = np.full(metrics["sensitivity_peak"].shape[0], np.nan)
+    metrics[key][idx] = fw["phase_margin_deg"]
+    if not time_domain:
+        return
+    st = np.asarray(fw["closed_loop_stable"], bool)
+    worst = {k: np.asarray(tm[k], float).copy() for k in _FAMILY_TIME_KEYS}
+    for m in search_time_members(problem.plant, v)[1:]:
+        tmm = step_metrics_batch(m.plant, g, z, p, stable=st)
+        for k in _FAMILY_TIME_KEYS:
+            worst[k] = np.maximum(worst[k], np.asarray(tmm[k], float))  # NaN stays NaN
+    for k in _FAMILY_TIME_KEYS:
+        metrics[k][idx] = np.where(st, worst[k], np.nan)
 
 
 def _pole_ratio_excess(poles: np.ndarray, wc_rad_s: np.ndarray, ratio: float) -> np.ndarray:
