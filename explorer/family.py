@@ -65,6 +65,7 @@ __all__ = [
     "sector_distance",
     "sampled_members",
     "time_members",
+    "search_time_members",
     "box_worst_batch",
     "family_worst_batch",
     "WORST_KEYS",
@@ -157,6 +158,15 @@ def sampled_members(plant: Rational, v: Variation) -> list[Member]:
         out.append(Member(gain_factor=None, delay_s=m.delay_s, time_scale=None, plant=m,
                           label=f"member[{i}]"))
     return out
+
+
+def search_time_members(plant: Rational, v: Variation) -> list[Member]:
+    """The smaller set the search takes step responses over (the final re-check of
+    every reported design uses :func:`time_members`): nominal, the corners at the
+    largest delay with the extreme gains and time scales, and the listed members."""
+    g, d, s = _ranges(plant, v)
+    return [m for m in sampled_members(plant, v)
+            if m.gain_factor is None or m.label == "nominal" or m.delay_s == d[1]]
 
 
 def time_members(plant: Rational, v: Variation) -> list[Member]:
