@@ -31,6 +31,15 @@ def load_designs(path: str | Path) -> list[dict[str, Any]]:
     """Read ``{"designs": [...]}``; one-line LoopscoutError on anything unreadable or of
     the wrong shape (the same file checks as a study: a regular file of at most 1 MiB,
     UTF-8 text)."""
+    return load_exploration(path)[0]
+
+
+def load_exploration(
+    path: str | Path,
+) -> tuple[list[dict[str, Any]], dict[str, Any] | None, list[str] | None]:
+    """The designs of a designs.json, with the exploration's ``answer`` and ``summary``
+    when the file has them (an explore output), so the report and the slides mark the
+    same recommended design; one-line LoopscoutError on a malformed file."""
     from explorer.errors import StudyFileError
     from explorer.study import read_text_file
 
@@ -56,7 +65,20 @@ def load_designs(path: str | Path) -> list[dict[str, Any]]:
         problem = _design_problem(d)
         if problem:
             raise LoopscoutError(f"--designs {shown}: designs[{i}] {problem}")
-    return designs
+    answer = data.get("answer")
+    if answer is not None:
+        names = {d["name"] for d in designs}
+        if not isinstance(answer, dict) or answer.get("design") not in names | {None}:
+            raise LoopscoutError(
+                f"--designs {shown}: 'answer' must be an object whose 'design' names a "
+                "listed design (or is null)"
+            )
+    summary = data.get("summary")
+    if summary is not None and not (
+        isinstance(summary, list) and all(isinstance(x, str) for x in summary)
+    ):
+        raise LoopscoutError(f"--designs {shown}: 'summary' must be a list of text lines")
+    return designs, answer, summary
 
 
 def _show(path: str) -> str:
@@ -97,19 +119,22 @@ def _design_problem(d: Any) -> str:
     return ""
 
 
-def _inputs(args: argparse.Namespace) -> tuple[Any, list[dict[str, Any]]]:
+def _inputs(
+    args: argparse.Namespace,
+) -> tuple[Any, list[dict[str, Any]], dict[str, Any] | None, list[str] | None]:
     from explorer.study import load_study
 
     study = load_study(args.study)
-    designs = load_designs(args.designs) if args.designs else given_designs(study)
-    return study, designs
+    if args.designs:
+        return (study, *load_exploration(args.designs))
+    return study, given_designs(study), None, None
 
 
 def _cmd_report(args: argparse.Namespace) -> int:
     from explorer.report import write_report
 
-    study, designs = _inputs(args)
-    out = write_report(study, designs, Path(args.out))
+    study, designs, answer, summary = _inputs(args)
+    out = write_report(study, designs, Path(args.out), answer=answer, summary=summary)
     print(f"wrote {out}")
     return 0
 
@@ -117,8 +142,9 @@ def _cmd_report(args: argparse.Namespace) -> int:
 def _cmd_charts(args: argparse.Namespace) -> int:
     from explorer.report import export_charts
 
-    study, designs = _inputs(args)
-    for p in export_charts(study, designs, Path(args.out), formats=tuple(args.format)):
+    study, designs, answer, _ = _inputs(args)
+    for p in export_charts(study, designs, Path(args.out), formats=tuple(args.format),
+                           answer=answer):
         print(f"wrote {p}")
     return 0
 
