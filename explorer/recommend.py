@@ -204,7 +204,8 @@ def recommend(
     why = "; ".join(reasons) + ": " + ", ".join(figs)
     whose = {"given": " (the study's own design)", "hand": " (a hand design)",
              "phase-balanced": " (the phase-balanced hand design)"}.get(best["origin"], "")
-    lines = [f"answer: order {low} suffices — {best['name']}{whose} is recommended: {why}"]
+    lines = [f"answer: order {low} suffices — {best['name']}{whose} is recommended",
+             f"  why: {why}"]
     seen = {best["name"]}
     for phrase, key, sense in _CRITERIA:
         have = [d for d in ok if _fig(d).get(key) is not None]
