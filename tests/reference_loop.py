@@ -72,7 +72,7 @@ def reference_metrics(loop: Rational, w_lo: float = 1e-4, w_hi: float = 1e4, poi
     t_abs = mag / np.abs(1.0 + h)
     ms = peak(s_abs, lambda x: 1.0 / abs(1.0 + f(x)[0]))
     mt = peak(t_abs, lambda x: abs(f(x)[0]) / abs(1.0 + f(x)[0]))
-    # the limits ω → 0 and ω → ∞ (interface.md), approximated far outside the grid
+    # the limits ω → 0 and ω → ∞ (docs/interface.md), approximated far outside the grid
     ends = f(np.array([w_lo * 1e-8, w_hi * 1e8]))
     ms = max(ms, *(1.0 / np.abs(1.0 + ends)))
     mt = max(mt, *(np.abs(ends) / np.abs(1.0 + ends)))

@@ -10,9 +10,9 @@ Sources named beside each check:
 - "closed form": arithmetic from the stated formulas (atan, tan) by hand.
 - Skogestad (2003), "Simple analytic rules for model reduction and PID controller
   tuning", J. Process Control 13:291–309 — SIMC PI rule (formulas as recorded in
-  references.md §3, [FOUND]); its PM 61.35° for L = e^{−θs}/(2θs) is recomputed there.
+  docs/references.md §3, [FOUND]); its PM 61.35° for L = e^{−θs}/(2θs) is recomputed there.
 - Ogata, Modern Control Engineering 5e (2010), Example 7-26 (lead) and Example 7-27
-  (lag): the book's numbers are FROM MEMORY (references.md §5 tags them [MEM]); they are
+  (lag): the book's numbers are FROM MEMORY (docs/references.md §5 tags them [MEM]); they are
   compared at the book's rounding.
 """
 
@@ -188,9 +188,9 @@ def test_closed_form_one_cancellation():
 
 def test_simc_pi_for_first_order_plus_delay():
     # Skogestad (2003) SIMC PI for k e^{-θs}/(τ1 s + 1) with τc = θ: Kc = τ1/(k(τc+θ)),
-    # τI = min(τ1, 4(τc+θ)) (references.md §3 [FOUND]). k = 1, τ1 = 5, θ = 1 → Kc = 2.5,
+    # τI = min(τ1, 4(τc+θ)) (docs/references.md §3 [FOUND]). k = 1, τ1 = 5, θ = 1 → Kc = 2.5,
     # τI = 5, i.e. C = 2.5(s + 0.2)/s; its loop is e^{-s}/(2s): ωc = 0.5, PM = 90° − 0.5 rad
-    # = 61.35° (references.md §3 [RECOMP]; published 61.4°, from memory). The phase-balanced
+    # = 61.35° (docs/references.md §3 [RECOMP]; published 61.4°, from memory). The phase-balanced
     # procedure for that ωc and PM cancels the plant pole and needs no balancing pole.
     plant = Rational(gain=0.2, poles=(-0.2,), delay_s=1.0)
     pm = 90.0 - math.degrees(0.5)
@@ -206,7 +206,7 @@ def test_simc_pi_for_first_order_plus_delay():
 
 def test_pure_delay_integrating_loop():
     # Pure delay e^{-θs}, one integrator: the only design is k/s, and for PM = 90° − ωcθ it
-    # is the SIMC loop e^{-θs}/(2θs) at ωcθ = 0.5 (Skogestad 2003, references.md §3).
+    # is the SIMC loop e^{-θs}/(2θs) at ωcθ = 0.5 (Skogestad 2003, docs/references.md §3).
     plant = Rational(gain=1.0, delay_s=1.0)
     pm = 90.0 - math.degrees(0.5)
     res = phase_balanced(plant, Targets(crossover_rad_s=0.5, phase_margin_deg=pm, integrators=1))
@@ -323,7 +323,7 @@ def test_shortfall_names_rhp_zero_lag():
     assert res.design is None and res.failed_step == "cancel"
     short = -120.0 + 180.0 + math.degrees(math.atan(0.75))
     assert res.shortfall_deg == pytest.approx(short, abs=1e-9)
-    # all-pass lag 2·atan(ωc/z) (references.md §6 [RECOMP]) = 73.74°
+    # all-pass lag 2·atan(ωc/z) (docs/references.md §6 [RECOMP]) = 73.74°
     assert f"{2 * math.degrees(math.atan(0.75)):.2f}°" in res.reason
     assert "right-half-plane zero" in res.reason
 
@@ -447,7 +447,7 @@ def test_origin_zero_plant_refuses_integrator():
 # ---------------------------------------------------------------------------------------
 # lead at crossover, PI plus lead
 def test_lead_ogata_example_7_26_from_memory():
-    # Ogata 5e Example 7-26 (FROM MEMORY; references.md §5A): G = 4/(s(s+2)); the book
+    # Ogata 5e Example 7-26 (FROM MEMORY; docs/references.md §5A): G = 4/(s(s+2)); the book
     # picks the new crossover ω = 9 rad/s and a lead of φm = 38° (50° − 17° + 5°), giving
     # α = 0.24 and Gc = 41.7(s + 4.41)/(s + 18.4), Kv ≈ 20. Same crossover and boost here:
     # PM target = uncompensated margin at 9 rad/s + 38°.
@@ -542,7 +542,7 @@ def _error_constant(plant: Rational, comp: Rational) -> float:
 
 
 def test_lag_ogata_example_7_27_from_memory():
-    # Ogata 5e Example 7-27 (FROM MEMORY; references.md §5B): G = 1/(s(s+1)(0.5s+1)),
+    # Ogata 5e Example 7-27 (FROM MEMORY; docs/references.md §5B): G = 1/(s(s+1)(0.5s+1)),
     # Kv = 5, PM ≥ 40°; the book puts the crossover near 0.5 rad/s and uses
     # Gc = 0.5(s + 0.1)/(s + 0.01) in our roots form (β = 10). Here ωc = 0.5, PM = 40°,
     # Kv = 5 exactly; the book rounds the lag to one figure.
@@ -651,7 +651,7 @@ def test_check_loop_with_delay_matches_winding(loop):
 
 
 def test_check_loop_crossovers_match_dense_grid():
-    # conditionally stable loop, references.md §2 system 8 with P control k = 20:
+    # conditionally stable loop, docs/references.md §2 system 8 with P control k = 20:
     # (s+6)²/(s(s+1)²(s+36)) — unstable for 6.045 < k < 52.26 (recomputed there)
     plant = Rational(gain=1.0, zeros=(-6.0, -6.0), poles=(0.0, -1.0, -1.0, -36.0))
     for k, stable in ((3.0, True), (20.0, False), (80.0, True)):
@@ -683,8 +683,8 @@ def test_hand_designs_labels():
 # overshoot trim (needs explorer.timeresp)
 def test_overshoot_trim_standard_second_order_loop():
     # Standard loop k/(s(s+1)) = ωn²/(s(s + 2ζωn)): ωn = √k, ζ = 1/(2√k). Overshoot
-    # Mp = exp(−ζπ/√(1−ζ²)) (Ogata 5e Ch. 5, references.md §1) → for 20 %: ζ = 0.4559,
-    # k = 1/(4ζ²); references.md §1 [RECOMP] row 20 %: ωc/ωn = 0.8168, PM = 48.15°.
+    # Mp = exp(−ζπ/√(1−ζ²)) (Ogata 5e Ch. 5, docs/references.md §1) → for 20 %: ζ = 0.4559,
+    # k = 1/(4ζ²); docs/references.md §1 [RECOMP] row 20 %: ωc/ωn = 0.8168, PM = 48.15°.
     pytest.importorskip("explorer.timeresp")
     from explorer.balance import trim_gain_for_overshoot
 

@@ -1,4 +1,4 @@
-"""`loopscout implement`: interface.md JSON keys, the sections against the discrete
+"""`loopscout implement`: docs/interface.md JSON keys, the sections against the discrete
 compensator (scipy.signal.sosfreqz), --from designs.json, the CSV, the caution and
 the plain-words notes, the long-sample-time warning, and one-line errors (exit 2)."""
 
@@ -39,7 +39,7 @@ def _run_json(capsys: pytest.CaptureFixture[str], *argv: str) -> dict[str, Any]:
 
 
 def test_json_has_interface_keys(capsys: pytest.CaptureFixture[str]) -> None:
-    """interface.md "Implementation hand-off": every key, the prewarp at the design's
+    """docs/interface.md "Implementation hand-off": every key, the prewarp at the design's
     crossover (as the metric engine finds it), a0 = 1, the caution and notes."""
     obj = _run_json(capsys, CONVEYOR, "--design", "PI + lead", "--sample-time", "0.05")
     assert INTERFACE_KEYS <= set(obj)

@@ -104,7 +104,7 @@ def test_min_iae_pi_beats_simc_and_refinement_is_deterministic() -> None:
     from explorer.evaluate import design_metrics
 
     simc = design_metrics(study.plant, Rational(gain=0.5, zeros=(-1.0,), poles=(0.0,)))
-    assert simc["sensitivity_peak"] == pytest.approx(1.5905, abs=2e-3)  # references.md §3
+    assert simc["sensitivity_peak"] == pytest.approx(1.5905, abs=2e-3)  # docs/references.md §3
     res = _design(problem, s, a[0])
     assert float(res["metrics"]["sensitivity_peak"][0]) <= 1.6
     assert float(res["metrics"]["iae_load"][0]) < simc["iae_load"]

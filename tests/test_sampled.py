@@ -78,7 +78,7 @@ def test_tustin_matches_scipy_bilinear(comp: Rational, T: float, wp: float | Non
 @pytest.mark.parametrize("comp", COMPS)
 def test_tustin_closed_form_and_prewarp_point(comp: Rational) -> None:
     """C(e^{jωT}) = C(s) at s = (ωp/tan(ωpT/2))·(z − 1)/(z + 1) (the defining
-    substitution, interface.md) at many frequencies, and hence C(z) = C(jωp) exactly
+    substitution, docs/interface.md) at many frequencies, and hence C(z) = C(jωp) exactly
     at ω = ωp (the purpose of prewarping)."""
     T, wp = 0.1, 2.5
     d = discretize(comp, T, "tustin-prewarp", wp)

@@ -1,7 +1,7 @@
 """Tests of explorer.specs against published relations and independent computation.
 
 Sources named beside each check:
-- "recomputed": the numbers of references.md §1, recomputed there with plain
+- "recomputed": the numbers of docs/references.md §1, recomputed there with plain
   numpy/scipy from the formulas of Ogata, *Modern Control Engineering* 5e, Ch. 5/7,
   Nise, *Control Systems Engineering*, Ch. 4/10, and Skogestad & Postlethwaite,
   *Multivariable Feedback Control* 2e (2005) §2.4.
@@ -25,7 +25,7 @@ from scipy import optimize, signal
 from explorer import specs
 
 # --------------------------------------------------------------------------------------
-# references.md §1, "Numbers [RECOMP, ωn = 1]" (recomputed):
+# docs/references.md §1, "Numbers [RECOMP, ωn = 1]" (recomputed):
 # OS %, ζ, Mr, PM exact (deg), 2·asin(1/2Mr) (deg), ωc/ωn
 SECOND_ORDER_TABLE = [
     (5.0, 0.6901, 1.0011, 64.63, 59.93, 0.6546),
@@ -37,7 +37,7 @@ SECOND_ORDER_TABLE = [
 
 @pytest.mark.parametrize(("os_pct", "zeta", "mr", "pm", "pm_mc", "ratio"), SECOND_ORDER_TABLE)
 def test_second_order_table_recomputed(os_pct, zeta, mr, pm, pm_mc, ratio):
-    # recomputed: references.md §1 table (Ogata Ch. 5/7, Nise Ch. 4/10, S&P §2.4)
+    # recomputed: docs/references.md §1 table (Ogata Ch. 5/7, Nise Ch. 4/10, S&P §2.4)
     z = specs.zeta_from_overshoot(os_pct)
     assert z == pytest.approx(zeta, abs=6e-5)
     assert specs.mr_from_zeta(z) == pytest.approx(mr, abs=6e-5)
@@ -51,14 +51,14 @@ def test_second_order_table_recomputed(os_pct, zeta, mr, pm, pm_mc, ratio):
     [(0.5996, 1.0420, 59.16), (0.5000, 1.1547, 51.83)],  # recomputed rows 9.5 % and ζ = 0.5
 )
 def test_second_order_table_rows_given_by_zeta(zeta, mr, pm):
-    # recomputed: references.md §1 (rows labelled "Nise's ζ = 0.6 case" and "ζ = 0.5")
+    # recomputed: docs/references.md §1 (rows labelled "Nise's ζ = 0.6 case" and "ζ = 0.5")
     assert specs.mr_from_zeta(zeta) == pytest.approx(mr, abs=6e-5)
     assert specs.pm_from_zeta(zeta) == pytest.approx(pm, abs=6e-3)
 
 
 def test_zeta_06_pairing_from_memory():
     # from memory: Nise, Control Systems Engineering, Ch. 4/10 — ζ = 0.6 ↔ 9.5 %
-    # overshoot ↔ PM 59.2° (references.md §1 recomputes 9.48 % and 59.19°).
+    # overshoot ↔ PM 59.2° (docs/references.md §1 recomputes 9.48 % and 59.19°).
     assert specs.overshoot_from_zeta(0.6) == pytest.approx(9.48, abs=0.01)
     assert specs.pm_from_zeta(0.6) == pytest.approx(59.2, abs=0.05)
     assert specs.zeta_from_overshoot(9.5) == pytest.approx(0.6, abs=1e-3)
@@ -69,7 +69,7 @@ def test_zeta_06_pairing_from_memory():
     [(30.0, 0.2686, 41.6), (45.0, 0.4204, 23.3), (50.0, 0.4777, 18.1), (60.0, 0.6124, 8.8)],
 )
 def test_inverse_pm_table_recomputed(pm, zeta, os_pct):
-    # recomputed: references.md §1 "Inverse, PM → ζ (exact relation)"
+    # recomputed: docs/references.md §1 "Inverse, PM → ζ (exact relation)"
     z = specs.zeta_from_pm(pm)
     assert z == pytest.approx(zeta, abs=6e-5)
     assert specs.overshoot_from_zeta(z) == pytest.approx(os_pct, abs=0.06)
@@ -77,7 +77,7 @@ def test_inverse_pm_table_recomputed(pm, zeta, os_pct):
 
 @pytest.mark.parametrize(("mt", "pm"), [(1.25, 47.16), (1.3, 45.24), (2.0, 28.96)])
 def test_mcircle_bound_table_recomputed(mt, pm):
-    # recomputed of the S&P 2e §2.4 formula (from memory): references.md §1 Ms/Mt table
+    # recomputed of the S&P 2e §2.4 formula (from memory): docs/references.md §1 Ms/Mt table
     assert specs.pm_from_mr_mcircle(mt) == pytest.approx(pm, abs=6e-3)
     assert specs.mr_from_pm_mcircle(pm) == pytest.approx(mt, abs=1e-3)
 
@@ -103,7 +103,7 @@ def test_common_practice_settling_4s():
     assert specs.sigma_from_settling(3.0, 0.05) == pytest.approx(1.0)
     assert specs.settling_from_sigma(1.0, 0.02) == pytest.approx(4.0)
     # the constants are the envelope e^(-σt) reaching the band, rounded:
-    # ln(1/0.02) = 3.91 → 4, ln(1/0.05) = 3.00 → 3 (references.md §1)
+    # ln(1/0.02) = 3.91 → 4, ln(1/0.05) = 3.00 → 3 (docs/references.md §1)
     assert specs.settling_from_sigma(1.0, 0.02) == pytest.approx(math.log(1 / 0.02), abs=0.1)
     assert specs.settling_from_sigma(1.0, 0.05) == pytest.approx(math.log(1 / 0.05), abs=0.01)
 
@@ -182,7 +182,7 @@ def test_overshoot_against_step_response(os_pct):
     [(5.0, 6.00, 2.86), (10.0, 5.93, 5.25), (20.0, 8.33, 5.25), (30.0, 10.90, 7.85)],
 )
 def test_settling_estimate_accuracy(os_pct, ts2_wn, ts5_wn):
-    # recomputed: references.md §1 exact settling times; independent: scipy step here.
+    # recomputed: docs/references.md §1 exact settling times; independent: scipy step here.
     # The textbook estimate 4/σ (3/σ) is within −50 %…+15 % of the exact value
     # (the accuracy docs/specs.md states).
     zeta = specs.zeta_from_overshoot(os_pct)
@@ -284,7 +284,7 @@ def test_out_of_domain_is_nan():
 # --------------------------------------------------------------------------------------
 # targets_from_requirements
 def test_targets_exact_rule():
-    # recomputed (references.md §1, 20 % row) + common practice (ts 4 s ↔ σ = 1)
+    # recomputed (docs/references.md §1, 20 % row) + common practice (ts 4 s ↔ σ = 1)
     c = specs.targets_from_requirements(20.0, 4.0)
     assert c.zeta == pytest.approx(0.4559, abs=6e-5)
     assert c.mr == pytest.approx(1.2321, abs=6e-5)
