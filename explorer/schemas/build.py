@@ -130,8 +130,26 @@ WORST_KEYS = ("sensitivity_peak", "complementary_peak", "phase_margin_deg", "gai
               "iae_load")
 WORST: Schema = _obj(
     {k: STABLE_METRICS[k] for k in WORST_KEYS}, list(WORST_KEYS),
-    "stable (December addition, not implemented yet): each key at its worst over the "
-    "[variation] family",
+    "stable (December addition, [variation]; being built): each key at its worst over "
+    "the plant family",
+)
+
+#: extension beside "worst": the family member where Ms is worst (factors null for a
+#: listed member) and what the worst values were taken over (explorer/family.py)
+WORST_MEMBER: Schema = _obj(
+    {"gain_factor": _num("factor on the plant gain", exclusiveMinimum=0),
+     "delay_s": _num("the member's delay", minimum=0),
+     "time_scale": _num("factor on every time constant", exclusiveMinimum=0),
+     "where": {"type": "string"}},
+    ["gain_factor", "delay_s", "time_scale", "where"],
+    "extension ([variation]): the member with the worst sensitivity peak",
+)
+WORST_BASIS: Schema = _obj(
+    {"frequency": {"type": "string"},
+     "time": _str_list("the members whose step responses were simulated"),
+     "time_scale_bound": _num("", null=False, minimum=0)},
+    ["frequency", "time", "time_scale_bound"],
+    "extension ([variation]): the members the worst values were taken over",
 )
 
 ORIGINS = ["given", "phase-balanced", "hand", "optimized"]
@@ -147,6 +165,8 @@ DESIGN: Schema = _obj(
         "pareto": {"type": ["boolean", "null"], "description": "stable"},
         "metrics": {"$ref": "#/$defs/metrics"},
         "worst": {"$ref": "#/$defs/worst"},
+        "worst_member": {"$ref": "#/$defs/worst_member"},
+        "worst_basis": {"$ref": "#/$defs/worst_basis"},
         "margins_valid": {"type": "boolean",
                           "description": "extension: false when the closed loop is unstable "
                                          "(margins and peaks are then no robustness margins)"},
@@ -216,6 +236,7 @@ def _designs(item: Schema | None = None) -> Schema:
 
 def _defs() -> dict[str, Schema]:
     return {"root": ROOT, "factor": FACTOR, "metrics": METRICS, "worst": WORST,
+            "worst_member": WORST_MEMBER, "worst_basis": WORST_BASIS,
             "design": DESIGN, "study": STUDY}
 
 
@@ -262,7 +283,8 @@ def balance_schema() -> Schema:
 ANSWER: Schema = _obj(
     {"design": {"type": ["string", "null"], "description": "name of a listed design"},
      "order": _int("its order", null=True),
-     "why": {"type": "string", "minLength": 1}},
+     "why": {"type": "string", "minLength": 1},
+     "worst_member": {"$ref": "#/$defs/worst_member"}},
     ["design", "order", "why"],
     "stable (December addition): the one recommended design and why",
 )
