@@ -76,6 +76,7 @@ def _design(problem, s, params):
     return evaluate_points(problem, s, coords, x, time_domain=True)
 
 
+@pytest.mark.slow
 def test_max_integral_gain_pi_matches_brute_force_and_beats_simc() -> None:
     study, problem, s = _pi_problem()
     assert problem.searched_wc and problem.pm_range_deg == (30.0, 85.0)
