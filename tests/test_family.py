@@ -1,0 +1,310 @@
+"""Worst case over a plant family (explorer.family, docs/metrics.md "Worst case over a
+plant family").
+
+References: the brute-force grids below are plain numpy (the loop evaluated from its
+factors, no explorer code); the margin checks are the definitions of the gain margin
+(the factor on the loop gain that brings the closed loop to the stability boundary)
+and of the delay margin (the extra loop delay that does so), as in Åström & Murray,
+*Feedback Systems* (2008), §9.3 "Stability margins" (section number from memory).
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from explorer.cli import main
+from explorer.evaluate import evaluated_record
+from explorer.family import (
+    box_worst_batch,
+    family_worst_batch,
+    sampled_members,
+    scaled_plant,
+    sector_distance,
+)
+from explorer.loop import Rational, feedback_sign
+from explorer.metrics import frequency_metrics
+from explorer.study import Variation, parse_study
+
+ROOT = Path(__file__).resolve().parents[1]
+KILN = Rational(gain=0.005, poles=(-0.02, -0.1), delay_s=6.0)
+PI = Rational(gain=0.85, zeros=(-0.02,), poles=(0.0,))
+PI_LEAD = Rational(gain=3.085188, zeros=(-0.02, -0.1), poles=(0.0, -0.25))
+
+
+def _arrays(comps: list[Rational]):
+    return (np.array([c.gain for c in comps]),
+            np.array([c.zeros for c in comps], dtype=complex).reshape(len(comps), -1),
+            np.array([c.poles for c in comps], dtype=complex).reshape(len(comps), -1))
+
+
+def _loop_values(plant: Rational, comp: Rational, w: np.ndarray, g: float, tau: float,
+                 sig: float) -> np.ndarray:
+    """Plain numpy: g·C(jω)·P(jσω)·e^(−jωτ) from the factors (no explorer code)."""
+    s = 1j * w
+    c = comp.gain * np.prod([s - z for z in comp.zeros], axis=0) / np.prod(
+        [s - p for p in comp.poles], axis=0)
+    ps = 1j * w * sig
+    p = plant.gain * np.prod([ps - z for z in plant.zeros], axis=0) / np.prod(
+        [ps - q for q in plant.poles], axis=0)
+    return g * c * p * np.exp(-1j * w * tau)
+
+
+def _brute(plant, comp, v: Variation, w, n_g=41, n_d=41, n_s=1):
+    """Largest |S| and |T| over a dense grid of the box and of ω."""
+    gs = np.linspace(*(v.gain or (1.0, 1.0)), n_g)
+    ds = np.linspace(*(v.delay_s or (plant.delay_s,) * 2), n_d)
+    ss = np.geomspace(*(v.time_scale or (1.0, 1.0)), n_s)
+    ms = mt = 0.0
+    for sg in ss:
+        base = _loop_values(plant, comp, w, 1.0, 0.0, sg)
+        for g in gs:
+            for d in ds:
+                lv = g * base * np.exp(-1j * w * d)
+                ms = max(ms, float(np.max(1.0 / np.abs(1.0 + lv))))
+                mt = max(mt, float(np.max(np.abs(lv / (1.0 + lv)))))
+    return ms, mt
+
+
+# -- the closed form ---------------------------------------------------------------------
+@settings(max_examples=200, deadline=None)
+@given(th=st.floats(-10, 10), span=st.floats(0, 8), r1=st.floats(0, 3), dr=st.floats(0, 3))
+def test_sector_distance_equals_a_dense_sampling_of_the_sector(th, span, r1, dr):
+    """Closed-form distance from −1 to an annular sector against the smallest distance
+    over a dense (r, θ) sampling of it (plain numpy); spans ≥ 2π included."""
+    r2 = r1 + dr
+    got = float(sector_distance(th, span, r1, r2))
+    t = np.linspace(th, th + span, 801)
+    r = np.linspace(r1, r2, 301)
+    pts = r[:, None] * np.exp(1j * t[None, :])
+    ref = float(np.min(np.abs(pts + 1.0)))
+    assert got <= ref + 1e-12
+    # the sampling step bounds how far above the true distance the sampled one can be
+    step = max(r2 * (span / 800), (r2 - r1) / 300)
+    assert got >= ref - step - 1e-12
+
+
+# -- worst Ms and Mt over the box against brute force ----------------------------------------
+_plants = st.builds(
+    lambda p1, p2, k, d: Rational(gain=k, poles=(-p1, -p2), delay_s=d),
+    st.floats(0.05, 2.0), st.floats(0.5, 20.0), st.floats(0.2, 5.0), st.floats(0.0, 2.0),
+)
+
+
+@settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(plant=_plants, kc=st.floats(0.05, 3.0), zi=st.floats(0.05, 3.0),
+       glo=st.floats(0.3, 1.0), ghi=st.floats(1.0, 2.5),
+       dlo=st.floats(0.0, 1.0), ddel=st.floats(0.0, 2.0))
+def test_box_worst_is_never_better_than_a_dense_grid_and_close_to_it(
+        plant, kc, zi, glo, ghi, dlo, ddel):
+    """Random families: the reported worst |S| and |T| over the gain × delay box are
+    never below a dense brute-force grid of the box (31 × 31 × 12,000 ω, plain numpy)
+    and within 2 % above it (the grid misses at most that much here)."""
+    d0 = plant.delay_s
+    v = Variation(gain=(glo, ghi), delay_s=(d0 * dlo, d0 + ddel))
+    comp = Rational(gain=kc, zeros=(-zi,), poles=(0.0,))
+    out = box_worst_batch(plant, v, *_arrays([comp]))
+    w = np.geomspace(1e-4, 1e3, 12000)
+    ms, mt = _brute(plant, comp, v, w, 31, 31)
+    got_ms = float(out["sensitivity_peak"][0])
+    got_mt = float(out["complementary_peak"][0])
+    assert got_ms >= ms * (1 - 1e-9)
+    assert got_mt >= mt * (1 - 1e-9)
+    if ms < 50:  # near a touching family both grids lose resolution
+        assert got_ms <= ms * 1.02
+        assert got_mt <= mt * 1.02 + 0.02
+
+
+def test_the_worst_can_sit_inside_the_box_not_at_a_corner():
+    """A lightly damped mode under integral action: the worst |S| over the gain × delay
+    box sits at an interior delay, well above every corner's Ms (exact engine), and
+    matches the brute-force grid of the box."""
+    plant = Rational(gain=1.0, poles=(-3.0, complex(-0.23, 0.97), complex(-0.23, -0.97)),
+                     delay_s=0.5)
+    comp = Rational(gain=0.93, poles=(0.0,))
+    v = Variation(gain=(0.8, 1.2), delay_s=(0.0, 0.96))
+    out = family_worst_batch(plant, v, *_arrays([comp]))
+    assert out["closed_loop_stable"][0]
+    corners = [frequency_metrics(scaled_plant(plant, g, d, 1.0), comp)["sensitivity_peak"]
+               for g in v.gain for d in v.delay_s]
+    ms, _ = _brute(plant, comp, v, np.geomspace(0.3, 3.0, 20000), 21, 193)
+    got = float(out["sensitivity_peak"][0])
+    assert ms * (1 - 1e-9) <= got <= ms * 1.005
+    assert got > 1.1 * max(corners)
+    assert out["worst_member"][0] == -1 and 0.0 < out["worst_delay_s"][0] < 0.96
+
+
+def test_time_scale_bound_is_never_better_than_a_dense_grid():
+    """Time scale: the cell bound is ≥ the brute-force worst over a dense σ grid and
+    within the stated tolerance e^(2δ) (plus grid slack) of it."""
+    plant = Rational(gain=0.005, poles=(-0.02, -0.1), delay_s=6.0)
+    v = Variation(gain=(0.7, 1.3), delay_s=(5.0, 7.0), time_scale=(0.8, 1.25))
+    for comp in (PI, PI_LEAD):
+        out = box_worst_batch(plant, v, *_arrays([comp]))
+        ms, mt = _brute(plant, comp, v, np.geomspace(1e-3, 1.0, 8000), 13, 13, 25)
+        got = float(out["sensitivity_peak"][0])
+        delta = float(out["time_scale_bound"][0])
+        assert got >= ms * (1 - 1e-9)
+        assert got <= ms * math.exp(2 * delta) * 1.01
+        assert float(out["complementary_peak"][0]) >= mt * (1 - 1e-9)
+
+
+# -- published definitions: gain and delay margins ------------------------------------------
+@pytest.mark.parametrize("comp", [PI, PI_LEAD], ids=["PI", "PI+lead"])
+def test_gain_family_stable_below_the_gain_margin_and_unstable_beyond(comp):
+    """Gain margin (Åström & Murray 2008, §9.3, from memory): stable for every gain
+    factor below 10^(GM/20), unstable just beyond."""
+    nom = frequency_metrics(KILN, comp)
+    k = 10 ** (nom["gain_margin_db"] / 20.0)
+    g = _arrays([comp])
+    below = family_worst_batch(KILN, Variation(gain=(0.5, k * 0.999)), *g)
+    beyond = family_worst_batch(KILN, Variation(gain=(0.5, k * 1.001)), *g)
+    assert below["closed_loop_stable"][0]
+    assert not beyond["closed_loop_stable"][0]
+    # the worst gain margin of the family is the nominal one less the largest factor
+    assert below["gain_margin_db"][0] == pytest.approx(
+        nom["gain_margin_db"] - 20 * math.log10(k * 0.999), abs=1e-6)
+
+
+@pytest.mark.parametrize("comp", [PI, PI_LEAD], ids=["PI", "PI+lead"])
+def test_delay_family_stable_below_the_delay_margin_and_unstable_beyond(comp):
+    """Delay margin (Åström & Murray 2008, §9.3, from memory): stable for every added
+    delay below DM, unstable just beyond."""
+    nom = frequency_metrics(KILN, comp)
+    dm = nom["delay_margin_s"]
+    g = _arrays([comp])
+    below = family_worst_batch(KILN, Variation(delay_s=(6.0, 6.0 + dm * 0.999)), *g)
+    beyond = family_worst_batch(KILN, Variation(delay_s=(6.0, 6.0 + dm * 1.001)), *g)
+    assert below["closed_loop_stable"][0]
+    assert not beyond["closed_loop_stable"][0]
+    assert below["delay_margin_s"][0] == pytest.approx(dm * 0.001, rel=1e-3, abs=1e-3)
+
+
+# -- degenerate and mirrored families --------------------------------------------------------
+def _study(variation: dict | None, gain: float = 0.005, comp_gain: float = 0.85) -> dict:
+    d = tomllib.loads((ROOT / "studies" / "kiln_damper.toml").read_text())
+    d["plant"]["gain"] = gain
+    d["compensator"] = [{"name": "PI", "gain": comp_gain, "zeros": [-0.02], "poles": [0]}]
+    if variation is not None:
+        d["variation"] = variation
+    return d
+
+
+@pytest.mark.parametrize("var", [{"gain": [1.0, 1.0]}, {"delay": [6.0, 6.0]},
+                                 {"gain": [1, 1], "delay": [6, 6], "time_scale": [1, 1]}])
+def test_a_family_of_one_member_gives_exactly_the_nominal_results(var):
+    s = parse_study(_study(var))
+    rec = evaluated_record(s, s.compensators[0].compensator, name="PI", origin="given",
+                           structure="PI")
+    for k, v in rec["worst"].items():
+        assert v == rec["metrics"][k], k
+    plain = parse_study(_study(None))
+    ref = evaluated_record(plain, plain.compensators[0].compensator, name="PI",
+                           origin="given", structure="PI")
+    assert ref["metrics"] == rec["metrics"]
+    assert ref["meets_targets"] == rec["meets_targets"]
+
+
+def test_a_reverse_acting_family_behaves_like_its_mirror():
+    var = {"gain": [0.6, 1.4], "delay": [4.5, 9.0], "time_scale": [0.9, 1.1]}
+    s = parse_study(_study(var))
+    plant_r = Rational(gain=-0.005, poles=(-0.02, -0.1), delay_s=6.0)
+    sign = feedback_sign(plant_r)
+    assert sign == -1.0
+    sr = parse_study(_study(var, gain=-0.005, comp_gain=sign * 0.85))
+    a = evaluated_record(s, s.compensators[0].compensator, name="PI", origin="given",
+                         structure="PI")
+    b = evaluated_record(sr, sr.compensators[0].compensator, name="PI", origin="given",
+                         structure="PI")
+    for k, v in a["worst"].items():
+        assert b["worst"][k] == pytest.approx(v, rel=1e-9, abs=1e-12), k
+    assert a["worst_member"] == b["worst_member"]
+
+
+def test_batch_equals_one_by_one():
+    v = Variation(gain=(0.6, 1.4), delay_s=(4.5, 9.0), time_scale=(0.9, 1.1),
+                  members=(Rational(gain=0.004, poles=(-0.016, -0.1), delay_s=8.0),))
+    comps = [PI, Rational(gain=1.4, zeros=(-0.02,), poles=(0.0,)),
+             Rational(gain=0.5, zeros=(-0.03,), poles=(0.0,))]
+    both = family_worst_batch(KILN, v, *_arrays(comps))
+    for i, c in enumerate(comps):
+        one = family_worst_batch(KILN, v, *_arrays([c]))
+        for k, arr in both.items():
+            np.testing.assert_allclose(arr[i], one[k][0], rtol=1e-9, equal_nan=True)
+
+
+def test_a_listed_member_counts():
+    """A listed member worse than the whole box sets the worst Ms (exact engine)."""
+    slow = Rational(gain=0.005, poles=(-0.01, -0.1), delay_s=10.0)
+    v = Variation(gain=(0.9, 1.1), members=(slow,))
+    out = family_worst_batch(KILN, v, *_arrays([PI]))
+    ms_slow = frequency_metrics(slow, PI)["sensitivity_peak"]
+    assert out["sensitivity_peak"][0] >= ms_slow
+    labels = [m.label for m in sampled_members(KILN, v)]
+    assert labels[out["worst_member"][0]] == "member[0]"
+
+
+# -- bad input ------------------------------------------------------------------------------
+_BAD = {
+    "not a table": ("variation = 3", "variation"),
+    "unknown key": ("[variation]\nspeed = [1, 2]", "variation.speed"),
+    "empty": ("[variation]", "variation"),
+    "gain not a range": ("[variation]\ngain = 1.2", "variation.gain"),
+    "gain one end": ("[variation]\ngain = [0.5]", "variation.gain"),
+    "gain without 1": ("[variation]\ngain = [1.1, 1.4]", "variation.gain"),
+    "gain reversed": ("[variation]\ngain = [1.4, 0.6]", "variation.gain"),
+    "gain zero": ("[variation]\ngain = [0, 2]", "variation.gain"),
+    "gain text": ("[variation]\ngain = [\"a\", 2]", "variation.gain[0]"),
+    "gain nan": ("[variation]\ngain = [nan, 2]", "variation.gain[0]"),
+    "gain huge span": ("[variation]\ngain = [1e-5, 1]", "variation.gain"),
+    "delay without nominal": ("[variation]\ndelay = [7, 9]", "variation.delay"),
+    "delay negative": ("[variation]\ndelay = [-1, 9]", "variation.delay"),
+    "delay reversed": ("[variation]\ndelay = [9, 4]", "variation.delay"),
+    "delay too long": ("[variation]\ndelay = [6, 1e9]", "variation.delay[1]"),
+    "time scale without 1": ("[variation]\ntime_scale = [1.2, 2]", "variation.time_scale"),
+    "time scale negative": ("[variation]\ntime_scale = [-1, 2]", "variation.time_scale"),
+    "member not tables": ("[variation]\nmember = 3", "variation.member"),
+    "member unknown key": ("[[variation.member]]\ngain = 1\npoles = [-1]\nlag = 2",
+                           "variation.member[0].lag"),
+    "member improper": ("[[variation.member]]\ngain = 1\nzeros = [-1, -2]\npoles = [-1]",
+                        "variation.member[0].zeros"),
+    "member reverse": ("[[variation.member]]\ngain = -1\npoles = [-1]",
+                       "variation.member[0].gain"),
+    "member no gain": ("[[variation.member]]\npoles = [-1]", "variation.member[0].gain"),
+    "member lone complex": ("[[variation.member]]\ngain = 1\npoles = [\"-1+2j\"]",
+                            "variation.member[0].poles[0]"),
+    "member integrator": ("[[variation.member]]\ngain = 1\npoles = [0, -1]",
+                          "variation.member[0]"),
+    "member negative delay": ("[[variation.member]]\ngain = 1\npoles = [-1]\ndelay = -2",
+                              "variation.member[0].delay"),
+}
+
+
+@pytest.mark.parametrize("name", list(_BAD))
+def test_every_malformed_variation_is_refused_in_one_line(name, tmp_path, capsys):
+    text, key = _BAD[name]
+    base = (ROOT / "studies" / "kiln_damper.toml").read_text()
+    f = tmp_path / "s.toml"
+    if text.startswith("variation ="):
+        f.write_text(text + "\n" + base)
+    else:
+        f.write_text(base + "\n" + text + "\n")
+    code = main(["check", str(f)])
+    out, err = capsys.readouterr()
+    assert code == 2
+    assert out == ""
+    assert err.count("\n") == 1 and "Traceback" not in err
+    assert f"`{key}`" in err, err
+
+
+def test_time_scale_refuses_a_plant_with_an_undamped_mode():
+    d = _study({"time_scale": [0.9, 1.1]})
+    d["plant"]["poles"] = ["0+1j", "0-1j", -0.1]
+    with pytest.raises(Exception, match="variation.time_scale"):
+        parse_study(d)
