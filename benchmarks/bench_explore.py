@@ -5,6 +5,12 @@ scenario) and max_order 3 gives ≥ 6 structures; 100 trials each, batched (32) 
 unbatched (1). Run: ``python benchmarks/bench_explore.py [STUDY.toml]`` — with a
 study file (e.g. studies/kiln_damper.toml, a loop with transport delay) that study is
 timed instead.
+
+``python benchmarks/bench_explore.py STUDY.toml --family [TRIALS]``: a study with a
+``[variation]`` (e.g. studies/kiln_family.toml), batch 32, same trials and seed:
+the nominal plant alone, the gain × delay box, and the box with 0, 2, 4 and 8 listed
+members (operating points made up around the nominal plant); prints each run's wall
+time and its ratio to the nominal run measured in the same session.
 """
 
 from __future__ import annotations
@@ -13,11 +19,13 @@ import shutil
 import sys
 import tempfile
 import time
+from dataclasses import replace
 from pathlib import Path
 
 from explorer.explore import explore
+from explorer.loop import Rational
 from explorer.structures import candidate_structures
-from explorer.study import load_study, parse_study
+from explorer.study import Variation, load_study, parse_study
 
 STUDY = {
     "name": "Dome drive on a flexible mount (benchmark)",
@@ -28,7 +36,48 @@ STUDY = {
 }
 
 
+def _members(plant: Rational, k: int) -> tuple[Rational, ...]:
+    """k operating points around the nominal plant: gain −30…+30 %, slowest pole
+    −20…+20 %, delay +0…+40 % (the same direction of action and integrators)."""
+    out = []
+    for i in range(k):
+        f = (i + 0.5) / k
+        poles = sorted(plant.poles, key=abs)
+        slow = poles[0] * (0.8 + 0.4 * f) if poles else None
+        out.append(Rational(gain=plant.gain * (0.7 + 0.6 * f),
+                            zeros=plant.zeros,
+                            poles=tuple([slow, *poles[1:]] if poles else ()),
+                            delay_s=plant.delay_s * (1.0 + 0.4 * f)))
+    return tuple(out)
+
+
+def family(path: str, trials: int) -> None:
+    study = load_study(path)
+    v = study.variation
+    if v is None or v.gain is None or v.delay_s is None:
+        raise SystemExit(f"{path}: --family needs a [variation] with a gain and a delay range")
+    box = Variation(gain=v.gain, delay_s=v.delay_s)
+    runs = [("nominal plant", replace(study, variation=None)),
+            ("gain x delay box", replace(study, variation=box))]
+    runs += [(f"box + {k} listed members", replace(
+        study, variation=replace(box, members=_members(study.plant, k)))) for k in (2, 4, 8)]
+    base = None
+    for name, st in runs:
+        tmp = Path(tempfile.mkdtemp(prefix="bench-family-"))
+        t0 = time.perf_counter()
+        res = explore(st, tmp, trials=trials, seed=1, batch=32, progress=False)
+        dt = time.perf_counter() - t0
+        base = dt if base is None else base
+        print(f"{name:<26} {dt:7.2f} s  {dt / base:5.2f}x nominal  "
+              f"answer: {res.obj['answer']['design']}", flush=True)
+        shutil.rmtree(tmp, ignore_errors=True)
+
+
 def main() -> None:
+    if "--family" in sys.argv:
+        args = [a for a in sys.argv[1:] if a != "--family"]
+        family(args[0], int(args[1]) if len(args) > 1 else 100)
+        return
     study = load_study(sys.argv[1]) if len(sys.argv) > 1 else parse_study(STUDY)
     n_struct = len(candidate_structures(study.plant, study.targets, study.search))
     for batch in (32, 1):

@@ -151,9 +151,12 @@ def sampled_members(plant: Rational, v: Variation) -> list[Member]:
                 if key in seen:
                     continue
                 seen.add(key)
+                parts = [f"gain ×{gi:g}" if g[0] < g[1] else "",
+                         f"delay {di:g} s" if d[0] < d[1] else "",
+                         f"time scale ×{si:g}" if s[0] < s[1] else ""]
                 out.append(Member(gain_factor=gi, delay_s=di, time_scale=si,
                                   plant=scaled_plant(plant, gi, di, si),
-                                  label=f"corner g×{gi:g}, τ={di:g} s, σ×{si:g}"))
+                                  label="corner " + ", ".join(x for x in parts if x)))
     for i, m in enumerate(v.members):
         out.append(Member(gain_factor=None, delay_s=m.delay_s, time_scale=None, plant=m,
                           label=f"member[{i}]"))

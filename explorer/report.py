@@ -50,6 +50,8 @@ __all__ = [
     "response_designs",
     "recommended_name",
     "frequency_frame",
+    "family_frame",
+    "family_step_frame",
     "plant_frame",
     "step_frame",
     "m_contour_frame",
@@ -243,6 +245,146 @@ def _grid(study: Study, designs: Sequence[dict[str, Any]]) -> np.ndarray:
         wcs = wcs or [1.0]
         return np.logspace(math.log10(min(wcs)) - 1.5, math.log10(max(wcs)) + 1.5, N_FREQ)
     return np.logspace(math.log10(min(wcs)) - 2, math.log10(max(wcs)) + 2, N_FREQ)
+
+
+#: Time scales drawn in the family bands (sampled, ends included).
+_FAMILY_SIGMAS = 5
+
+
+def _family_plants(study: Study) -> list[tuple[str, Rational]]:
+    """Sampled members drawn in the bands: the nominal plant, every gain and delay end
+    at a few time scales (ends included), and the listed members."""
+    from explorer.family import _ranges, scaled_plant
+
+    v = study.variation
+    assert v is not None
+    g, d, sg = _ranges(study.plant, v)
+    sigmas = np.geomspace(sg[0], sg[1], _FAMILY_SIGMAS) if sg[0] < sg[1] else np.array([1.0])
+    out = [("nominal", study.plant)]
+    out += [(f"g×{gi:g}, τ={di:g} s, σ×{si:.3g}", scaled_plant(study.plant, gi, di, si))
+            for gi in sorted(set(g)) for di in sorted(set(d)) for si in sigmas]
+    out += [(f"member[{i}]", m) for i, m in enumerate(v.members)]
+    return out
+
+
+def family_frame(study: Study, design: dict[str, Any]) -> pd.DataFrame:
+    """Bands over the plant family for one design, per ω: ``mag_lo/mag_hi`` (dB) and
+    ``phase_lo/phase_hi`` (deg) of the loop over the sampled members (the nominal
+    plant, every gain and delay end at five time scales, the listed members: the gain
+    band is exact for
+    gain × delay, the delay only turns the phase); ``S_lo/T_lo`` the smallest |S|, |T|
+    over them; ``S_hi/T_hi`` the largest over the whole gain × delay box at those time
+    scales (explorer.family.sector_distance) and the listed members; and the nominal
+    ``mag_db, phase_deg, S_db, T_db``."""
+    from explorer.family import _ranges, scaled_plant, sector_distance
+
+    v = study.variation
+    assert v is not None
+    comp = _comp(design)
+    w = _grid(study, [design])
+    g, d, sg = _ranges(study.plant, v)
+    mags, phases, ss, ts = [], [], [], []
+    for _, pl in _family_plants(study):
+        loop = pl * comp
+        lv = loop.freqresp(w)
+        mags.append(np.abs(lv))
+        phases.append(loop.phase_rad(w))
+        ss.append(np.abs(1.0 / (1.0 + lv)))
+        ts.append(np.abs(lv / (1.0 + lv)))
+    s_hi = np.max(ss, axis=0)
+    t_hi = np.max(ts, axis=0)
+    sigmas = np.geomspace(sg[0], sg[1], _FAMILY_SIGMAS) if sg[0] < sg[1] else np.array([1.0])
+    for si in sigmas:
+        lv = (scaled_plant(study.plant, 1.0, d[1], si) * comp).freqresp(w)
+        th, span = np.angle(lv), w * (d[1] - d[0])
+        with np.errstate(divide="ignore"):
+            s_hi = np.maximum(s_hi, 1.0 / sector_distance(th, span, np.abs(lv) * g[0],
+                                                          np.abs(lv) * g[1]))
+            t_hi = np.maximum(t_hi, 1.0 / sector_distance(
+                -(th + span), span, 1.0 / (np.abs(lv) * g[1]), 1.0 / (np.abs(lv) * g[0])))
+    nom = study.plant * comp
+    lv = nom.freqresp(w)
+    with np.errstate(divide="ignore"):
+        db = lambda x: 20 * np.log10(x)  # noqa: E731
+        return pd.DataFrame({
+            "omega_rad_s": w,
+            "mag_lo": db(np.min(mags, axis=0)), "mag_hi": db(np.max(mags, axis=0)),
+            "phase_lo": np.degrees(np.min(phases, axis=0)),
+            "phase_hi": np.degrees(np.max(phases, axis=0)),
+            "S_lo": db(np.min(ss, axis=0)), "S_hi": db(np.minimum(s_hi, 1e6)),
+            "T_lo": db(np.min(ts, axis=0)), "T_hi": db(np.minimum(t_hi, 1e6)),
+            "mag_db": db(np.abs(lv)), "phase_deg": np.degrees(nom.phase_rad(w)),
+            "S_db": db(np.abs(1 / (1 + lv))), "T_db": db(np.abs(lv / (1 + lv))),
+        })
+
+
+def family_step_frame(study: Study, design: dict[str, Any], n_points: int = 400
+                      ) -> pd.DataFrame:
+    """Long frame: member, t_s, y (unit reference step) of the design on the nominal
+    plant, every corner of the box, the listed members and its worst-Ms member
+    (``worst_member``); the horizon 1.25× the worst settling time."""
+    from explorer.family import sampled_members, scaled_plant
+    from explorer.timeresp import simulate_steps
+
+    v = study.variation
+    assert v is not None
+    comp = _comp(design)
+    plants = [(m.label, m.plant) for m in sampled_members(study.plant, v)]
+    wm = design.get("worst_member") or {}
+    if wm.get("gain_factor") is not None and wm.get("where") == "inside the box":
+        plants.append(("worst Ms (inside the box)", scaled_plant(
+            study.plant, wm["gain_factor"], wm["delay_s"], wm["time_scale"])))
+    ts = (design.get("worst") or {}).get("settling_time_s")
+    t_end = 1.25 * ts if ts else None
+    parts = []
+    for label, pl in plants:
+        try:
+            r = simulate_steps(pl, comp, t_end_s=t_end)
+        except Exception:  # a member whose response cannot be drawn is left out
+            continue
+        end = t_end if t_end else float(r.t_s[-1])
+        t = np.linspace(0.0, end, n_points)
+        parts.append(pd.DataFrame({"member": label, "t_s": t,
+                                   "y": np.interp(t, r.t_s, r.y_ref)}))
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+        columns=["member", "t_s", "y"])
+
+
+def family_charts(fb: pd.DataFrame, st: pd.DataFrame, name: str) -> tuple[Any, Any]:
+    """Bands of the family (loop gain and phase, |S| and |T|) and the step responses
+    of its corners and worst member, for design ``name``."""
+    x_scale, x_axis = _log_x(fb["omega_rad_s"])
+    x = alt.X("omega_rad_s:Q", title="frequency ω (rad/s)", scale=x_scale, axis=x_axis)
+
+    def band(lo: str, hi: str, nom: str, title: str, ytitle: str) -> Any:
+        base = alt.Chart(fb)
+        area = base.mark_area(opacity=0.28, color=PALETTE[0], clip=True).encode(
+            x=x, y=alt.Y(f"{lo}:Q", title=ytitle, scale=alt.Scale(zero=False)),
+            y2=f"{hi}:Q")
+        line = base.mark_line(color=_INK, strokeWidth=1.6, clip=True).encode(
+            x=x, y=f"{nom}:Q")
+        return (area + line).properties(width=_W, height=160, title=title)
+
+    bands = alt.vconcat(
+        alt.hconcat(band("mag_lo", "mag_hi", "mag_db", f"{name}: loop gain over the family",
+                         "|L| (dB)"),
+                    band("phase_lo", "phase_hi", "phase_deg", "loop phase over the family",
+                         "∠L (deg)")),
+        alt.hconcat(band("S_lo", "S_hi", "S_db", "|S| over the family", "|S| (dB)"),
+                    band("T_lo", "T_hi", "T_db", "|T| over the family", "|T| (dB)")),
+    )
+    steps = (
+        alt.Chart(st).mark_line(clip=True).encode(
+            x=alt.X("t_s:Q", title="time (s)"),
+            y=alt.Y("y:Q", title="y (unit reference step)", scale=alt.Scale(zero=False)),
+            color=alt.Color("member:N", title="operating point",
+                            legend=alt.Legend(orient="bottom", columns=2)),
+            strokeDash=alt.condition(alt.datum.member == "nominal", alt.value([1, 0]),
+                                     alt.value([5, 3])),
+        ).properties(width=2 * _W, height=220,
+                     title=f"{name}: step responses at the corners and the worst member")
+    )
+    return bands, steps
 
 
 def frequency_frame(study: Study, designs: Sequence[dict[str, Any]]) -> pd.DataFrame:
@@ -991,12 +1133,31 @@ def _charts(
             f"Response charts show {len(sel)} of {len(designs)} designs: the recommended, "
             "Pareto and hand designs."
         )
+    fam = _family_design(study, designs, recommended)
+    if fam is not None:
+        bands, steps = family_charts(family_frame(study, fam), family_step_frame(study, fam),
+                                     str(fam["name"]))
+        out["family"] = bands
+        out["family_steps"] = steps
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message="Automatically deduplicated")
         for key in ("pareto_iae", "nichols", "sensitivity", "steps", "load"):
             if key in out and key != "pareto_iae":
                 out[key] = out[key].add_params(pick)
     return out, notes
+
+
+def _family_design(study: Study, designs: Sequence[dict[str, Any]],
+                   recommended: str | None) -> dict[str, Any] | None:
+    """The design whose family bands are drawn: the recommended one, else the first
+    stable one; None without a plant family."""
+    if getattr(study, "variation", None) is None:
+        return None
+    by_name = {str(d["name"]): d for d in designs}
+    if recommended in by_name:
+        return by_name[recommended]
+    stable = [d for d in designs if d["metrics"].get("closed_loop_stable")]
+    return stable[0] if stable else None
 
 
 def chart_specs(

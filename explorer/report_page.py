@@ -47,6 +47,11 @@ _CHART_ORDER = {
     "sensitivity": "|S| peak is Ms; |T| peak is Mt.",
     "steps": "Time axis sized to the recommended designs' transients.",
     "load": "A unit step added at the plant input (a load change), delay included.",
+    "family": "Bands: every operating point of the plant family ([variation]); the line "
+              "is the nominal plant. The upper |S| and |T| edges are the worst over the "
+              "whole gain × delay box at sampled time scales.",
+    "family_steps": "The same design at the nominal point (solid), every corner of the "
+                    "box, the listed members and the worst-Ms member (dashed).",
 }
 
 

@@ -308,3 +308,27 @@ def test_time_scale_refuses_a_plant_with_an_undamped_mode():
     d["plant"]["poles"] = ["0+1j", "0-1j", -0.1]
     with pytest.raises(Exception, match="variation.time_scale"):
         parse_study(d)
+
+
+# -- report ---------------------------------------------------------------------------------
+def test_report_draws_the_family_bands_and_member_steps():
+    """The report of a family study has the band and step charts of the shown design;
+    the bands hold the nominal curves, and the upper |S| edge is the box worst (its
+    maximum equals the design's worst Ms within the report grid's resolution)."""
+    from explorer.report import chart_specs, family_frame, family_step_frame
+
+    s = parse_study(tomllib.loads((ROOT / "studies" / "kiln_family.toml").read_text()))
+    rec = evaluated_record(s, s.compensators[0].compensator, name="PI cautious",
+                           origin="given", structure="PI")
+    fb = family_frame(s, rec)
+    for lo, hi, nom in (("mag_lo", "mag_hi", "mag_db"), ("S_lo", "S_hi", "S_db"),
+                        ("T_lo", "T_hi", "T_db"), ("phase_lo", "phase_hi", "phase_deg")):
+        assert np.all(fb[lo] <= fb[nom] + 1e-9) and np.all(fb[nom] <= fb[hi] + 1e-9)
+    peak = 10 ** (fb["S_hi"].max() / 20)
+    assert peak <= rec["worst"]["sensitivity_peak"] * (1 + 1e-9)
+    assert peak >= rec["worst"]["sensitivity_peak"] * 0.97
+    st = family_step_frame(s, rec)
+    assert {"nominal", "member[0]"} <= set(st["member"])
+    assert sum(m.startswith("corner") for m in set(st["member"])) == 4
+    specs = chart_specs(s, [rec])
+    assert "family" in specs and "family_steps" in specs
