@@ -332,3 +332,52 @@ def test_report_draws_the_family_bands_and_member_steps():
     assert sum(m.startswith("corner") for m in set(st["member"])) == 4
     specs = chart_specs(s, [rec])
     assert "family" in specs and "family_steps" in specs
+
+
+# -- explore on a family ----------------------------------------------------------------------
+@pytest.mark.slow
+def test_explore_answer_holds_on_every_member_and_beats_the_hand_design(tmp_path):
+    """studies/kiln_family.toml (gain ±40 %, delay 4.5…9 s, one listed member): the
+    answer is stable and within every limit on every member — re-checked here on a
+    plain-numpy grid of the box (Ms) and by the exact engine at the corners and the
+    listed member — and its worst Ms beats the phase-balanced hand design's."""
+    from explorer.explore import explore
+
+    path = ROOT / "studies" / "kiln_family.toml"
+    s = parse_study(tomllib.loads(path.read_text()))
+    res = explore(s, tmp_path, trials=16, seed=1, progress=False)
+    ans = res.obj["answer"]
+    assert ans["design"] is not None and "worst_member" in ans
+    d = next(x for x in res.designs if x["name"] == ans["design"])
+    comp = Rational(gain=d["compensator"]["gain"],
+                    zeros=tuple(complex(z) for z in d["compensator"]["zeros"]),
+                    poles=tuple(complex(p) for p in d["compensator"]["poles"]))
+    assert d["meets_targets"] and d["worst"]["closed_loop_stable"]
+    for m in sampled_members(s.plant, s.variation):
+        fm = frequency_metrics(m.plant, comp)
+        assert fm["closed_loop_stable"], m.label
+        assert fm["sensitivity_peak"] <= s.limits["sensitivity_peak"], m.label
+        assert fm["gain_margin_db"] is None or fm["gain_margin_db"] >= s.limits["gain_margin_db"]
+    ms, _ = _brute(s.plant, comp, s.variation, np.geomspace(1e-4, 2.0, 20000), 21, 46)
+    assert ms <= d["worst"]["sensitivity_peak"] * (1 + 1e-9) <= s.limits["sensitivity_peak"]
+    hand = next(x for x in res.designs if x["origin"] == "phase-balanced")
+    assert d["worst"]["sensitivity_peak"] < hand["worst"]["sensitivity_peak"]
+
+
+def test_check_and_balance_report_the_worst_beside_the_nominal(capsys):
+    import json
+
+    path = str(ROOT / "studies" / "kiln_family.toml")
+    for cmd in ("check", "balance"):
+        assert main([cmd, path, "--json"]) == 0
+        obj = json.loads(capsys.readouterr().out)
+        for d in obj["designs"]:
+            assert set(d["worst"]) == {
+                "sensitivity_peak", "complementary_peak", "phase_margin_deg",
+                "gain_margin_db", "delay_margin_s", "closed_loop_stable", "overshoot_pct",
+                "settling_time_s", "iae_load"}
+            assert d["worst"]["sensitivity_peak"] >= d["metrics"]["sensitivity_peak"]
+            assert set(d["worst_member"]) >= {"gain_factor", "delay_s", "time_scale"}
+        assert main([cmd, path]) == 0
+        out = capsys.readouterr().out
+        assert "worst Ms" in out and "plant family:" in out
