@@ -968,6 +968,17 @@ def check_loop(loop: Rational) -> LoopCheck:
         c = math.pi * round((p_lo + m0 * math.pi / 2) / math.pi)
         n_cw += _signed_crossings(2 * c - p_lo, p_lo)
     z = n_rhp + n_cw
+    if note is not None and note.startswith("L(jω) approaches −|k|") and tau == 0:
+        # the plot lies on the negative real axis as ω → ∞ and the crossing count is
+        # degenerate; without a delay the closed-loop polynomial den + num decides
+        num = loop.gain * np.poly(zeros).real if zeros.size else np.array([loop.gain])
+        den = np.poly(poles).real
+        size = max(num.size, den.size)
+        cl = np.roots(np.pad(den, (size - den.size, 0)) + np.pad(num, (size - num.size, 0)))
+        z = int(np.sum(cl.real > 0))
+        marginal = marginal or bool(np.any(np.abs(cl.real) <= 1e-9 * np.maximum(1.0,
+                                                                                np.abs(cl))))
+        note += "; decided by the roots of the closed-loop polynomial"
     if any(abs(pmv) < 1e-9 for pmv in pms):
         marginal = True
         note = "a crossover has zero phase margin (closed-loop poles on the imaginary axis)"

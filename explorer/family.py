@@ -346,7 +346,27 @@ def _edge_points(rows: _Rows, grid: np.ndarray, fval: np.ndarray, fn) -> tuple:
     return ri, np.exp(0.5 * (a + b))
 
 
+#: Largest number of (design, cell) rows evaluated at once (bounds the memory of the
+#: per-row grids).
+MAX_ROWS = 512
+
+
 def box_worst_batch(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.ndarray]:
+    """:func:`_box_worst` in chunks of designs so that at most ``MAX_ROWS`` (design,
+    cell) rows are evaluated at once."""
+    cg = np.asarray(cg, float).ravel()
+    n = cg.shape[0]
+    cz = np.asarray(cz, complex).reshape(n, -1)
+    cp = np.asarray(cp, complex).reshape(n, -1)
+    step = max(1, MAX_ROWS // len(_box(plant, v).sig_centres))
+    if n <= step:
+        return _box_worst(plant, v, cg, cz, cp)
+    parts = [_box_worst(plant, v, cg[i:i + step], cz[i:i + step], cp[i:i + step])
+             for i in range(0, n, step)]
+    return {k: np.concatenate([q[k] for q in parts]) for k in parts[0]}
+
+
+def _box_worst(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.ndarray]:
     """Worst frequency figures over the box for a batch of compensators (arrays of
     shape (n,), NaN = null/infinite): ``sensitivity_peak``, ``complementary_peak``,
     ``phase_margin_deg``, ``gain_margin_db``, ``delay_margin_s``, ``min_distance``,
