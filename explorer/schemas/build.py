@@ -147,9 +147,12 @@ WORST_MEMBER: Schema = _obj(
 WORST_BASIS: Schema = _obj(
     {"frequency": {"type": "string"},
      "time": _str_list("the members whose step responses were simulated"),
-     "time_scale_bound": _num("", null=False, minimum=0)},
-    ["frequency", "time", "time_scale_bound"],
-    "extension ([variation]): the members the worst values were taken over",
+     "time_scale_bound": _num("", minimum=0),
+     "time_scale_gap": _num("", minimum=0)},
+    ["frequency", "time"],
+    "extension ([variation], being built, so open to new keys): the members the worst "
+    "values were taken over",
+    closed=False,
 )
 
 ORIGINS = ["given", "phase-balanced", "hand", "optimized"]
