@@ -47,6 +47,7 @@ def test_a_malformed_answer_or_summary_is_one_line_exit_2(tmp_path, capsys, extr
     assert err.count("\n") == 1 and "--designs" in err
 
 
+@pytest.mark.slow
 def test_the_report_recommends_the_exploration_s_answer(tmp_path, capsys) -> None:
     # the report shows the answer and its reasons as the exploration gave them
     p = _file(tmp_path, answer={"design": "PI + lead", "order": 2, "why": "our reasons"})

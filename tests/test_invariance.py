@@ -96,6 +96,7 @@ def _batch(doc: dict[str, Any]) -> list[dict[str, np.ndarray]]:
     return out
 
 
+@pytest.mark.slow
 @settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(doc=studies(), a=st.sampled_from([0.01, 100.0]), g=st.sampled_from([1e-3, 1e3]))
 def test_every_candidate_is_invariant(doc: dict[str, Any], a: float, g: float) -> None:
