@@ -72,9 +72,10 @@ __all__ = [
     "TIME_SCALE_TOL",
 ]
 
-#: Largest log-deviation δ of a time-scale cell (radius factor e^δ, angle δ rad).
-TIME_SCALE_TOL = 0.02
-MAX_CELLS = 48
+#: Largest log-deviation δ of a first, coarse time-scale cell (radius factor e^δ,
+#: angle δ rad); cells are then split where it matters (TIME_SCALE_DIST_TOL).
+TIME_SCALE_TOL = 0.05
+MAX_CELLS = 24
 #: Below this distance from −1 to a sector the family counts as touching −1.
 MIN_DISTANCE = 1e-9
 _GOLDEN_ITERS = 40
@@ -209,14 +210,15 @@ def _wrap(a: np.ndarray) -> np.ndarray:
 class _Box:
     g: tuple[float, float]
     d: tuple[float, float]
-    sig_centres: np.ndarray
-    delta: float  # log-deviation bound of a time-scale cell
+    sig_centres: np.ndarray  # the first, coarse cells of the time-scale range
+    half_width: float  # h of those cells in ln σ
+    b: float  # Σ 1/ζ_r over the plant's roots: δ = h·b
 
 
 def _box(plant: Rational, v: Variation) -> _Box:
     g, d, s = _ranges(plant, v)
     if s[0] == s[1]:
-        return _Box(g, d, np.array([s[0]]), 0.0)
+        return _Box(g, d, np.array([s[0]]), 0.0, 0.0)
     b = 0.0
     for r in (*plant.zeros, *plant.poles):
         b += 1.0 if r == 0 else abs(r) / abs(r.real)
@@ -224,37 +226,38 @@ def _box(plant: Rational, v: Variation) -> _Box:
     n = max(1, min(MAX_CELLS, math.ceil(width * b / (2.0 * TIME_SCALE_TOL))))
     h = width / (2 * n)
     centres = np.exp(math.log(s[0]) + h * (2 * np.arange(n) + 1))
-    return _Box(g, d, centres, h * b)
+    return _Box(g, d, centres, h, b)
 
 
 class _Rows:
-    """(design, cell) rows of the box: the loop at the cell's centre with the largest
-    delay, and the sector bounds at any ω."""
+    """Rows (design, time-scale cell): the loop at the cell's centre σ with the largest
+    delay, and the sector bounds at any ω widened by the cell's δ."""
 
-    def __init__(self, plant: Rational, box: _Box, cg, cz, cp) -> None:
-        n = cg.shape[0]
-        self.n = n
+    def __init__(self, plant: Rational, box: _Box, cg, cz, cp, design: np.ndarray,
+                 sig: np.ndarray, delta: np.ndarray) -> None:
         self.box = box
-        parts = [
-            LoopBatch.series(scaled_plant(plant, 1.0, box.d[1], s), cg, cz, cp)
-            for s in box.sig_centres
-        ]
+        self.design = design
+        self.sig = sig
+        self.delta = delta
+        nz, npl = len(plant.zeros), len(plant.poles)
+        pz = np.array(plant.zeros, dtype=complex)[None, :] / sig[:, None]
+        pp = np.array(plant.poles, dtype=complex)[None, :] / sig[:, None]
         self.loops = LoopBatch(
-            gain=np.concatenate([p.gain for p in parts]),
-            zeros=np.concatenate([p.zeros for p in parts]),
-            poles=np.concatenate([p.poles for p in parts]),
-            delay_s=np.concatenate([p.delay_s for p in parts]),
+            gain=cg[design] * plant.gain * sig ** (nz - npl),
+            zeros=np.concatenate([pz, cz[design]], axis=1),
+            poles=np.concatenate([pp, cp[design]], axis=1),
+            delay_s=np.full(design.shape[0], box.d[1]),
         )
-        self.design = np.tile(np.arange(n), len(parts))
-        self.cell = np.repeat(np.arange(len(parts)), n)
 
-    def sector(self, lval: np.ndarray, w: np.ndarray):
-        """(θ_lo, span, r_lo, r_hi) of the box at loop values ``lval`` (largest delay)."""
+    def sector(self, lval: np.ndarray, w: np.ndarray, ri: np.ndarray | None = None):
+        """(θ_lo, span, r_lo, r_hi) at loop values ``lval`` (largest delay): of the grid
+        rows (``ri`` None, shape (rows, m)) or of points of rows ``ri``."""
         b = self.box
+        dl = self.delta[:, None] if ri is None else self.delta[ri]
         mag = np.abs(lval)
-        e = math.exp(b.delta)
-        theta_lo = np.angle(lval) - b.delta
-        span = w * (b.d[1] - b.d[0]) + 2.0 * b.delta
+        e = np.exp(dl)
+        theta_lo = np.angle(lval) - dl
+        span = w * (b.d[1] - b.d[0]) + 2.0 * dl
         return theta_lo, span, mag * b.g[0] / e, mag * b.g[1] * e
 
     def values(self, rows: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -262,12 +265,12 @@ class _Rows:
         return val
 
 
-def _dist_s(rows: _Rows, lval, w):
-    return sector_distance(*rows.sector(lval, w))
+def _dist_s(rows: _Rows, lval, w, ri=None):
+    return sector_distance(*rows.sector(lval, w, ri))
 
 
-def _dist_t(rows: _Rows, lval, w):
-    th, span, r_lo, r_hi = rows.sector(lval, w)
+def _dist_t(rows: _Rows, lval, w, ri=None):
+    th, span, r_lo, r_hi = rows.sector(lval, w, ri)
     with np.errstate(divide="ignore"):
         return sector_distance(-(th + span), span, 1.0 / r_hi, 1.0 / r_lo)
 
@@ -301,7 +304,7 @@ def _refined_min(rows: _Rows, grid: np.ndarray, dist: np.ndarray, fn) -> tuple:
 
     def f(x):
         w = np.exp(x)
-        return fn(rows, rows.values(ri, w), w)
+        return fn(rows, rows.values(ri, w), w, ri)
 
     fc, fe = f(c), f(e)
     for _ in range(_GOLDEN_ITERS):
@@ -349,11 +352,16 @@ def _edge_points(rows: _Rows, grid: np.ndarray, fval: np.ndarray, fn) -> tuple:
 #: Largest number of (design, cell) rows evaluated at once (bounds the memory of the
 #: per-row grids).
 MAX_ROWS = 512
+#: Adaptive time-scale refinement: a cell is split while its bound of the distance
+#: |1 + L| (or |1 + 1/L|) lies more than this below the exact distance reached by a
+#: member of the family, at most ``MAX_SPLITS`` times.
+TIME_SCALE_DIST_TOL = 1e-3
+MAX_SPLITS = 8
 
 
 def box_worst_batch(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.ndarray]:
     """:func:`_box_worst` in chunks of designs so that at most ``MAX_ROWS`` (design,
-    cell) rows are evaluated at once."""
+    cell) rows start at once."""
     cg = np.asarray(cg, float).ravel()
     n = cg.shape[0]
     cz = np.asarray(cz, complex).reshape(n, -1)
@@ -366,50 +374,47 @@ def box_worst_batch(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.n
     return {k: np.concatenate([q[k] for q in parts]) for k in parts[0]}
 
 
-def _box_worst(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.ndarray]:
-    """Worst frequency figures over the box for a batch of compensators (arrays of
-    shape (n,), NaN = null/infinite): ``sensitivity_peak``, ``complementary_peak``,
-    ``phase_margin_deg``, ``gain_margin_db``, ``delay_margin_s``, ``min_distance``,
-    and the Ms member ``ms_gain_factor``, ``ms_delay_s``, ``ms_time_scale``; and
-    ``time_scale_bound`` (δ of the time-scale cells)."""
+def _pass(plant: Rational, box: _Box, cg, cz, cp, design, sig, delta) -> dict[str, Any]:
+    """One evaluation of rows (design, σ, δ): per row the bound distances (S and T),
+    the exact distances at the cell's centre (δ = 0), the margin bounds and the ω of
+    the S bound."""
     from explorer.metrics import design_grid
 
-    cg = np.asarray(cg, float).ravel()
-    n = cg.shape[0]
-    cz = np.asarray(cz, complex).reshape(n, -1)
-    cp = np.asarray(cp, complex).reshape(n, -1)
-    box = _box(plant, v)
-    rows = _Rows(plant, box, cg, cz, cp)
+    rows = _Rows(plant, box, cg, cz, cp, design, sig, delta)
     grid = design_grid(rows.loops)
     lval = rows.loops.freqresp(grid)
-    ds = _dist_s(rows, lval, grid)
-    dt = _dist_t(rows, lval, grid)
-    s_min, s_w = _refined_min(rows, grid, ds, _dist_s)
-    t_min, _ = _refined_min(rows, grid, dt, _dist_t)
+    s_min, s_w = _refined_min(rows, grid, _dist_s(rows, lval, grid), _dist_s)
+    t_min, _ = _refined_min(rows, grid, _dist_t(rows, lval, grid), _dist_t)
+    out: dict[str, Any] = {"s": s_min, "s_w": s_w, "t": t_min, "rows": rows}
+    if np.any(delta > 0):
+        exact = _Rows(plant, box, cg, cz, cp, design, sig, np.zeros_like(delta))
+        out["s_exact"] = _refined_min(exact, grid, _dist_s(exact, lval, grid), _dist_s)[0]
+        out["t_exact"] = _refined_min(exact, grid, _dist_t(exact, lval, grid), _dist_t)[0]
+    else:
+        out["s_exact"], out["t_exact"] = s_min, t_min
 
     # margins on the grid
     th, span, r_lo, r_hi = rows.sector(lval, grid)
     cross = (r_lo <= 1.0) & (r_hi >= 1.0)
     pm = _wrap(np.pi + th)
-    pm_g = np.where(cross, pm, np.inf)
-    dm_g = np.where(cross, np.maximum(pm, 0.0) / grid, np.inf)
+    pm_min = np.where(cross, pm, np.inf).min(axis=1)
+    dm_min = np.where(cross, np.maximum(pm, 0.0) / grid, np.inf).min(axis=1)
     covers = (span >= 2.0 * np.pi) | (np.mod(np.pi - th, 2.0 * np.pi) <= span)
-    gm_g = np.where(covers & (r_hi < 1.0), -20.0 * np.log10(np.maximum(r_hi, 1e-300)), np.inf)
-    pm_min = pm_g.min(axis=1)
-    dm_min = dm_g.min(axis=1)
-    gm_min = gm_g.min(axis=1)
+    with np.errstate(divide="ignore"):
+        gm_min = np.where(covers & (r_hi < 1.0), -20.0 * np.log10(np.maximum(r_hi, 1e-300)),
+                          np.inf).min(axis=1)
 
     # edges of the crossover set (ln r_lo = 0, ln r_hi = 0) and of the phase set
     # (an edge angle at −180°), refined by bisection
     def lr(which):
         def f(ri, w):
-            _, _, a, b = rows.sector(rows.values(ri, w), w)
+            _, _, a, b = rows.sector(rows.values(ri, w), w, ri)
             return np.log(np.maximum(a if which == 0 else b, 1e-300))
         return f
 
     def ang(which):
         def f(ri, w):
-            t, sp, _, _ = rows.sector(rows.values(ri, w), w)
+            t, sp, _, _ = rows.sector(rows.values(ri, w), w, ri)
             return np.sin(t if which == 0 else t + sp)
         return f
 
@@ -417,7 +422,7 @@ def _box_worst(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.ndarra
         for which, src in ((0, r_lo), (1, r_hi)):
             ri, w = _edge_points(rows, grid, np.log(np.maximum(src, 1e-300)), lr(which))
             if ri.size:
-                t, _, _, _ = rows.sector(rows.values(ri, w), w)
+                t, _, _, _ = rows.sector(rows.values(ri, w), w, ri)
                 p = _wrap(np.pi + t)
                 np.minimum.at(pm_min, ri, p)
                 np.minimum.at(dm_min, ri, np.maximum(p, 0.0) / w)
@@ -426,49 +431,99 @@ def _box_worst(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.ndarra
             f_grid = np.where(np.cos(edge) < 0, np.sin(edge), np.nan)
             ri, w = _edge_points(rows, grid, np.nan_to_num(f_grid, nan=0.0), ang(which))
             if ri.size:
-                t, sp, _, rh = rows.sector(rows.values(ri, w), w)
+                t, sp, _, rh = rows.sector(rows.values(ri, w), w, ri)
                 e = t if which == 0 else t + sp
                 ok = (np.cos(e) < 0) & (rh < 1.0)
                 vals = np.where(ok, -20.0 * np.log10(np.maximum(rh, 1e-300)), np.inf)
                 np.minimum.at(gm_min, ri, vals)
+    out.update(pm=pm_min, dm=dm_min, gm=gm_min)
+    return out
 
-    # per design: worst over the cells
-    def per_design(x, fn):
-        out = np.full(n, np.inf if fn is np.minimum else -np.inf)
-        fn.at(out, rows.design, x)
-        return out
 
-    s_design = per_design(s_min, np.minimum)
-    cell_of = np.zeros(n, int)
-    w_of = np.zeros(n)
-    for r in np.argsort(-s_min):  # ends with the smallest per design
-        cell_of[rows.design[r]] = rows.cell[r]
-        w_of[rows.design[r]] = s_w[r]
+def _box_worst(plant: Rational, v: Variation, cg, cz, cp) -> dict[str, np.ndarray]:
+    """Worst frequency figures over the box for a batch of compensators (arrays of
+    shape (n,), NaN = null/infinite): ``sensitivity_peak``, ``complementary_peak``,
+    ``phase_margin_deg``, ``gain_margin_db``, ``delay_margin_s``, ``min_distance``,
+    the Ms member ``ms_gain_factor``, ``ms_delay_s``, ``ms_time_scale``, ``ms_rad_s``;
+    ``time_scale_bound`` (δ of the cell of the worst Ms) and ``time_scale_gap`` (how
+    far the bound of |1 + L| may lie below the exact worst of a member: ≤
+    TIME_SCALE_DIST_TOL unless the splits ran out).
+
+    Time scale: the coarse cells are evaluated with their widened sectors and at their
+    centres; a cell whose bound distance lies more than TIME_SCALE_DIST_TOL below the
+    smallest exact distance of its design is split in two, and so on (at most
+    MAX_SPLITS times). Kept cells' bounds are final."""
+    n = cg.shape[0]
+    box = _box(plant, v)
+    k = len(box.sig_centres)
+    design = np.repeat(np.arange(n), k)
+    sig = np.tile(box.sig_centres, n)
+    h = np.full(design.size, box.half_width)
+    s_best = np.full(n, np.inf)  # bound of the smallest distance (per design)
+    t_best = np.full(n, np.inf)
+    s_act = np.full(n, np.inf)  # smallest exact distance of a member (per design)
+    t_act = np.full(n, np.inf)
+    pm = np.full(n, np.inf)
+    gm = np.full(n, np.inf)
+    dm = np.full(n, np.inf)
+    w_of = np.full(n, np.nan)
+    sig_of = np.ones(n)
+    dl_of = np.zeros(n)
+    for depth in range(MAX_SPLITS + 1):
+        delta = h * box.b
+        r = _pass(plant, box, cg, cz, cp, design, sig, delta)
+        np.minimum.at(s_act, design, r["s_exact"])
+        np.minimum.at(t_act, design, r["t_exact"])
+        split = (r["s"] < s_act[design] - TIME_SCALE_DIST_TOL) | (
+            r["t"] < t_act[design] - TIME_SCALE_DIST_TOL)
+        if depth == MAX_SPLITS or not np.any(delta > 0):
+            split[:] = False
+        keep = ~split
+        for i in np.flatnonzero(keep):  # rows kept: their bounds are final
+            dsg = design[i]
+            if r["s"][i] < s_best[dsg]:
+                s_best[dsg] = r["s"][i]
+                w_of[dsg] = r["s_w"][i]
+                sig_of[dsg] = sig[i]
+                dl_of[dsg] = delta[i]
+        np.minimum.at(t_best, design[keep], r["t"][keep])
+        np.minimum.at(pm, design[keep], r["pm"][keep])
+        np.minimum.at(gm, design[keep], r["gm"][keep])
+        np.minimum.at(dm, design[keep], r["dm"][keep])
+        if not np.any(split):
+            break
+        # the split cells' margins: the children's bounds replace the parent's
+        design = np.repeat(design[split], 2)
+        hs = h[split] / 2.0
+        sig = np.stack([sig[split] * np.exp(-hs), sig[split] * np.exp(hs)], axis=1).ravel()
+        h = np.repeat(hs, 2)
     # the member at the nearest point of the worst sector
-    rr = cell_of * n + np.arange(n)
-    lv = rows.values(rr, w_of)
-    th1, sp1, rl1, rh1 = rows.sector(lv, w_of)
-    g_f, tau = _nearest_member(th1, sp1, rl1, rh1, np.abs(lv), np.angle(lv), w_of, box)
+    one = _Rows(plant, box, cg, cz, cp, np.arange(n), sig_of, dl_of)
+    rr = np.arange(n)
+    lv = one.values(rr, w_of)
+    th1, sp1, rl1, rh1 = one.sector(lv, w_of, rr)
+    g_f, tau = _nearest_member(th1, sp1, rl1, rh1, np.abs(lv), np.angle(lv), w_of, box, dl_of)
     with np.errstate(divide="ignore"):
         out = {
-            "sensitivity_peak": 1.0 / s_design,
-            "complementary_peak": 1.0 / per_design(t_min, np.minimum),
-            "phase_margin_deg": np.degrees(per_design(pm_min, np.minimum)),
-            "gain_margin_db": per_design(gm_min, np.minimum),
-            "delay_margin_s": per_design(dm_min, np.minimum),
-            "min_distance": s_design,
+            "sensitivity_peak": 1.0 / s_best,
+            "complementary_peak": 1.0 / t_best,
+            "phase_margin_deg": np.degrees(pm),
+            "gain_margin_db": gm,
+            "delay_margin_s": dm,
+            "min_distance": s_best,
             "ms_gain_factor": g_f,
             "ms_delay_s": tau,
-            "ms_time_scale": box.sig_centres[cell_of],
+            "ms_time_scale": sig_of,
             "ms_rad_s": w_of,
         }
     for key in ("phase_margin_deg", "gain_margin_db", "delay_margin_s"):
         out[key] = np.where(np.isfinite(out[key]), out[key], np.nan)
-    out["time_scale_bound"] = np.full(n, box.delta)
+    out["time_scale_bound"] = dl_of
+    out["time_scale_gap"] = np.maximum(s_act - s_best, 0.0)
     return out
 
 
-def _nearest_member(th, span, r_lo, r_hi, mag, arg, w, box: _Box):
+def _nearest_member(th, span, r_lo, r_hi, mag, arg, w, box: _Box, dl):
     """Gain factor and delay of the sector point nearest −1 (clipped to the box)."""
     inside = (span >= 2.0 * np.pi) | (np.mod(np.pi - th, 2.0 * np.pi) <= span)
     # radial: angle π; else the nearer edge
@@ -481,7 +536,7 @@ def _nearest_member(th, span, r_lo, r_hi, mag, arg, w, box: _Box):
     with np.errstate(divide="ignore", invalid="ignore"):
         g = np.clip(r / mag, box.g[0], box.g[1])
         # angle of the member = arg(L at τ_hi) + ω(τ_hi − τ)  → τ = τ_hi − (ang − arg)/ω
-        extra = np.mod(ang - arg + box.delta, 2.0 * np.pi) - box.delta
+        extra = np.mod(ang - arg + dl, 2.0 * np.pi) - dl
         tau = np.clip(box.d[1] - extra / np.where(w > 0, w, 1.0), box.d[0], box.d[1])
     return np.where(np.isfinite(g), g, 1.0), np.where(np.isfinite(tau), tau, box.d[1])
 
@@ -545,6 +600,9 @@ def family_worst_batch(plant: Rational, v: Variation, cg, cz, cp, *,
             x = bx[key]
             np.minimum(acc, np.where(np.isnan(x), np.inf, x), out=acc)
         stable &= bx["min_distance"] > MIN_DISTANCE
+        ts_bound, ts_gap = bx["time_scale_bound"], bx["time_scale_gap"]
+    else:
+        ts_bound = ts_gap = np.zeros(n)
     fin = lambda x: np.where(np.isfinite(x), x, np.nan)  # noqa: E731
     return {
         "sensitivity_peak": fin(ms),
@@ -557,6 +615,8 @@ def family_worst_batch(plant: Rational, v: Variation, cg, cz, cp, *,
         "worst_gain_factor": wg,
         "worst_delay_s": wd,
         "worst_time_scale": ws,
+        "time_scale_bound": ts_bound,
+        "time_scale_gap": ts_gap,
     }
 
 
@@ -616,7 +676,6 @@ def worst_of_design(plant: Rational, v: Variation, comp: Rational,
         else:
             x = float(fw[k][0])
             worst[k] = x if math.isfinite(x) else None
-    box = _box(plant, v)
     return {
         "worst": worst,
         "worst_member": {"gain_factor": wm.gain_factor, "delay_s": wm.delay_s,
@@ -624,6 +683,6 @@ def worst_of_design(plant: Rational, v: Variation, comp: Rational,
         "worst_basis": {
             "frequency": "every member of the box (sector geometry) and every listed member",
             "time": [m.label for m in tset],
-            "time_scale_bound": box.delta,
+            "time_scale_bound": float(fw["time_scale_bound"][0]),
         },
     }
