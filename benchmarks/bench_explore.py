@@ -8,9 +8,10 @@ timed instead.
 
 ``python benchmarks/bench_explore.py STUDY.toml --family [TRIALS]``: a study with a
 ``[variation]`` (e.g. studies/kiln_family.toml), batch 32, same trials and seed:
-the nominal plant alone, the gain × delay box, and the box with 0, 2, 4 and 8 listed
-members (operating points made up around the nominal plant); prints each run's wall
-time and its ratio to the nominal run measured in the same session.
+the nominal plant alone, the gain × delay box, the box with 2, 4 and 8 listed
+members (operating points made up around the nominal plant) and the box with a
+time-scale range 0.8…1.25; prints each run's wall time and its ratio to the nominal
+run measured in the same session.
 """
 
 from __future__ import annotations
@@ -61,6 +62,8 @@ def family(path: str, trials: int) -> None:
             ("gain x delay box", replace(study, variation=box))]
     runs += [(f"box + {k} listed members", replace(
         study, variation=replace(box, members=_members(study.plant, k)))) for k in (2, 4, 8)]
+    runs.append(("box + time scale 0.8-1.25", replace(
+        study, variation=replace(box, time_scale=(0.8, 1.25)))))
     base = None
     for name, st in runs:
         tmp = Path(tempfile.mkdtemp(prefix="bench-family-"))
