@@ -684,5 +684,6 @@ def worst_of_design(plant: Rational, v: Variation, comp: Rational,
             "frequency": "every member of the box (sector geometry) and every listed member",
             "time": [m.label for m in tset],
             "time_scale_bound": float(fw["time_scale_bound"][0]),
+            "time_scale_gap": float(fw["time_scale_gap"][0]),
         },
     }
