@@ -1,0 +1,731 @@
+"""A measured frequency response as the plant: reading a sweep CSV, and loop metrics
+computed on the data (docs/measured-data.md).
+
+The plant is known only at the measured frequencies. Between them it is interpolated
+in log frequency: ln|P| and the continuous phase ∠P (rad), each a PCHIP
+(piecewise cubic Hermite, shape preserving: Fritsch & Carlson, SIAM J. Numer. Anal.
+17(2), 1980; ``scipy.interpolate.PchipInterpolator``) in x = ln ω. A not-a-knot
+cubic spline through the same points (``scipy.interpolate.CubicSpline``) is a
+higher-order interpolant; the largest difference of the two over each measured
+interval is the *interpolation error estimate* of that interval, and every reported
+metric carries a bound derived from it (see :func:`loop_metrics_on_data`).
+
+The compensator C is analytic (an :class:`explorer.loop.Rational` or a batch of them):
+it is evaluated exactly, so L = C·P̂ is only as uncertain as P̂.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import os
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from scipy.interpolate import CubicSpline, PchipInterpolator
+
+from explorer.errors import DesignError, StudyFileError
+from explorer.loop import LoopBatch, Rational
+from explorer.study import read_text_file
+
+__all__ = [
+    "MeasuredResponse",
+    "read_sweep",
+    "parse_sweep",
+    "loop_metrics_on_data",
+    "loop_metrics_on_data_batch",
+    "MIN_POINTS",
+    "LOW_COHERENCE",
+    "SUBDIVISIONS",
+]
+
+#: Fewest measured points accepted.
+MIN_POINTS = 8
+#: Coherence below this is flagged (common practice: 0.6 is a usual floor for a
+#: usable sine-sweep point).
+LOW_COHERENCE = 0.6
+#: Evaluation points per measured interval (the grid on which events are bracketed).
+SUBDIVISIONS = 8
+#: The interpolation error estimate is this multiple of the PCHIP − spline difference
+#: (a safety factor: the difference approaches PCHIP's own error as the data get
+#: denser; 3 is what kept every metric of the test models inside its bound, the
+#: tightest being a mode with damping 0.15 sampled at 10 points per decade, where
+#: the error reached 2.1 times the plain difference — tests/test_measured.py).
+ERROR_FACTOR = 3.0
+#: Decades below the band covered by the low-frequency extrapolation (Nyquist count).
+_EXTRA_DECADES = 8.0
+_BISECT_ITERS = 60
+_GOLDEN_ITERS = 60
+
+_FREQ_COLS = {"frequency_rad_s": 1.0, "frequency_hz": 2.0 * math.pi}
+_MAG_COLS = ("magnitude", "magnitude_db")
+_KNOWN = set(_FREQ_COLS) | set(_MAG_COLS) | {"phase_deg", "coherence"}
+
+
+@dataclass(frozen=True, kw_only=True, eq=False)
+class MeasuredResponse:
+    """A validated sweep: ``omega_rad_s`` strictly increasing (m,), ``response`` the
+    complex P(jω) (m,), ``phase_rad`` the phase as measured (continuous, its branch
+    kept: ``response`` alone would lose it), ``coherence`` (m,) or None, ``source``
+    the file as named by the caller."""
+
+    omega_rad_s: np.ndarray
+    response: np.ndarray
+    phase_rad: np.ndarray
+    coherence: np.ndarray | None
+    source: str
+
+    @property
+    def band_rad_s(self) -> tuple[float, float]:
+        return float(self.omega_rad_s[0]), float(self.omega_rad_s[-1])
+
+    def low_coherence_rows(self) -> list[int]:
+        """Indices (0-based, in measured order) of points with coherence < LOW_COHERENCE."""
+        if self.coherence is None:
+            return []
+        return [int(i) for i in np.flatnonzero(self.coherence < LOW_COHERENCE)]
+
+    @classmethod
+    def from_model(
+        cls, model: Rational, omega_rad_s: np.ndarray, source: str = "model"
+    ) -> MeasuredResponse:
+        """Samples of a known model (continuous phase on loop.py's branch): for tests
+        and the example generator."""
+        w = np.asarray(omega_rad_s, dtype=float)
+        return cls(
+            omega_rad_s=w,
+            response=model.freqresp(w),
+            phase_rad=model.phase_rad(w),
+            coherence=None,
+            source=source,
+        )
+
+
+# --------------------------------------------------------------------------------------
+# reading and validation
+# --------------------------------------------------------------------------------------
+def read_sweep(path: str | os.PathLike[str], *, key: str = "plant.data",
+               shown: str | None = None) -> MeasuredResponse:
+    """Read and validate a sweep CSV (docs/measured-data.md, "The file").
+
+    ``key`` is the study key the errors are filed under; ``shown`` the name used in
+    messages (default: the path as given). Every refusal is one
+    :class:`StudyFileError` line naming the file and the row (the file's line number,
+    the header being the first non-comment line)."""
+    name = shown if shown is not None else os.fspath(path)
+    try:
+        text = read_text_file(path, "measured data file")
+    except StudyFileError as exc:
+        raise StudyFileError(key, exc.message) from None
+    return parse_sweep(text, source=name, key=key)
+
+
+def parse_sweep(text: str, *, source: str, key: str = "plant.data") -> MeasuredResponse:
+    """Validate the text of a sweep CSV; see :func:`read_sweep`."""
+
+    def fail(row: int | None, msg: str) -> StudyFileError:
+        where = f"{source} row {row}" if row is not None else source
+        return StudyFileError(key, f"{where}: {msg}")
+
+    lines = text.splitlines()
+    rows: list[tuple[int, list[str]]] = []
+    for lineno, line in enumerate(lines, start=1):
+        stripped = line.strip()
+        if not stripped or stripped.startswith("#"):
+            continue
+        try:
+            cells = next(csv.reader(io.StringIO(line)))
+        except (csv.Error, StopIteration):
+            raise fail(lineno, "not a CSV row") from None
+        rows.append((lineno, [c.strip() for c in cells]))
+    if not rows:
+        raise fail(None, "no header row (expected e.g. frequency_hz,magnitude_db,phase_deg)")
+    head_row, header = rows[0]
+    seen: set[str] = set()
+    for name in header:
+        if name == "":
+            raise fail(head_row, "an empty column name in the header")
+        if name not in _KNOWN:
+            raise fail(head_row, f"unknown column {name[:40]!r}; columns are frequency_rad_s or "
+                                 "frequency_hz, magnitude or magnitude_db, phase_deg, "
+                                 "optionally coherence")
+        if name in seen:
+            raise fail(head_row, f"column {name!r} appears twice")
+        seen.add(name)
+    freq = [c for c in header if c in _FREQ_COLS]
+    mags = [c for c in header if c in _MAG_COLS]
+    if len(freq) > 1:
+        raise fail(head_row, "both frequency_rad_s and frequency_hz: give one frequency column")
+    if len(mags) > 1:
+        raise fail(head_row, "both magnitude and magnitude_db: give one magnitude column")
+    if not freq:
+        raise fail(head_row, "missing column frequency_rad_s or frequency_hz")
+    if not mags:
+        raise fail(head_row, "missing column magnitude or magnitude_db")
+    if "phase_deg" not in seen:
+        raise fail(head_row, "missing column phase_deg")
+    col = {name: i for i, name in enumerate(header)}
+    body = rows[1:]
+    if len(body) < MIN_POINTS:
+        raise fail(head_row, f"{len(body)} data rows: at least {MIN_POINTS} are needed")
+
+    n = len(body)
+    values = {name: np.empty(n) for name in header}
+    for i, (lineno, cells) in enumerate(body):
+        if len(cells) != len(header):
+            raise fail(lineno, f"{len(cells)} cells, the header has {len(header)}")
+        for name, j in col.items():
+            cell = cells[j]
+            if cell == "":
+                raise fail(lineno, f"empty {name}")
+            try:
+                v = float(cell)
+            except ValueError:
+                raise fail(lineno, f"{name} {cell[:40]!r} is not a number") from None
+            if not math.isfinite(v):
+                raise fail(lineno, f"{name} is {cell[:10]}: every value must be finite")
+            values[name][i] = v
+    fname = freq[0]
+    f = values[fname]
+    rown = [r for r, _ in body]
+    for i in range(n):
+        if f[i] <= 0:
+            raise fail(rown[i], f"{fname} {f[i]:g} is not positive")
+        if i and f[i] <= f[i - 1]:
+            what = "repeats" if f[i] == f[i - 1] else "is below"
+            raise fail(rown[i], f"{fname} {f[i]:g} {what} the previous row's {f[i - 1]:g}: "
+                                "frequencies must increase strictly")
+    if mags[0] == "magnitude":
+        mag = values["magnitude"]
+        bad = np.flatnonzero(mag <= 0)
+        if bad.size:
+            raise fail(rown[bad[0]], f"magnitude {mag[bad[0]]:g} is not positive "
+                                     "(absolute magnitude; use magnitude_db for dB)")
+        lnmag = np.log(mag)
+    else:
+        lnmag = values["magnitude_db"] * (math.log(10.0) / 20.0)
+        if not np.all(np.isfinite(np.exp(lnmag))) or np.any(np.exp(lnmag) == 0):
+            k = int(np.flatnonzero(~np.isfinite(np.exp(lnmag)) | (np.exp(lnmag) == 0))[0])
+            raise fail(rown[k], "magnitude_db out of range (the magnitude over- or underflows)")
+    ph = values["phase_deg"]
+    jumps = np.flatnonzero(np.abs(np.diff(ph)) > 180.0)
+    if jumps.size:
+        k = int(jumps[0]) + 1
+        raise fail(rown[k], f"phase_deg jumps by {ph[k] - ph[k - 1]:+.1f} from the previous "
+                            "row (more than 180): unwrap the phase (or measure more densely)")
+    coh: np.ndarray | None = None
+    if "coherence" in values:
+        coh = values["coherence"]
+        bad = np.flatnonzero((coh < 0) | (coh > 1))
+        if bad.size:
+            raise fail(rown[bad[0]], f"coherence {coh[bad[0]]:g} is outside 0..1")
+    w = f * _FREQ_COLS[fname]
+    phase_rad = np.radians(ph)
+    return MeasuredResponse(
+        omega_rad_s=w,
+        response=np.exp(lnmag + 1j * phase_rad),
+        phase_rad=phase_rad,
+        coherence=coh,
+        source=source,
+    )
+
+
+# --------------------------------------------------------------------------------------
+# the interpolant and its error estimate
+# --------------------------------------------------------------------------------------
+class _Plant:
+    """P̂ in x = ln ω: PCHIP on the band, the low-frequency extrapolation below it
+    (docs/measured-data.md, "Below the band"), the error estimate per interval."""
+
+    def __init__(self, data: MeasuredResponse, plant_integrators: int) -> None:
+        self.x = np.log(data.omega_rad_s)
+        self.lnmag = np.log(np.abs(data.response))
+        self.phase = data.phase_rad
+        self.pm = PchipInterpolator(self.x, self.lnmag)
+        self.pp = PchipInterpolator(self.x, self.phase)
+        sm = CubicSpline(self.x, self.lnmag)
+        sp = CubicSpline(self.x, self.phase)
+        t = np.linspace(0.0, 1.0, 33)[1:-1]
+        xs = self.x[:-1, None] + t[None, :] * np.diff(self.x)[:, None]
+        # the estimate: the largest PCHIP − spline difference over the interval,
+        # times a safety factor
+        self.err_mag = ERROR_FACTOR * np.max(np.abs(self.pm(xs) - sm(xs)), axis=1)
+        self.err_phase = ERROR_FACTOR * np.max(np.abs(self.pp(xs) - sp(xs)), axis=1)
+        self.n_int = plant_integrators
+        self.x_lo, self.x_hi = float(self.x[0]), float(self.x[-1])
+        # the phase limit at ω → 0: −90° per integrator plus a multiple of 180°,
+        # the one nearest the phase at the bottom of the band
+        base = -0.5 * math.pi * plant_integrators
+        k = round((float(self.phase[0]) - base) / math.pi)
+        self.phase0 = base + k * math.pi
+
+    def eval(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """ln|P̂| and ∠P̂ (rad) at x (any shape), extrapolated below the band."""
+        xc = np.clip(x, self.x_lo, self.x_hi)
+        lm = self.pm(xc)
+        ph = self.pp(xc)
+        below = x < self.x_lo
+        if np.any(below):
+            d = x - self.x_lo
+            lm = np.where(below, self.lnmag[0] - self.n_int * d, lm)
+            ph = np.where(below, self.phase0 + (self.phase[0] - self.phase0) * np.exp(d), ph)
+        return lm, ph
+
+    def err(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The error estimate (Np, rad) at x: the largest over the interval holding x
+        and its two neighbours (PCHIP's slopes at the interval's ends come from them)."""
+        i = np.clip(np.searchsorted(self.x, x) - 1, 0, self.x.size - 2)
+        lo = np.maximum(i - 1, 0)
+        hi = np.minimum(i + 1, self.x.size - 2)
+        em = np.maximum(np.maximum(self.err_mag[lo], self.err_mag[i]), self.err_mag[hi])
+        ep = np.maximum(np.maximum(self.err_phase[lo], self.err_phase[i]), self.err_phase[hi])
+        return em, ep
+
+
+def _estimate_integrators(data: MeasuredResponse) -> int:
+    """Round(−slope) of ln|P| versus ln ω over the lowest three points, not below 0."""
+    x = np.log(data.omega_rad_s[:3])
+    y = np.log(np.abs(data.response[:3]))
+    slope = float(np.polyfit(x, y, 1)[0])
+    return max(0, int(round(-slope)))
+
+
+# --------------------------------------------------------------------------------------
+# vectorised scalar solvers on (row, bracket) arrays
+# --------------------------------------------------------------------------------------
+def _bisect(fun, rows: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Root of fun(rows, x) in [a, b] (a sign change assumed), by bisection to the
+    last bit (60 halvings of at most a few units of ln ω)."""
+    fa = fun(rows, a)
+    for _ in range(_BISECT_ITERS):
+        m = 0.5 * (a + b)
+        fm = fun(rows, m)
+        left = np.sign(fm) == np.sign(fa)
+        a = np.where(left, m, a)
+        fa = np.where(left, fm, fa)
+        b = np.where(left, b, m)
+    return 0.5 * (a + b)
+
+
+def _golden_min(
+    fun, rows: np.ndarray, a: np.ndarray, b: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Minimum of fun(rows, x) on [a, b] by golden-section search (vectorised)."""
+    g = (math.sqrt(5.0) - 1.0) / 2.0
+    c = b - g * (b - a)
+    d = a + g * (b - a)
+    fc, fd = fun(rows, c), fun(rows, d)
+    for _ in range(_GOLDEN_ITERS):
+        left = fc < fd
+        b = np.where(left, d, b)
+        a = np.where(left, a, c)
+        c_new = b - g * (b - a)
+        d_new = a + g * (b - a)
+        c, d = np.where(left, c_new, d), np.where(left, c, d_new)
+        fc, fd = np.where(left, fun(rows, c), fd), np.where(left, fc, fun(rows, d))
+    x = 0.5 * (a + b)
+    return x, fun(rows, x)
+
+
+# --------------------------------------------------------------------------------------
+# metrics on data
+# --------------------------------------------------------------------------------------
+_DB = 20.0 / math.log(10.0)
+
+
+def loop_metrics_on_data_batch(
+    data: MeasuredResponse,
+    comp_gain: np.ndarray,
+    comp_zeros: np.ndarray,
+    comp_poles: np.ndarray,
+    *,
+    unstable_poles: int = 0,
+    plant_integrators: int | None = None,
+) -> list[dict[str, Any]]:
+    """Frequency metrics of a batch of compensators (one structure) on one measured
+    plant: one JSON-ready dict per design (see :func:`loop_metrics_on_data`).
+
+    ``unstable_poles``: open-loop right-half-plane poles of the plant (the data
+    cannot show them). ``plant_integrators``: poles of the plant at s = 0; None =
+    estimated from the slope of the lowest three points (stated in ``assumptions``).
+    """
+    gain = np.asarray(comp_gain, dtype=float).ravel()
+    n = gain.shape[0]
+    comps = LoopBatch(
+        gain=gain,
+        zeros=np.asarray(comp_zeros, dtype=complex).reshape(n, -1),
+        poles=np.asarray(comp_poles, dtype=complex).reshape(n, -1),
+        delay_s=np.zeros(n),
+    )
+    if comps.relative_degree < 0:
+        raise DesignError("compensator is improper (more zeros than poles)")
+    n_int_est = plant_integrators is None
+    n_int = _estimate_integrators(data) if plant_integrators is None else int(plant_integrators)
+    plant = _Plant(data, n_int)
+    wlo, whi = data.band_rad_s
+
+    # ---- the evaluation grid: measured points subdivided, plus points clustered on
+    # lightly damped compensator roots; below the band, the extrapolation grid.
+    t = np.arange(SUBDIVISIONS) / SUBDIVISIONS
+    xb = (plant.x[:-1, None] + t[None, :] * np.diff(plant.x)[:, None]).ravel()
+    xb = np.append(xb, plant.x_hi)
+    croots = np.concatenate([comps.zeros, comps.poles], axis=1)
+    extra = np.zeros((n, 0))
+    if croots.shape[1]:
+        mag = np.abs(croots)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            zeta = np.where(mag > 0, np.abs(croots.real) / np.where(mag > 0, mag, 1.0), 1.0)
+        u = np.array([-8.0, -4.0, -2.0, -1.0, -0.4, 0.0, 0.4, 1.0, 2.0, 4.0, 8.0])
+        light = (zeta < 0.6) & (np.abs(croots.imag) > 0)
+        pts = np.log(np.where(light, np.abs(croots.imag), wlo))[:, :, None] + (
+            u[None, None, :] * np.where(light, zeta, 0.0)[:, :, None])
+        extra = np.clip(pts.reshape(n, -1), plant.x_lo, plant.x_hi)
+    xin = np.sort(np.concatenate([np.broadcast_to(xb, (n, xb.size)), extra], axis=1), axis=1)
+    n_below = int(_EXTRA_DECADES * 8)
+    xlow = plant.x_lo - np.log(10.0) * _EXTRA_DECADES * (1 - np.arange(n_below) / n_below)
+    rows_all = np.arange(n)
+
+    def loop(rows: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        w = np.exp(x)
+        lc, _ = comps.log_mag_at(rows, w)
+        pc = comps.phase_at(rows, w)
+        lp, pp = plant.eval(x)
+        return lc + lp, pc + pp
+
+    def on_grid(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        r = np.repeat(rows_all, x.shape[1])
+        a, b = loop(r, x.ravel())
+        return a.reshape(x.shape), b.reshape(x.shape)
+
+    lm_in, ph_in = on_grid(xin)
+    lm_lo, ph_lo = on_grid(np.broadcast_to(xlow, (n, n_below)))
+
+    def lnmag_f(rows: np.ndarray, x: np.ndarray) -> np.ndarray:
+        return loop(rows, x)[0]
+
+    # ---- gain crossovers (in band), and below the band (extrapolation)
+    def sign_changes(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        r, k = np.nonzero(np.sign(v[:, :-1]) * np.sign(v[:, 1:]) < 0)
+        return r, k
+
+    gr, gk = sign_changes(lm_in)
+    xg = _bisect(lnmag_f, gr, xin[gr, gk], xin[gr, gk + 1]) if gr.size else np.zeros(0)
+    lr, _ = sign_changes(np.concatenate([lm_lo, lm_in[:, :1]], axis=1))
+    below_cross = np.zeros(n, dtype=bool)
+    below_cross[lr] = True
+
+    # ---- phase crossovers: the continuous phase passes −180° mod 360°
+    def level_index(ph: np.ndarray) -> np.ndarray:
+        return np.floor((ph - math.pi) / (2.0 * math.pi))
+
+    x_all = np.concatenate([np.broadcast_to(xlow, (n, n_below)), xin], axis=1)
+    ph_all = np.concatenate([ph_lo, ph_in], axis=1)
+    kidx = level_index(ph_all)
+    dk = kidx[:, :-1] - kidx[:, 1:]  # > 0: phase falling through −180° (clockwise)
+    pr, pk = np.nonzero(dk != 0)
+    if pr.size:
+        level = math.pi + 2.0 * math.pi * np.maximum(kidx[pr, pk], kidx[pr, pk + 1])
+
+        def ph_f(rows: np.ndarray, x: np.ndarray, _lev=level) -> np.ndarray:
+            return loop(rows, x)[1] - _lev
+
+        xp = _bisect(ph_f, pr, x_all[pr, pk], x_all[pr, pk + 1])
+        lm_p = lnmag_f(pr, xp)
+    else:
+        xp = lm_p = np.zeros(0)
+    signed = dk[pr, pk] if pr.size else np.zeros(0)
+
+    # ---- the passage from −jε to +jε (an arc of m0·π clockwise at infinity for m0
+    # integrators, a point crossing for none) for the Nyquist count; the angle at −jε
+    # is −∠L(jε), and the turn is the one ≡ −2∠L(jε) (mod 2π) nearest m0·π
+    m0 = n_int + comps.n_origin_poles()
+    th_eps = ph_all[:, 0]
+    raw = -2.0 * th_eps
+    turn = raw + 2.0 * math.pi * np.round((m0 * math.pi - raw) / (2.0 * math.pi))
+    arc = _arc_count(th_eps + turn, th_eps)
+    # without an integrator the passage is the point L(0): it crosses the ray
+    # (−∞, −1) only if |L(0)| > 1
+    arc = np.where((m0 > 0) | (lm_lo[:, 0] > 0), arc, 0)
+    n_rhp_c = comps.n_rhp_poles()
+    p_rhp = unstable_poles + n_rhp_c
+
+    # ---- peaks of |S| and |T| on the band
+    def dist_s(rows: np.ndarray, x: np.ndarray) -> np.ndarray:
+        a, b = loop(rows, x)
+        return np.abs(1.0 + np.exp(a + 1j * b))
+
+    def dist_t(rows: np.ndarray, x: np.ndarray) -> np.ndarray:
+        a, b = loop(rows, x)
+        return np.abs(1.0 + np.exp(-a - 1j * b))
+
+    L_in = np.exp(lm_in + 1j * ph_in)
+    ms, ms_x = _peak(dist_s, np.abs(1 + L_in), xin)
+    mt, mt_x = _peak(dist_t, np.abs(1 + 1 / L_in), xin)
+
+    hf = comps.relative_degree
+    out: list[dict[str, Any]] = []
+    for i in range(n):
+        out.append(_assemble(
+            i, data, plant, comps, loop,
+            xg[gr == i], xp[pr == i], lm_p[pr == i], signed[pr == i],
+            bool(below_cross[i]), int(arc[i]), int(p_rhp[i]), int(n_rhp_c[i]), int(m0[i]),
+            (ms[i], ms_x[i]), (mt[i], mt_x[i]), lm_in[i], lm_lo[i], ph_lo[i],
+            n_int, n_int_est, unstable_poles,
+            hf,
+        ))
+    return out
+
+
+def _arc_count(start: np.ndarray, end: np.ndarray) -> np.ndarray:
+    """Signed (clockwise +1) crossings of angle π mod 2π by a path from ``start``
+    down to ``end`` (rad), counted with the same floor convention as the curve."""
+    k = lambda a: np.floor((a - math.pi) / (2.0 * math.pi))  # noqa: E731
+    return (k(start) - k(end)).astype(int)
+
+
+def _peak(dist, d: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """1/min of ``dist`` over the band per row: the grid's smallest three local
+    minima (and the grid minimum) refined by golden-section search in ln ω between
+    their neighbours; returns (peak, x at the peak)."""
+    n, m = d.shape
+    interior = np.zeros_like(d, dtype=bool)
+    interior[:, 1:-1] = (d[:, 1:-1] <= d[:, :-2]) & (d[:, 1:-1] <= d[:, 2:])
+    cand = np.where(interior, d, np.inf)
+    k = min(3, m - 2)
+    idx = np.argpartition(cand, k - 1, axis=1)[:, :k]
+    ci = np.repeat(np.arange(n), k)
+    ck = idx.ravel()
+    ok = np.isfinite(cand[ci, ck])
+    ci, ck = ci[ok], ck[ok]
+    kmin = np.argmin(d, axis=1)
+    best = d[np.arange(n), kmin].copy()
+    best_x = x[np.arange(n), kmin].copy()
+    if ci.size:
+        xr, fr = _golden_min(dist, ci, x[ci, ck - 1], x[ci, ck + 1])
+        for r, xv, fv in zip(ci, xr, fr, strict=True):
+            if fv < best[r]:
+                best[r], best_x[r] = fv, xv
+    with np.errstate(divide="ignore"):
+        return 1.0 / best, best_x
+
+
+def _assemble(
+    i: int, data: MeasuredResponse, plant: _Plant, comps: LoopBatch, loop,
+    xg: np.ndarray, xp: np.ndarray, lm_p: np.ndarray, signed: np.ndarray,
+    below_cross: bool, arc: int, p_rhp: int, n_rhp_c: int, m0: int,
+    ms_pk: tuple[float, float], mt_pk: tuple[float, float], lm_row: np.ndarray,
+    lm_low_row: np.ndarray, ph_low_row: np.ndarray,
+    n_int: int, n_int_est: bool, unstable_poles: int, rel_deg: int,
+) -> dict[str, Any]:
+    wlo, whi = data.band_rad_s
+    rows = np.full(1, i)
+    outside: list[str] = []
+    assumptions: list[str] = [
+        f"plant integrators: {n_int}" + (" (estimated from the slope of the lowest three "
+                                         "points)" if n_int_est else " (given)"),
+        f"open-loop right-half-plane poles: {unstable_poles} of the plant (given), "
+        f"{n_rhp_c} of the compensator",
+        "below the band the plant follows its low-frequency asymptote: |P| rises by "
+        f"{n_int} decade(s) per decade, and its phase approaches "
+        f"{math.degrees(plant.phase0):.0f} deg (the nearest limit of a rational plant "
+        "with those integrators) in proportion to the frequency",
+        "above the band |L| stays below its value at the top of the band, so there are "
+        "no crossings of the negative real axis beyond -1 there",
+        f"between measured points the plant is the PCHIP of ln|P| and phase in ln(omega) "
+        f"({SUBDIVISIONS} grid points per measured interval bracket the events)",
+    ]
+    l_top = math.exp(float(lm_row[-1]))
+    l_bot = math.exp(float(lm_row[0]))
+    # ---- gain crossovers
+    wc = np.exp(np.sort(xg))
+    known = True
+    if l_top >= 1.0:
+        known = False
+        outside.append(f"|L| = {l_top:.3g} >= 1 at the top of the band ({whi:.4g} rad/s): "
+                       "a crossover lies above the measured band; phase margin, crossover "
+                       "and stability are not established")
+    if below_cross:
+        known = False
+        outside.append(f"|L| = {l_bot:.3g} at the bottom of the band ({wlo:.4g} rad/s) and "
+                       "the low-frequency extrapolation crosses |L| = 1 below it: a "
+                       "crossover lies below the measured band")
+    res: dict[str, Any] = {
+        "crossovers_rad_s": [float(w) for w in wc],
+        "crossover_rad_s": None, "phase_margin_deg": None, "delay_margin_s": None,
+        "gain_margin_db": None, "phase_crossover_rad_s": None,
+        "sensitivity_peak": None, "complementary_peak": None, "closed_loop_stable": None,
+    }
+    err: dict[str, Any] = {}
+    if wc.size and known:
+        xs = np.log(wc)
+        r = np.full(wc.size, i)
+        _, ph = loop(r, xs)
+        pm = np.degrees(ph) + 180.0
+        pm = pm - 360.0 * np.ceil((pm - 180.0) / 360.0)
+        j = int(np.argmin(pm))
+        res["crossover_rad_s"] = float(wc[j])
+        res["phase_margin_deg"] = float(pm[j])
+        dms = np.where(pm <= 0, 0.0, np.radians(pm) / wc)
+        res["delay_margin_s"] = float(np.min(dms))
+        # error propagation at the chosen crossover
+        em, ep = (float(v[0]) for v in plant.err(xs[j:j + 1]))
+        h = 1e-6
+        a1, p1 = loop(rows, xs[j:j + 1] + h)
+        a0, p0 = loop(rows, xs[j:j + 1] - h)
+        smag = abs(float(a1[0] - a0[0])) / (2 * h)
+        sph = abs(float(p1[0] - p0[0])) / (2 * h)
+        dx = em / max(smag, 1e-12)
+        pm_err_rad = ep + sph * dx
+        err["crossover_rad_s"] = float(wc[j] * math.expm1(dx))
+        err["phase_margin_deg"] = math.degrees(pm_err_rad)
+        pmr = math.radians(float(pm[j]))
+        err["delay_margin_s"] = (pm_err_rad + abs(pmr) * dx) / float(wc[j]) if pmr > 0 else 0.0
+    elif not wc.size and known:
+        outside.append("no crossover in the band, and none above or below it under the "
+                       "assumptions: |L| < 1 everywhere" if l_bot < 1 else
+                       "no crossover in the band")
+    # ---- phase crossovers: gain margin from those in the band with |L| < 1
+    in_band = xp >= plant.x_lo
+    gm_cand = in_band & (lm_p < 0)
+    below_gm = (~in_band) & (lm_p < 0)
+    if np.any(gm_cand):
+        gms = -_DB * lm_p[gm_cand]
+        j = int(np.argmin(gms))
+        gm = float(gms[j])
+        xj = float(xp[gm_cand][j])
+        top_margin = -_DB * math.log(l_top) if l_top > 0 else math.inf
+        if np.any(below_gm) and float(np.min(-_DB * lm_p[below_gm])) < gm:
+            outside.append("a phase crossover with |L| < 1 below the band (in the "
+                           "extrapolation) would set a smaller gain margin: not established")
+        elif l_top < 1 and top_margin < gm:
+            outside.append(f"|L| = {l_top:.3g} at the top of the band: a phase crossover "
+                           f"above the band could leave only {top_margin:.3g} dB; the gain "
+                           "margin is not established")
+        else:
+            res["gain_margin_db"] = gm
+            res["phase_crossover_rad_s"] = math.exp(xj)
+            em, ep = (float(v[0]) for v in plant.err(np.array([xj])))
+            h = 1e-6
+            a1, p1 = loop(rows, np.array([xj + h]))
+            a0, p0 = loop(rows, np.array([xj - h]))
+            smag = abs(float(a1[0] - a0[0])) / (2 * h)
+            sph = abs(float(p1[0] - p0[0])) / (2 * h)
+            dx = ep / max(sph, 1e-12)
+            err["phase_crossover_rad_s"] = math.exp(xj) * math.expm1(dx)
+            err["gain_margin_db"] = _DB * (em + smag * dx)
+    elif l_top < 1:
+        top_margin = -_DB * math.log(l_top)
+        outside.append(f"no phase crossover with |L| < 1 in the band; above it the margin "
+                       f"is at least {top_margin:.3g} dB under the assumptions")
+    # ---- peaks: the refined in-band peak, then what lies outside the band
+    for key, (pk, xk), inv in (("sensitivity_peak", ms_pk, False),
+                               ("complementary_peak", mt_pk, True)):
+        if not np.isfinite(pk):
+            outside.append(f"{key}: the loop passes through -1 in the band")
+            continue
+        lmag_k = math.exp(float(loop(rows, np.array([xk]))[0][0]))
+        em, ep = (float(v[0]) for v in plant.err(np.array([xk])))
+        rel = em + ep
+        e_pk = pk * pk * (rel / lmag_k if inv else rel * lmag_k)
+        value, at = float(pk), math.exp(xk)
+        # above the band |L| <= l_top: |S| <= 1/(1 - l_top), |T| <= l_top/(1 - l_top)
+        above = (l_top / (1 - l_top) if inv else 1 / (1 - l_top)) if l_top < 1 else math.inf
+        if above > value:
+            outside.append(f"{key}: above the band it could reach {above:.4g}, more than "
+                           f"{value:.4g} in the band: not established")
+            continue
+        if m0 >= 1:
+            # ω → 0: |L| → ∞, so |S| → 0 and |T| → 1 (exact); between 0 and the band
+            # |L| >= l_bot (the extrapolation rises monotonically)
+            if l_bot <= 1:
+                outside.append(f"{key}: |L| <= 1 at the bottom of the band: not established")
+                continue
+            limit = 1.0 if inv else 0.0
+            bound = l_bot / (l_bot - 1) if inv else 1 / (l_bot - 1)
+            if limit > value:
+                value, at = limit, 0.0
+            slack = max(0.0, bound - value)
+            if slack > 0.01 * value:
+                outside.append(f"{key}: between 0 and the band it could reach {bound:.4g} "
+                               f"(|L| = {l_bot:.3g} at the bottom of the band): not "
+                               "established")
+                continue
+            e_pk = max(e_pk, slack)
+        else:
+            lo = np.exp(lm_low_row + 1j * ph_low_row)
+            vals = np.abs(lo) / np.abs(1 + lo) if inv else 1 / np.abs(1 + lo)
+            sup = float(np.max(vals))
+            if sup > value * (1 + 1e-2):
+                outside.append(f"{key}: the extrapolation below the band reaches {sup:.4g}, "
+                               f"more than {value:.4g} in the band: the peak lies below the "
+                               "measured band, not established")
+                continue
+            if sup > value:  # a flat extrapolation just above the band's value
+                e_pk = max(e_pk, sup - value)
+                value, at = sup, 0.0
+        res[key] = value
+        res[key + "_rad_s"] = at
+        err[key] = e_pk
+    # ---- Nyquist: Z = P + N
+    n_curve = int(np.sum(signed[lm_p > 0])) if signed.size else 0
+    n_enc = 2 * n_curve + arc
+    z = p_rhp + n_enc
+    assumptions.append(f"Nyquist count: P = {p_rhp} open-loop RHP poles, N = {n_enc} "
+                       f"clockwise encirclements of -1 ({m0} integrator(s) in the loop), "
+                       f"Z = {z}")
+    if known:
+        ms_val = res["sensitivity_peak"]
+        res["closed_loop_stable"] = bool(z == 0 and (ms_val is None or np.isfinite(ms_val)))
+        res["closed_loop_rhp_poles"] = int(z)
+    lc = [int(k) for k in data.low_coherence_rows()]
+    res["hf_gain"] = (abs(float(comps.gain[i])) if rel_deg == 0 else 0.0)
+    cz, cp = comps.zeros[i], comps.poles[i]
+    if np.sum(cp == 0) == 1 and np.sum(cz == 0) == 0:
+        zz = np.where(cz == 0, 1.0, -cz)
+        pp = np.where(cp == 0, 1.0, -cp)
+        res["integral_gain"] = float((comps.gain[i] * np.prod(zz) / np.prod(pp)).real)
+    else:
+        res["integral_gain"] = None
+    res["band_rad_s"] = [wlo, whi]
+    res["interpolation_error"] = err
+    res["low_coherence_points"] = [
+        {"row_index": k, "frequency_rad_s": float(data.omega_rad_s[k]),
+         "coherence": float(data.coherence[k])}  # type: ignore[index]
+        for k in lc
+    ]
+    res["outside_band"] = outside
+    res["assumptions"] = assumptions
+    return res
+
+
+def loop_metrics_on_data(
+    data: MeasuredResponse,
+    comp: Rational,
+    *,
+    unstable_poles: int = 0,
+    plant_integrators: int | None = None,
+) -> dict[str, Any]:
+    """Frequency METRICS of the loop C·P_measured (one design), JSON-ready.
+
+    Keys: ``crossover_rad_s``, ``crossovers_rad_s``, ``phase_margin_deg``,
+    ``gain_margin_db``, ``phase_crossover_rad_s``, ``delay_margin_s``,
+    ``sensitivity_peak`` (+ ``_rad_s``), ``complementary_peak`` (+ ``_rad_s``),
+    ``closed_loop_stable``, ``closed_loop_rhp_poles``, ``hf_gain``,
+    ``integral_gain``; extras ``band_rad_s``, ``interpolation_error`` (the bound on
+    each reported metric, same units), ``low_coherence_points``, ``outside_band``
+    (why a metric is null), ``assumptions``. A value that depends on the loop
+    outside the band is null, with the reason in ``outside_band``.
+    """
+    if comp.delay_s:
+        raise DesignError("a compensator with a delay is not supported on measured data")
+    return loop_metrics_on_data_batch(
+        data,
+        np.array([comp.gain]),
+        np.array([comp.zeros], dtype=complex).reshape(1, -1),
+        np.array([comp.poles], dtype=complex).reshape(1, -1),
+        unstable_poles=unstable_poles,
+        plant_integrators=plant_integrators,
+    )[0]
+
