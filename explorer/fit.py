@@ -243,6 +243,58 @@ def _to_rational(poles: np.ndarray, res: np.ndarray, d: float, delay_s: float,
     return model, int(np.sum(far))
 
 
+def _weighted_err(model: Rational, w: np.ndarray, f: np.ndarray, weight: np.ndarray) -> float:
+    return float(np.sqrt(np.mean((weight * np.abs(model.freqresp(w) - f)) ** 2)))
+
+
+def _refit_gain(model: Rational, w: np.ndarray, f: np.ndarray, weight: np.ndarray) -> Rational:
+    """The real gain that minimises the weighted error for the model's roots and delay."""
+    h = model.freqresp(w) / model.gain
+    ww = weight**2
+    g = float(np.sum(ww * (np.conj(h) * f).real) / np.sum(ww * np.abs(h) ** 2))
+    return Rational(gain=g, zeros=model.zeros, poles=model.poles, delay_s=model.delay_s)
+
+
+def _simplify(model: Rational, w: np.ndarray, f: np.ndarray, weight: np.ndarray,
+              w_lo: float, w_hi: float) -> tuple[Rational, list[str]]:
+    """Remove what the data cannot tell apart from something simpler: zeros above the
+    band (folded into the gain, largest first; a complex pair together) and real poles
+    far below the band (made integrators, smallest first). Each change is kept when
+    the weighted error stays within 1.5x the unsimplified fit's (or below 0.1 %)."""
+    limit = max(_ORDER_SLACK * _weighted_err(model, w, f, weight), _ORDER_FLOOR)
+    notes: list[str] = []
+    zeros = sorted(model.zeros, key=lambda z: -abs(z))
+    for z in zeros:
+        if abs(z) <= w_hi or z not in model.zeros or z.imag < 0:
+            continue
+        drop = [z, z.conjugate()] if z.imag > 0 else [z]
+        left = list(model.zeros)
+        for d in drop:
+            left.remove(d)
+        # a zero far above the band acts in it like a delay of Re z/|z|² (its phase
+        # −ω·Re z/|z|² to first order): moved into the delay when that is positive
+        shift = sum(d.real / abs(d) ** 2 for d in drop)
+        trials = [model.delay_s] + ([model.delay_s + shift] if model.delay_s + shift > 0 else [])
+        cands = [_refit_gain(Rational(gain=model.gain, zeros=tuple(left), poles=model.poles,
+                                      delay_s=t), w, f, weight) for t in trials]
+        trial = min(cands, key=lambda m: _weighted_err(m, w, f, weight))
+        if _weighted_err(trial, w, f, weight) <= limit:
+            model = trial
+            notes.append(f"zero(s) at {', '.join(f'{d:.4g}' for d in drop)} above the band "
+                         "folded into the gain")
+    for p in sorted(model.poles, key=abs):
+        if p.imag != 0 or p == 0 or abs(p) >= 0.1 * w_lo:
+            continue
+        poles = list(model.poles)
+        poles[poles.index(p)] = 0.0
+        trial = _refit_gain(Rational(gain=model.gain, zeros=model.zeros, poles=tuple(poles),
+                                     delay_s=model.delay_s), w, f, weight)
+        if _weighted_err(trial, w, f, weight) <= limit:
+            model = trial
+            notes.append(f"pole at {p.real:.4g} (far below the band) taken as an integrator")
+    return model, notes
+
+
 def _start_poles(n: int, w_lo: float, w_hi: float) -> np.ndarray:
     pairs = n // 2
     out: list[complex] = []
@@ -335,6 +387,7 @@ def fit_model(
     err, n, tau = next(x for x in per_order if x[0] <= limit)
     _, pr = fit_at(n, tau, 12)
     model, folded = _to_rational(pr[0], pr[1], pr[2], tau, w_hi, w_lo)
+    model, simplified = _simplify(model, w, f, weight, w_lo, w_hi)
     errs = _errors(model.freqresp(w), f)
     notes: list[str] = [
         f"vector fitting (relaxed), {n} poles, delay {tau:.6g} s chosen by a grid and a "
@@ -342,6 +395,7 @@ def fit_model(
         f"orders tried: {', '.join(str(x[1]) for x in per_order)}; weighted relative RMS "
         + ", ".join(f"{x[0]:.2e}" for x in per_order),
     ]
+    notes += simplified
     if folded:
         notes.append(f"{folded} zero(s) beyond {FAR_ZERO_FACTOR:g} x the top of the band "
                      "folded into the gain")

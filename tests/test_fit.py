@@ -8,13 +8,17 @@ Trans. Power Delivery 14(3), 1999; relaxed form, Gustavsen, IEEE TPWRD 21(3), 20
 
 from __future__ import annotations
 
+import importlib.util
+from pathlib import Path
+
 import numpy as np
 import pytest
 from scipy import signal
 
 from explorer.fit import POOR_FIT_REL_RMS, fit_model, vector_fit
 from explorer.loop import Rational
-from explorer.measured import MeasuredResponse
+from explorer.measured import MeasuredResponse, loop_metrics_on_data, read_sweep
+from explorer.metrics import frequency_metrics
 
 W = np.logspace(-2, 2, 81)  # 20 points per decade
 
@@ -116,3 +120,48 @@ def test_vector_fit_real_coefficients() -> None:
             j = int(np.argmin(np.abs(p - np.conj(pi))))
             assert p[j] == np.conj(pi) and r[j] == np.conj(r[i])
     assert _match(tuple(p), truth.poles) < 1e-8
+
+
+# ----------------------------------------------------------------------------------
+# the bundled, invented example (studies/data/make_gate_sweep.py)
+# ----------------------------------------------------------------------------------
+DATA_DIR = Path(__file__).resolve().parent.parent / "studies" / "data"
+
+
+def _generator():
+    spec = importlib.util.spec_from_file_location("make_gate_sweep",
+                                                  DATA_DIR / "make_gate_sweep.py")
+    assert spec and spec.loader
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+def test_bundled_example_is_what_its_script_writes() -> None:
+    gen = _generator()
+    assert (DATA_DIR / "hopper_gate_sweep.csv").read_text() == gen.make()
+
+
+def test_bundled_example_fit_and_metrics() -> None:
+    """The fit recovers the invented model within the data's noise (about 1 %), and
+    the metrics on the data agree with the true model's (explorer.metrics) within the
+    interpolation bound plus 1 % (the bound covers interpolation, not measurement
+    noise: docs/measured-data.md)."""
+    gen = _generator()
+    truth = gen.true_plant()
+    data = read_sweep(DATA_DIR / "hopper_gate_sweep.csv")
+    assert data.coherence is not None and len(data.low_coherence_rows()) > 0
+    fit = fit_model(data)
+    assert not fit.poor and fit.order == 4
+    assert _match(fit.model.poles, truth.poles) < 0.02
+    assert fit.model.zeros == ()
+    assert fit.model.gain == pytest.approx(truth.gain, rel=0.02)
+    assert fit.model.delay_s == pytest.approx(truth.delay_s, rel=0.1)
+    comp = Rational(gain=2.0, zeros=(-2.0,), poles=(-12.0,))
+    m = loop_metrics_on_data(data, comp)
+    ref = frequency_metrics(truth, comp)
+    assert m["closed_loop_stable"] is True and ref["closed_loop_stable"] is True
+    for key in ("crossover_rad_s", "phase_margin_deg", "gain_margin_db", "sensitivity_peak",
+                "complementary_peak"):
+        tol = m["interpolation_error"][key] + 0.01 * abs(ref[key])
+        assert abs(m[key] - ref[key]) <= tol, key
