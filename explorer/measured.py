@@ -662,9 +662,19 @@ def _assemble(
                                f"more than {value:.4g} in the band: the peak lies below the "
                                "measured band, not established")
                 continue
-            if sup > value:  # a flat extrapolation just above the band's value
-                e_pk = max(e_pk, sup - value)
-                value, at = sup, 0.0
+            # the extrapolation holds |P| at its value at ω_lo; a rational plant still
+            # changes by about half its residual slope there (its ln|P| is quadratic
+            # in ω near 0): that, plus the interpolation estimate, bounds the
+            # extrapolated |L|, and so what the stretch below the band can hold
+            slope = abs(float(plant.pm(plant.x_lo, 1)) + n_int)
+            e_lo = 0.5 * slope + float(plant.err(np.array([plant.x_lo]))[0][0])
+            l0 = math.exp(float(lm_low_row[0]))
+            e_ext = sup * sup * (e_lo / l0 if inv else e_lo * l0)
+            if sup + e_ext > value:
+                if sup > value:
+                    e_pk = max(e_pk, sup - value)
+                    value, at = sup, 0.0
+                e_pk = max(e_pk, sup + e_ext - value)
         res[key] = value
         res[key + "_rad_s"] = at
         err[key] = e_pk
