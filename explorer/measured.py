@@ -205,10 +205,12 @@ def parse_sweep(text: str, *, source: str, key: str = "plant.data") -> MeasuredR
                                      "(absolute magnitude; use magnitude_db for dB)")
         lnmag = np.log(mag)
     else:
-        lnmag = values["magnitude_db"] * (math.log(10.0) / 20.0)
-        if not np.all(np.isfinite(np.exp(lnmag))) or np.any(np.exp(lnmag) == 0):
-            k = int(np.flatnonzero(~np.isfinite(np.exp(lnmag)) | (np.exp(lnmag) == 0))[0])
-            raise fail(rown[k], "magnitude_db out of range (the magnitude over- or underflows)")
+        db = values["magnitude_db"]
+        out = np.flatnonzero(np.abs(db) > 3000.0)
+        if out.size:
+            raise fail(rown[out[0]], f"magnitude_db {db[out[0]]:g} is out of range "
+                                     "(beyond ±3000 dB)")
+        lnmag = db * (math.log(10.0) / 20.0)
     ph = values["phase_deg"]
     jumps = np.flatnonzero(np.abs(np.diff(ph)) > 180.0)
     if jumps.size:
@@ -504,9 +506,13 @@ def _peak(dist, d: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     best_x = x[np.arange(n), kmin].copy()
     if ci.size:
         xr, fr = _golden_min(dist, ci, x[ci, ck - 1], x[ci, ck + 1])
-        for r, xv, fv in zip(ci, xr, fr, strict=True):
-            if fv < best[r]:
-                best[r], best_x[r] = fv, xv
+        order = np.lexsort((fr, ci))  # per row, the smallest refined value first
+        cs, fs, xs = ci[order], fr[order], xr[order]
+        first = np.r_[True, cs[1:] != cs[:-1]]
+        cs, fs, xs = cs[first], fs[first], xs[first]
+        better = fs < best[cs]
+        best[cs[better]] = fs[better]
+        best_x[cs[better]] = xs[better]
     with np.errstate(divide="ignore"):
         return 1.0 / best, best_x
 

@@ -244,6 +244,8 @@ BAD = {
     "zero magnitude": ("frequency_hz,magnitude,phase_deg\n" + "\n".join(
         ["0.1,1,0", "0.2,0.5,-10", "0.3,0,-20"] + [f"{0.4 + i / 10:.1f},0.1,-30" for i in
                                                     range(7)]), 4, "not positive"),
+    "magnitude_db out of range": (HEAD + "\n" + "\n".join(_rows()[:8] + ["9,1e9,-180"]), 10,
+                                  "out of range"),
     "zero frequency": (HEAD + "\n" + "\n".join(["0,1,0"] + _rows()[1:]), 2, "not positive"),
     "negative frequency": (HEAD + "\n" + "\n".join(["-1,1,0"] + _rows()[1:]), 2,
                            "not positive"),
