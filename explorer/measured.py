@@ -118,7 +118,7 @@ def read_sweep(path: str | os.PathLike[str], *, key: str = "plant.data",
     try:
         text = read_text_file(path, "measured data file")
     except StudyFileError as exc:
-        raise StudyFileError(key, exc.message) from None
+        raise StudyFileError(key, exc.message.replace(os.fspath(path), name, 1)) from None
     return parse_sweep(text, source=name, key=key)
 
 
@@ -562,6 +562,8 @@ def _assemble(
         "crossover_rad_s": None, "phase_margin_deg": None, "delay_margin_s": None,
         "gain_margin_db": None, "phase_crossover_rad_s": None,
         "sensitivity_peak": None, "complementary_peak": None, "closed_loop_stable": None,
+        "sensitivity_peak_rad_s": None, "complementary_peak_rad_s": None,
+        "closed_loop_rhp_poles": None,
     }
     err: dict[str, Any] = {}
     if wc.size and known:

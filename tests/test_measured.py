@@ -275,8 +275,10 @@ def test_bad_csv_refused_in_one_line_with_row(name: str, tmp_path: Path) -> None
 
 def test_unreadable_file_refused(tmp_path: Path) -> None:
     with pytest.raises(StudyFileError) as info:
-        read_sweep(tmp_path / "absent.csv")
-    assert "absent.csv" in str(info.value) and "\n" not in str(info.value)
+        read_sweep(tmp_path / "absent.csv", shown="data/absent.csv")
+    msg = str(info.value)
+    assert msg.startswith("`plant.data` cannot read measured data file data/absent.csv")
+    assert "\n" not in msg and str(tmp_path) not in msg
     with pytest.raises(StudyFileError):
         read_sweep(tmp_path)  # a directory
     empty = tmp_path / "empty.csv"
