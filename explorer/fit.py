@@ -39,8 +39,9 @@ __all__ = ["FitResult", "fit_model", "vector_fit", "POOR_FIT_REL_RMS"]
 #: figures from it are withheld (common practice: a few per cent is the usual
 #: tolerance of a model used for step responses).
 POOR_FIT_REL_RMS = 0.05
-#: Zeros beyond this multiple of the top of the band are folded into the gain.
-FAR_ZERO_FACTOR = 1e3
+#: Zeros beyond this multiple of the top of the band are numerically infinite (dropped;
+#: the finite ones above the band are left to the simplification step).
+FAR_ZERO_FACTOR = 1e9
 #: A real pole below this multiple of the bottom of the band is an integrator (made
 #: exactly 0: VF reflects a pole at the origin to a tiny negative value).
 INTEGRATOR_TOL = 1e-6

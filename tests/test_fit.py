@@ -46,9 +46,9 @@ def test_recovers_known_model_from_clean_data(name: str) -> None:
     assert fit.order == len(truth.poles)
     assert _match(fit.model.poles, truth.poles) < 1e-6
     assert _match(fit.model.zeros, truth.zeros) < 1e-6
-    assert fit.model.delay_s == pytest.approx(truth.delay_s, abs=1e-4)
-    assert fit.model.gain == pytest.approx(truth.gain, rel=1e-4)
-    assert fit.rel_rms < 1e-4 and not fit.poor and fit.time_from_fit
+    assert fit.model.delay_s == pytest.approx(truth.delay_s, abs=1e-6)
+    assert fit.model.gain == pytest.approx(truth.gain, rel=1e-6)
+    assert fit.rel_rms < 1e-6 and not fit.poor and fit.time_from_fit
     assert fit.model.n_integrators == truth.n_integrators
 
 
