@@ -275,6 +275,36 @@ def _dist_t(rows: _Rows, lval, w, ri=None):
         return sector_distance(-(th + span), span, 1.0 / r_hi, 1.0 / r_lo)
 
 
+def _pm_fn(rows: _Rows, lval, w, ri=None):
+    """Phase margin (rad) of the box where some gain makes a crossover, else +inf: the
+    smallest of π + θ reduced into (−π, π] over the sector's angles θ — the reduction
+    of its lowest angle, or −π (an infimum) when the angles pass an odd multiple of π
+    (the reading's wrap point)."""
+    th, span, r_lo, r_hi = rows.sector(lval, w, ri)
+    return np.where((r_lo <= 1.0) & (r_hi >= 1.0), _pm_of_span(th, span), np.inf)
+
+
+def _pm_of_span(th, span):
+    """min over θ in [th, th + span] of π + θ reduced into (−π, π]."""
+    a = np.pi + th
+    x = np.pi + 2.0 * np.pi * np.ceil((a - np.pi) / (2.0 * np.pi))  # first odd k·π ≥ a
+    return np.where(x < a + span, -np.pi, _wrap(a))
+
+
+def _dm_fn(rows: _Rows, lval, w, ri=None):
+    """Delay margin (s) of the box where some gain makes a crossover, else +inf."""
+    return np.maximum(_pm_fn(rows, lval, w, ri), 0.0) / w
+
+
+def _gm_fn(rows: _Rows, lval, w, ri=None):
+    """Gain margin (dB) of the box where its angles cover −180° and r_hi < 1, else +inf."""
+    th, span, _, r_hi = rows.sector(lval, w, ri)
+    covers = (span >= 2.0 * np.pi) | (np.mod(np.pi - th, 2.0 * np.pi) <= span)
+    with np.errstate(divide="ignore"):
+        return np.where(covers & (r_hi < 1.0),
+                        -20.0 * np.log10(np.maximum(r_hi, 1e-300)), np.inf)
+
+
 def _refined_min(rows: _Rows, grid: np.ndarray, dist: np.ndarray, fn) -> tuple:
     """Per row: min over ω of ``fn`` refined from the grid's smallest local minima
     by golden-section search in ln ω; returns (min, ω at min)."""
@@ -393,16 +423,11 @@ def _pass(plant: Rational, box: _Box, cg, cz, cp, design, sig, delta) -> dict[st
     else:
         out["s_exact"], out["t_exact"] = s_min, t_min
 
-    # margins on the grid
+    # margins: grid values with their smallest local minima refined (golden section)
     th, span, r_lo, r_hi = rows.sector(lval, grid)
-    cross = (r_lo <= 1.0) & (r_hi >= 1.0)
-    pm = _wrap(np.pi + th)
-    pm_min = np.where(cross, pm, np.inf).min(axis=1)
-    dm_min = np.where(cross, np.maximum(pm, 0.0) / grid, np.inf).min(axis=1)
-    covers = (span >= 2.0 * np.pi) | (np.mod(np.pi - th, 2.0 * np.pi) <= span)
-    with np.errstate(divide="ignore"):
-        gm_min = np.where(covers & (r_hi < 1.0), -20.0 * np.log10(np.maximum(r_hi, 1e-300)),
-                          np.inf).min(axis=1)
+    pm_min = _refined_min(rows, grid, _pm_fn(rows, lval, grid), _pm_fn)[0]
+    dm_min = _refined_min(rows, grid, _dm_fn(rows, lval, grid), _dm_fn)[0]
+    gm_min = _refined_min(rows, grid, _gm_fn(rows, lval, grid), _gm_fn)[0]
 
     # edges of the crossover set (ln r_lo = 0, ln r_hi = 0) and of the phase set
     # (an edge angle at −180°), refined by bisection
@@ -422,8 +447,8 @@ def _pass(plant: Rational, box: _Box, cg, cz, cp, design, sig, delta) -> dict[st
         for which, src in ((0, r_lo), (1, r_hi)):
             ri, w = _edge_points(rows, grid, np.log(np.maximum(src, 1e-300)), lr(which))
             if ri.size:
-                t, _, _, _ = rows.sector(rows.values(ri, w), w, ri)
-                p = _wrap(np.pi + t)
+                t, sp, _, _ = rows.sector(rows.values(ri, w), w, ri)
+                p = _pm_of_span(t, sp)
                 np.minimum.at(pm_min, ri, p)
                 np.minimum.at(dm_min, ri, np.maximum(p, 0.0) / w)
         for which in (0, 1):
@@ -599,7 +624,13 @@ def family_worst_batch(plant: Rational, v: Variation, cg, cz, cp, *,
                          (dm, "delay_margin_s")):
             x = bx[key]
             np.minimum(acc, np.where(np.isnan(x), np.inf, x), out=acc)
-        stable &= bx["min_distance"] > MIN_DISTANCE
+        touches = ~(bx["min_distance"] > MIN_DISTANCE)
+        stable &= ~touches
+        # a member with −1 on its Nyquist curve has a crossover with phase margin 0 and a
+        # phase crossover with gain margin 0 dB: the worst margins are at most 0 there
+        np.minimum(pm, np.where(touches, 0.0, np.inf), out=pm)
+        np.minimum(gm, np.where(touches, 0.0, np.inf), out=gm)
+        np.minimum(dm, np.where(touches, 0.0, np.inf), out=dm)
         ts_bound, ts_gap = bx["time_scale_bound"], bx["time_scale_gap"]
     else:
         ts_bound = ts_gap = np.zeros(n)
