@@ -29,7 +29,7 @@ Conventions (docs/balance.md):
   keeps their natural −180° each (1/(s − 1) is stabilised by a positive gain).
 - **Phase target.** On the natural branch, right-half-plane zeros start at +180° each;
   the sign rule above leaves a multiple of 360° from them, so the target phase is
-  −180° + PM + 360°·⌊n_rhp_zeros/2⌋ (the same phase margin; interface.md reduces it).
+  −180° + PM + 360°·⌊n_rhp_zeros/2⌋ (the same phase margin; docs/interface.md reduces it).
 """
 
 from __future__ import annotations
@@ -140,7 +140,7 @@ class BalanceResult:
 
 @dataclass(frozen=True, kw_only=True)
 class HandDesign:
-    """One hand-style baseline, labelled for the design table (interface.md DESIGN).
+    """One hand-style baseline, labelled for the design table (docs/interface.md DESIGN).
 
     ``origin``: "phase-balanced" or "hand"; ``structure``: our short label of the
     compensator structure; ``compensator`` None when refused (``reason`` says why).

@@ -209,7 +209,7 @@ def _fmt_value(key: str, value: Any) -> str:
 
 
 def _table_rows() -> tuple[str, ...]:
-    """interface.md METRICS keys in their order, with the lower gain margin shown
+    """docs/interface.md METRICS keys in their order, with the lower gain margin shown
     right after the phase crossover."""
     from explorer.evaluate import METRIC_KEYS
 

@@ -3,7 +3,7 @@
 Each design is shown in factored form (integrators, cancelled plant poles,
 balancing poles, gain) with every metric; refused designs say which step failed and
 by how much. ``--json`` prints ``{"designs": [...], "refused": [...]}`` with
-``origin`` "phase-balanced" or "hand" (interface.md).
+``origin`` "phase-balanced" or "hand" (docs/interface.md).
 """
 
 from __future__ import annotations

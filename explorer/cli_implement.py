@@ -7,7 +7,7 @@ default), split into named stages written as sections with their difference
 equations and, where the structure is one, PI/PID parameters; the sampled loop —
 C(z), hold, plant with its delay, computation delay — is evaluated exactly beside
 the continuous design (docs/implement.md). ``--json`` prints one object
-(interface.md, "Implementation hand-off").
+(docs/interface.md, "Implementation hand-off").
 """
 
 from __future__ import annotations
@@ -260,7 +260,7 @@ def _run(args: argparse.Namespace) -> int:
 def implementation(study: Any, comp: Any, *, name: str, sample_time_s: float,
                    compute_delay_s: float, method: str, prewarp_rad_s: float | None,
                    caution: str) -> dict[str, Any]:
-    """The whole hand-off object (interface.md keys plus extras)."""
+    """The whole hand-off object (docs/interface.md keys plus extras)."""
     from explorer.errors import DesignError
     from explorer.evaluate import design_metrics, study_header
     from explorer.loop import root_to_json

@@ -90,7 +90,7 @@ def _is_number(v: Any) -> bool:
 
 
 def _design_problem(d: Any) -> str:
-    """What is wrong with one DESIGN record (interface.md), or "" when it is usable."""
+    """What is wrong with one DESIGN record (docs/interface.md), or "" when it is usable."""
     if not isinstance(d, dict):
         return "is not an object"
     for key in ("name", "compensator", "metrics"):

@@ -1,8 +1,8 @@
-"""One design → every METRICS key of interface.md, and the target check.
+"""One design → every METRICS key of docs/interface.md, and the target check.
 
 :func:`design_metrics` joins the frequency metrics (:mod:`explorer.metrics`) and the
 step metrics (:mod:`explorer.timeresp`); :func:`meets_targets` applies the reading
-of interface.md ("meets_targets is true when ...") and says why a design misses;
+of docs/interface.md ("meets_targets is true when ...") and says why a design misses;
 :func:`design_record` builds the JSON DESIGN object.
 """
 
@@ -29,7 +29,7 @@ __all__ = [
     "study_header",
 ]
 
-#: interface.md METRICS keys, in the order the tables show them.
+#: docs/interface.md METRICS keys, in the order the tables show them.
 METRIC_KEYS = (
     "crossover_rad_s",
     "crossovers_rad_s",
@@ -73,14 +73,14 @@ METRIC_UNITS: dict[str, tuple[str, str]] = {
     "pole_ratio": ("fastest pole / crossover", "-"),
 }
 
-#: interface.md: a numeric target crossover must be a gain crossover within this
+#: docs/interface.md: a numeric target crossover must be a gain crossover within this
 #: (the default of ``targets.crossover_tolerance``).
 CROSSOVER_REL_TOL = DEFAULT_CROSSOVER_TOLERANCE
-#: interface.md "Requirements are checked": overshoot met to within 0.2 percentage
+#: docs/interface.md "Requirements are checked": overshoot met to within 0.2 percentage
 #: points, settling time to within 1 %.
 OVERSHOOT_TOL_PCT = 0.2
 SETTLING_REL_TOL = 0.01
-#: interface.md: the phase-margin target is met down to target − 0.05°.
+#: docs/interface.md: the phase-margin target is met down to target − 0.05°.
 PHASE_MARGIN_TOL_DEG = 0.05
 
 _TIME_KEYS = ("overshoot_pct", "settling_time_s", "rise_time_s", "peak_control", "iae_load")
@@ -114,7 +114,7 @@ def meets_targets(
     loop_integrators: int,
     worst: dict[str, Any] | None = None,
 ) -> tuple[bool, list[str]]:
-    """interface.md's test, with the reasons a design misses (empty when it meets).
+    """docs/interface.md's test, with the reasons a design misses (empty when it meets).
 
     ``worst``: for a plant family, the worst values over the family (DESIGN
     ``"worst"``); then closed-loop stability and every limit are read from it, the
@@ -216,7 +216,7 @@ def design_record(
     reasons: list[str] | None = None,
     extra: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
-    """The interface.md DESIGN object (plus ``misses``: the reasons, and extras)."""
+    """The docs/interface.md DESIGN object (plus ``misses``: the reasons, and extras)."""
     rec: dict[str, Any] = {
         "name": name,
         "origin": origin,

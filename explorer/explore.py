@@ -55,7 +55,7 @@ def _plant_scale(plant: Rational) -> float:
 
 def search_limits(study: Study) -> dict[str, float]:
     """The bounds the search enforces: the study's ``[limits]`` and its step-response
-    requirements (``targets.overshoot``/``settling_time``, interface.md "Requirements
+    requirements (``targets.overshoot``/``settling_time``, docs/interface.md "Requirements
     are checked"), the tighter one where both bound the same key."""
     out = dict(study.limits)
     for key, req in study.targets.requirements.items():

@@ -9,7 +9,7 @@ poles as arrays of shape ``(n_designs, n_roots)``; every evaluation returns arra
 shape ``(n_designs, n_freqs)`` or ``(n_points,)`` for per-point evaluation at
 ``(row, omega)`` pairs.
 
-Phase convention (interface.md "Precise readings"): the continuous phase of L(jω) on
+Phase convention (docs/interface.md "Precise readings"): the continuous phase of L(jω) on
 the natural low-frequency branch is the sum of per-factor angles, each continuous
 for ω > 0, minus ω·τ. A left-half-plane or imaginary-axis root r contributes
 ``atan2(ω − Im r, −Re r)``; a right-half-plane root contributes

@@ -1,6 +1,6 @@
 """Loop metrics: refined crossovers, margins, sensitivity peaks and Nyquist stability.
 
-Every key follows interface.md (METRICS) exactly; docs/metrics.md gives each
+Every key follows docs/interface.md (METRICS) exactly; docs/metrics.md gives each
 definition and how it is computed. The engine works on a :class:`LoopBatch` — many
 loops with the same root counts — and never loops over designs in Python:
 
@@ -319,7 +319,7 @@ def _arc_crossings(start_angle: np.ndarray, end_angle: np.ndarray, turns: np.nda
 def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     """Frequency-domain metrics of every loop in the batch.
 
-    Returns arrays of shape ``(n,)`` (NaN where interface.md has null, i.e. "does not
+    Returns arrays of shape ``(n,)`` (NaN where docs/interface.md has null, i.e. "does not
     exist or infinite"), ``crossovers_rad_s`` as ``(n, k)`` padded with NaN,
     ``closed_loop_stable`` as bool and ``closed_loop_rhp_poles`` as int.
     """

@@ -1,6 +1,6 @@
 """Charts and the offline HTML report (the only module that imports altair).
 
-Data flow: DESIGN dicts (interface.md) -> tidy pandas frames (one function each)
+Data flow: DESIGN dicts (docs/interface.md) -> tidy pandas frames (one function each)
 -> small chart functions (frame in, chart out) -> the charts by name
 (:func:`chart_specs`), each embedded in the page on its own and sharing the click
 selection ``pick`` (the page copies the selection between the charts), and
@@ -1268,7 +1268,7 @@ def write_report(
 ) -> Path:
     """Write the self-contained HTML report; returns ``path``.
 
-    ``answer`` is the exploration's answer (interface.md: ``design``, ``order``,
+    ``answer`` is the exploration's answer (docs/interface.md: ``design``, ``order``,
     ``why``); without one the report recommends the lowest-order design meeting every
     target (lowest Ms first). ``summary`` lines (the exploration's summary, the answer
     first) are shown as they are. ``designs`` may be empty, and none may meet the

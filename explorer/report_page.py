@@ -34,7 +34,7 @@ __all__ = [
     "page",
 ]
 
-#: interface.md: overshoot and settling requirements are met within these.
+#: docs/interface.md: overshoot and settling requirements are met within these.
 OVERSHOOT_TOL_PCT = 0.2
 SETTLING_REL_TOL = 0.01
 

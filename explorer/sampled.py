@@ -790,7 +790,7 @@ def _golden_max(f: Any, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.nd
 def sampled_loop_metrics(sp: SampledPlant, comp: DiscreteCompensator,
                          cont_loop: Rational) -> dict[str, Any]:
     """The METRICS frequency readings of the sampled loop L = C(z)·H(z) for
-    0 < ω < π/T (interface.md readings), plus stability from the closed-loop matrix.
+    0 < ω < π/T (docs/interface.md readings), plus stability from the closed-loop matrix.
 
     ``cont_loop`` is the continuous loop C(s)·P(s) with the total delay; it anchors
     the phase branch at low frequency (where the sampled loop tends to it) and seeds

@@ -50,7 +50,7 @@ __all__ = [
 
 #: Settling-time constant c in ts ≈ c/σ, σ = ζωn, per tolerance band. These are the
 #: textbook constants (Ogata Ch. 5; Nise Ch. 4), not ln(1/band) = 3.91 / 3.00: the
-#: envelope estimate is itself only good to about −50 %…+15 % (references.md §1).
+#: envelope estimate is itself only good to about −50 %…+15 % (docs/references.md §1).
 SETTLING_CONSTANTS: dict[float, float] = {0.02: 4.0, 0.05: 3.0}
 
 #: Rules for turning a damping ratio into a phase-margin target.
@@ -207,7 +207,7 @@ def sigma_from_settling(settling_time_s: ArrayLike, band: float = 0.02) -> float
     Envelope estimate ts ≈ c/σ with the textbook constants c = 4 (2 % band) and
     c = 3 (5 % band) (Ogata 5e Ch. 5; Nise Ch. 4), not ln(1/0.02) = 3.91. An
     estimate: the exact settling time of the standard system differs by −50 % to
-    +15 % depending on ζ (references.md §1).
+    +15 % depending on ζ (docs/references.md §1).
     """
     c = _settling_constant(band)
     ts = np.asarray(settling_time_s, dtype=float)

@@ -4,7 +4,7 @@ A structure fixes the integrators, the cancelled plant poles and how many free r
 zeros / poles (and complex zero pairs) the compensator has. Free locations are
 parameters on a log scale as ratios of the crossover ωc; one real root — the
 *balancing* root — is not a parameter: it is solved from the phase condition
-∠L(jωc) = −180° + PM (design.md, "Targets by elimination"), and the gain from
+∠L(jωc) = −180° + PM (docs/explore.md, step 2, "Targets by elimination"), and the gain from
 |L(jωc)| = 1. A single real root r = −a contributes ±atan(ωc/a), so the 1-D phase
 equation has the closed-form solution a = ωc / tan(|Δ|) — the exact root that a
 bisection on atan would converge to (Åström & Murray, *Feedback Systems*, 2008,

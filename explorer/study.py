@@ -1,6 +1,6 @@
 """TOML study files → validated, frozen study objects.
 
-The schema is the guaranteed subset of interface.md plus loopscout's extensions
+The schema is the guaranteed subset of docs/interface.md plus loopscout's extensions
 (docs/study-file.md): polynomial ``num``/``den`` input, targets given as overshoot
 and settling time (converted by :func:`explorer.specs.targets_from_requirements`),
 and extra ``[search]`` keys. This is a boundary: every bad input raises
@@ -94,7 +94,7 @@ _TARGET_KEYS = (
 )
 _SEARCH_KEYS = ("max_order", "trials", "seed", "cancel_lightly_damped", "max_pole_ratio")
 
-#: interface.md "Crossover tolerance": default relative tolerance of a numeric target.
+#: docs/interface.md "Crossover tolerance": default relative tolerance of a numeric target.
 DEFAULT_CROSSOVER_TOLERANCE = 1e-4
 #: Default practical limit on compensator poles: none faster than this multiple of the
 #: crossover. A derivative filter or roll-off far above crossover buys almost no phase
@@ -159,13 +159,13 @@ class Targets:
     #: Required low-frequency loop gain lim s^m·L(s) (m = loop integrators): Kp, Kv or
     #: Ka; used by the lag hand design. None when not required.
     error_constant: float | None = None
-    #: interface.md: a numeric target crossover is met when a gain crossover lies within
+    #: docs/interface.md: a numeric target crossover is met when a gain crossover lies within
     #: this relative distance of it.
     crossover_tolerance: float = DEFAULT_CROSSOVER_TOLERANCE
     #: The step-response requirements the targets were derived from (None when the
     #: targets were given directly): overshoot in percent, settling time in s within
     #: ``settling_band`` (checked against the 2 % settling time, which is never shorter
-    #: than the 5 % one). interface.md: designs must meet them, not only the targets.
+    #: than the 5 % one). docs/interface.md: designs must meet them, not only the targets.
     overshoot_pct: float | None = None
     settling_time_s: float | None = None
     settling_band: float = 0.02

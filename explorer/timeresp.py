@@ -1,4 +1,4 @@
-"""Closed-loop step responses with a plant delay, and the step metrics of interface.md.
+"""Closed-loop step responses with a plant delay, and the step metrics of docs/interface.md.
 
 The loop (plant delay in the forward path, load at the plant input)::
 
@@ -40,7 +40,7 @@ Numerical method (docs/time-response.md has the derivations):
   peak, and the remaining load-error integral is below 1e-6 of its value.
 
 Step-response quantities are the standard ones of Ogata, *Modern Control
-Engineering*, 5th ed. (2010), §5-3, with the precise readings of interface.md.
+Engineering*, 5th ed. (2010), §5-3, with the precise readings of docs/interface.md.
 """
 
 from __future__ import annotations
@@ -1365,7 +1365,7 @@ def step_metrics(
     band: float = 0.02,
     dt_s: float | None = None,
 ) -> dict[str, float | None]:
-    """Step metrics of the loop L = C·P·e^{-sτ} (interface.md definitions).
+    """Step metrics of the loop L = C·P·e^{-sτ} (docs/interface.md definitions).
 
     Keys: ``overshoot_pct`` (percent of the final value, clipped at 0),
     ``settling_time_s`` (last time outside ±``band`` of the final value),

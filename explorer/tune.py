@@ -653,7 +653,10 @@ class ProgressLine:
     structure's last "n/n trials" and messages without a count — one per line,
     so a log stays readable. ``close()`` ends an open terminal line."""
 
-    def __init__(self, stream: Any = sys.stderr) -> None:
+    def __init__(self, stream: Any = None) -> None:
+        # the stream of this call, not the one of the first import (a default argument
+        # would keep a stderr that a caller such as a test harness has since closed)
+        stream = sys.stderr if stream is None else stream
         self.stream = stream
         isatty = getattr(stream, "isatty", None)
         self.tty = bool(isatty()) if callable(isatty) else False

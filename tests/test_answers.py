@@ -96,7 +96,7 @@ def test_every_design_claiming_targets_meets_the_requirements(tmp_path: Path) ->
 
 def test_overshoot_requirement_is_a_claim_condition() -> None:
     """meets_targets fails a design whose step overshoots the requirement even when the
-    derived loop targets hold (interface.md, 'Requirements are checked')."""
+    derived loop targets hold (docs/interface.md, 'Requirements are checked')."""
     from explorer.evaluate import meets_targets
 
     study = parse_study({

@@ -1,4 +1,4 @@
-"""The command line: interface.md JSON, readable tables, one-line errors with exit 2."""
+"""The command line: docs/interface.md JSON, readable tables, one-line errors with exit 2."""
 
 from __future__ import annotations
 
@@ -76,7 +76,7 @@ def test_check_table_shows_units_and_caution(capsys: pytest.CaptureFixture[str])
 
 
 def test_integral_gain_sign(capsys: pytest.CaptureFixture[str], tmp_path: Path) -> None:
-    """integral_gain = lim s·C(s) = 0.85·0.02 for C = 0.85(s+0.02)/s (interface.md)."""
+    """integral_gain = lim s·C(s) = 0.85·0.02 for C = 0.85(s+0.02)/s (docs/interface.md)."""
     f = tmp_path / "s.toml"
     f.write_text(
         "[plant]\ngain = 1.0\npoles = [-1.0]\n[targets]\nintegrators = 1\n"
@@ -146,7 +146,7 @@ def test_help_has_an_example(capsys: pytest.CaptureFixture[str]) -> None:
 
 
 def test_python_dash_m_and_console_script_agree(tmp_path: Path) -> None:
-    """`python -m explorer` behaves like `loopscout` (interface.md names)."""
+    """`python -m explorer` behaves like `loopscout` (docs/interface.md names)."""
     study = str(ROOT / "studies" / "dome_drive.toml")
     res = subprocess.run(
         [sys.executable, "-m", "explorer", "check", study, "--json"],

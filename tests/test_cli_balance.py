@@ -1,4 +1,4 @@
-"""`loopscout balance`: interface.md JSON with origin "phase-balanced"/"hand", the
+"""`loopscout balance`: docs/interface.md JSON with origin "phase-balanced"/"hand", the
 designs re-checked by the metric engine, refusals with reasons, one-line errors."""
 
 from __future__ import annotations

@@ -43,6 +43,7 @@ def _recheck(study, designs) -> int:
     return n
 
 
+@pytest.mark.slow
 def test_meets_targets_rechecked_and_files(tmp_path: Path) -> None:
     study = parse_study(STUDY)
     res = explore(study, tmp_path, trials=24, seed=4, batch=12, progress=False)
@@ -56,6 +57,7 @@ def test_meets_targets_rechecked_and_files(tmp_path: Path) -> None:
     assert len(res.frame) == len(res.designs)
 
 
+@pytest.mark.slow
 def test_same_seed_same_designs(tmp_path: Path) -> None:
     study = parse_study(STUDY)
     a = explore(study, tmp_path / "a", trials=20, seed=11, batch=8, progress=False)
@@ -63,12 +65,13 @@ def test_same_seed_same_designs(tmp_path: Path) -> None:
     assert [d["compensator"] for d in a.designs] == [d["compensator"] for d in b.designs]
 
 
+@pytest.mark.slow
 def test_pi_matches_simc_on_fopdt(tmp_path: Path) -> None:
     """Plant e^{-s}/(s+1) (k = 1, τ1 = θ = 1). SIMC PI with τc = θ — Skogestad,
     "Simple analytic rules for model reduction and PID controller tuning", J. Process
     Control 13 (2003) 291–309: Kc = τ1/(k(τc+θ)) = 0.5, τI = min(τ1, 4(τc+θ)) = 1, so
     ki = 0.5, ωc = 0.5, PM 61.4°, Ms 1.59 (published table [from memory]; recomputed
-    1.5905 in references.md §3).
+    1.5905 in docs/references.md §3).
 
     (a) At SIMC's crossover and PM, the eliminated PI is SIMC's PI (gain and zero).
     (b) The published setting: crossover searched in [0.2, 1], no phase-margin target
@@ -101,6 +104,7 @@ def test_pi_matches_simc_on_fopdt(tmp_path: Path) -> None:
     assert best["metrics"]["sensitivity_peak"] <= 1.6
 
 
+@pytest.mark.slow
 def test_cli_json_and_bad_input(tmp_path: Path) -> None:
     study = tmp_path / "s.toml"
     study.write_text(
@@ -185,6 +189,7 @@ def test_hand_solvable_case_optimized_ms_no_higher_and_hand_refused_case_solved(
     assert _recheck(study, res.designs) >= 1
 
 
+@pytest.mark.slow
 def test_hand_design_above_max_order_is_polished_in_its_own_structure(tmp_path: Path) -> None:
     """Annealing-furnace zone with three thermal lags (our scenario): the phase-balanced
     design needs order 4, above search.max_order 2. Explore still refines it, in a

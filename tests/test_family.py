@@ -104,6 +104,7 @@ _plants = st.builds(
        glo=st.floats(0.3, 1.0), ghi=st.floats(1.0, 2.5),
        dlo=st.one_of(st.just(0.0), st.floats(0.01, 1.0)),
        ddel=st.one_of(st.just(0.0), st.floats(0.01, 2.0)))  # the study file's delay domain
+@pytest.mark.slow
 def test_box_worst_is_never_better_than_a_dense_grid_and_close_to_it(
         plant, kc, zi, glo, ghi, dlo, ddel):
     """Random families: the reported worst |S| and |T| over the gain × delay box are
@@ -124,6 +125,7 @@ def test_box_worst_is_never_better_than_a_dense_grid_and_close_to_it(
         assert got_mt <= mt * 1.02 + 0.02
 
 
+@pytest.mark.slow
 def test_the_worst_can_sit_inside_the_box_not_at_a_corner():
     """A lightly damped mode under integral action: the worst |S| over the gain × delay
     box sits at an interior delay, well above every corner's Ms (exact engine), and
@@ -143,6 +145,7 @@ def test_the_worst_can_sit_inside_the_box_not_at_a_corner():
     assert out["worst_member"][0] == -1 and 0.0 < out["worst_delay_s"][0] < 0.96
 
 
+@pytest.mark.slow
 def test_time_scale_bound_is_never_better_than_a_dense_grid():
     """Time scale: the adaptive cell bound is ≥ the brute-force worst over a dense σ
     grid, and its distance |1 + L| lies within the stated tolerance (plus the grid's

@@ -309,6 +309,7 @@ def test_default_ms_when_no_limit(kiln):
     assert any(f"Ms = {DEFAULT_MS:g}" in s for s in _texts(_spec(chart_specs(free, ds)["nichols"])))
 
 
+@pytest.mark.slow
 def test_dashboard_shares_one_selection(kiln):
     study, ds = kiln
     import warnings

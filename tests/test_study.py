@@ -8,7 +8,7 @@ What is checked against what:
   closed forms ζ = −ln Mp/√(π² + ln² Mp), ωc/ωn = √(√(1+4ζ⁴) − 2ζ²), σ = 4/ts
   (Ogata, *Modern Control Engineering* 5e, Ch. 5/7; Nise, *Control Systems
   Engineering*, Ch. 4/10; chapter numbers from memory), with the recomputed table of
-  references.md §1 (10 % and 20 % rows);
+  docs/references.md §1 (10 % and 20 % rows);
 - every bad input: a :class:`StudyFileError` whose text is one line that starts with
   the dotted key;
 - the example studies in ``studies/``: they load, and every given compensator closes
@@ -269,7 +269,7 @@ def test_overshoot_and_settling_time_targets():
     assert t.crossover_rad_s == conv.crossover_rad_s
     assert t.phase_margin_deg == conv.phase_margin_deg
     assert t.derived_from == conv.explanation and len(t.derived_from) >= 3
-    # closed forms, and the recomputed 10 % row of references.md §1
+    # closed forms, and the recomputed 10 % row of docs/references.md §1
     zeta = _zeta_closed_form(10.0)
     assert zeta == pytest.approx(0.5912, abs=6e-5)
     pm = math.degrees(math.atan(2 * zeta / _ratio_closed_form(zeta)))
@@ -288,7 +288,7 @@ def test_five_percent_band_and_mcircle_rule():
     mr = 1 / (2 * zeta * math.sqrt(1 - zeta**2))  # Ogata Ch. 7 (from memory)
     pm = math.degrees(2 * math.asin(1 / (2 * mr)))  # S&P 2e §2.4 (from memory)
     assert t.phase_margin_deg == pytest.approx(pm, rel=1e-12)
-    assert t.phase_margin_deg == pytest.approx(47.88, abs=6e-3)  # references.md §1
+    assert t.phase_margin_deg == pytest.approx(47.88, abs=6e-3)  # docs/references.md §1
     sigma = 3.0 / 3.0  # ts ≈ 3/σ for the 5 % band
     assert t.crossover_rad_s == pytest.approx(sigma / zeta * _ratio_closed_form(zeta), rel=1e-12)
     assert t.integrators == 2
@@ -318,7 +318,7 @@ def test_crossover_range_and_absent():
 
 
 # -- limits and search ---------------------------------------------------------------------
-# interface.md: the METRICS keys a [limits] table may name
+# docs/interface.md: the METRICS keys a [limits] table may name
 INTERFACE_LIMITS = {
     "sensitivity_peak", "gain_margin_db", "phase_margin_deg", "delay_margin_s",
     "complementary_peak", "hf_gain", "overshoot_pct", "settling_time_s",
@@ -327,7 +327,7 @@ INTERFACE_LIMITS = {
 
 def test_limit_keys_cover_the_interface_and_bound_kinds():
     assert INTERFACE_LIMITS <= set(LIMIT_KEYS)
-    # interface.md: margins are lower bounds; peaks, gains, overshoot and times upper
+    # docs/interface.md: margins are lower bounds; peaks, gains, overshoot and times upper
     for key, kind in LIMIT_KEYS.items():
         assert kind == ("lower" if "margin" in key else "upper"), key
 
@@ -776,14 +776,14 @@ def _poly(gain: float, roots: tuple[complex, ...]) -> np.ndarray:
 
 def test_closed_loop_check_itself():
     # SIMC tuning, τc = θ on k·e^(−θs)/(τs+1) with τI = τ gives L = e^(−s)/(2s): stable,
-    # GM = π (Skogestad 2003, J. Process Control 13; references.md §3, recomputed).
+    # GM = π (Skogestad 2003, J. Process Control 13; docs/references.md §3, recomputed).
     # Gains of π/2 (at the limit) ± a little: stable below, unstable above.
     assert _closed_loop_rhp_count(np.array([0.5]), np.array([1.0, 0.0]), 1.0) == 0
     assert _closed_loop_rhp_count(np.array([0.99 * math.pi / 2]), np.array([1.0, 0.0]), 1.0) == 0
     assert _closed_loop_rhp_count(np.array([1.01 * math.pi / 2]), np.array([1.0, 0.0]), 1.0) == 2
     # 4/((s − 1)(s + 5)) with a small delay: 1 + L has a right-half-plane zero
     assert _closed_loop_rhp_count(np.array([4.0]), np.poly([1.0, -5.0]), 0.05) == 1
-    # A&M-style 3/(s+1)³: GM 8/3 (references.md §5 F): gain 8 is the limit
+    # A&M-style 3/(s+1)³: GM 8/3 (docs/references.md §5 F): gain 8 is the limit
     assert _closed_loop_rhp_count(np.array([7.9]), np.poly([-1, -1, -1]), 0.0) == 0
     assert _closed_loop_rhp_count(np.array([8.1]), np.poly([-1, -1, -1]), 0.0) == 2
 

@@ -16,7 +16,7 @@ Sources named beside each check:
   previous interval's dense output as the delayed input; realisations from
   scipy.signal.tf2ss (companion form, unlike the module's cascade).
 - "Ogata 2010, Example 7-26": the lead design 41.7(s+4.41)/(s+18.4) on 4/(s(s+2));
-  closed-loop step values recomputed in references.md §5 A (overshoot 21.7 %,
+  closed-loop step values recomputed in docs/references.md §5 A (overshoot 21.7 %,
   ts(2 %) = 0.62 s).
 - "Skogestad 2003": SIMC PI rule, S. Skogestad, "Simple analytic rules for model
   reduction and PID controller tuning", J. Process Control 13:291–309 (2003):
@@ -335,7 +335,7 @@ def test_delay_free_metrics_match_scipy(name):
 
 
 def test_lead_design_recomputed_values():
-    # Ogata 2010, Example 7-26 design; references.md §5 A (recomputed): 21.7 %, 0.62 s
+    # Ogata 2010, Example 7-26 design; docs/references.md §5 A (recomputed): 21.7 %, 0.62 s
     plant, comp = FREE_LOOPS["lead_on_servo"]
     m = step_metrics(plant, comp)
     assert m["overshoot_pct"] == pytest.approx(21.7, abs=0.05)
@@ -395,7 +395,7 @@ def test_standard_second_order_loop(zeta):
 
 
 def test_rise_time_recomputed_table():
-    # references.md §1 (recomputed, Ogata/Nise/FPE Ch. 3–5): ωn·tr(10–90 %) = 1.638 at ζ = 0.5
+    # docs/references.md §1 (recomputed, Ogata/Nise/FPE Ch. 3–5): ωn·tr(10–90 %) = 1.638 at ζ = 0.5
     m = step_metrics(Rational(gain=1.0, poles=(0.0, -1.0)), Rational(gain=1.0))
     assert m["rise_time_s"] == pytest.approx(1.638, abs=5e-4)
 

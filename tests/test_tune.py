@@ -87,6 +87,7 @@ def test_sigkill_then_resume_exact_budget(tmp_path: Path) -> None:
         assert row == {"finished": budget, "unique": budget, "all": budget, "running": 0}
 
 
+@pytest.mark.slow
 def test_rerun_adds_only_missing_trials(tmp_path: Path) -> None:
     from explorer.explore import explore
 
