@@ -11,7 +11,9 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from explorer.loop import Rational
+import numpy as np
+
+from explorer.loop import Rational, hidden_unstable_mask
 from explorer.metrics import frequency_metrics
 from explorer.noise import noise_figures, pole_ratio
 from explorer.study import DEFAULT_CROSSOVER_TOLERANCE, LIMIT_KEYS, Study, Targets
@@ -93,6 +95,11 @@ def design_metrics(plant: Rational, comp: Rational) -> dict[str, Any]:
     from explorer.timeresp import step_metrics
 
     out = frequency_metrics(plant, comp)
+    # a right-half-plane (or origin) cancellation: L hides a mode the loop keeps
+    out["hidden_unstable_mode"] = bool(hidden_unstable_mask(
+        plant, np.array([comp.zeros], complex), np.array([comp.poles], complex))[0])
+    if out["hidden_unstable_mode"]:
+        out["closed_loop_stable"] = False
     wc = out.get("crossover_rad_s")
     out["noise_gain"], out["noise_gain_ratio"] = noise_figures(comp, wc)
     out["pole_ratio"] = pole_ratio(comp, wc)
@@ -127,7 +134,10 @@ def meets_targets(
     why: list[str] = []
     lim_src = metrics if worst is None else worst
     tag = "" if worst is None else " (worst over the plant family)"
-    if not metrics.get("closed_loop_stable"):
+    if metrics.get("hidden_unstable_mode"):
+        why.append("closed loop internally unstable: a compensator root cancels a plant "
+                   "root in the right half plane or at s = 0 (a hidden unstable mode)")
+    elif not metrics.get("closed_loop_stable"):
         why.append("closed loop unstable")
     elif worst is not None and not worst.get("closed_loop_stable"):
         why.append("closed loop unstable for some member of the plant family")

@@ -24,7 +24,14 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["Rational", "LoopBatch", "roots_from_coefficients", "feedback_sign", "ROOT_TOL"]
+__all__ = [
+    "Rational",
+    "LoopBatch",
+    "roots_from_coefficients",
+    "feedback_sign",
+    "hidden_unstable_mask",
+    "ROOT_TOL",
+]
 
 #: Two roots closer than this (relative to their size) count as equal; a root whose
 #: real part is below this (relative to its modulus) counts as on the imaginary axis.
@@ -182,6 +189,34 @@ def feedback_sign(plant: Rational) -> float:
     lead = plant.gain * float(np.prod(-z).real) if z.size else plant.gain
     # real roots give a real product; conjugate pairs a positive one
     return 1.0 if lead > 0 else -1.0
+
+
+def hidden_unstable_mask(plant: Rational, zeros: np.ndarray, poles: np.ndarray) -> np.ndarray:
+    """Per compensator row (zeros (n, nz), poles (n, np)): True where a compensator
+    pole cancels a plant zero, or a compensator zero a plant pole, in the closed right
+    half plane (Re r ≥ 0, the origin and the imaginary axis included).
+
+    Such a cancellation leaves a mode that L = C·P does not show but the closed loop
+    keeps: the loop is not internally stable — some closed-loop transfer function (from
+    the reference to the control signal, or from a load to the output) is unbounded —
+    although the Nyquist count of L says "stable" (every closed-loop transfer function
+    must be stable: Doyle, Francis & Tannenbaum, *Feedback Control Theory*, 1992,
+    §3.2 — section from memory). Roots count as equal within 1e-9 of max(1, |r|)."""
+    zeros = np.asarray(zeros, complex).reshape(len(zeros), -1)
+    poles = np.asarray(poles, complex).reshape(len(poles), -1)
+    out = np.zeros(zeros.shape[0], bool)
+
+    def closed_rhp(roots: tuple[complex, ...]) -> np.ndarray:
+        r = np.array(roots, complex)
+        return r[r.real >= -ROOT_TOL * np.abs(r)] if r.size else r
+
+    for plant_roots, comp in ((closed_rhp(plant.zeros), poles), (closed_rhp(plant.poles), zeros)):
+        if plant_roots.size == 0 or comp.shape[1] == 0:
+            continue
+        tol = 1e-9 * np.maximum(1.0, np.abs(plant_roots))
+        hit = np.abs(comp[:, :, None] - plant_roots[None, None, :]) <= tol[None, None, :]
+        out |= np.any(hit, axis=(1, 2))
+    return out
 
 
 def root_to_json(r: complex) -> float | str:

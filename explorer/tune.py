@@ -35,7 +35,7 @@ from optuna.trial import TrialState
 
 from explorer.errors import LoopscoutError
 from explorer.evaluate import CROSSOVER_REL_TOL, PHASE_MARGIN_TOL_DEG
-from explorer.loop import Rational
+from explorer.loop import Rational, hidden_unstable_mask
 from explorer.metrics import frequency_metrics_batch
 from explorer.structures import Structure, balance
 from explorer.study import LIMIT_KEYS, Targets, Variation
@@ -191,7 +191,11 @@ def evaluate_batch(
         try:
             g, z, p = b.gain[idx], b.zeros[idx], b.poles[idx]
             fm = frequency_metrics_batch(problem.plant, g, z, p)
-            stable = np.asarray(fm["closed_loop_stable"], bool)
+            # internal stability: a cancellation in the closed right half plane (an
+            # integrator on a plant zero at s = 0) hides a mode the Nyquist count misses
+            stable = np.asarray(fm["closed_loop_stable"], bool) & ~hidden_unstable_mask(
+                problem.plant, z, p
+            )
             tm = (
                 step_metrics_batch(problem.plant, g, z, p, stable=stable) if time_domain else {}
             )

@@ -7,6 +7,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from explorer.cli import main
@@ -189,3 +190,25 @@ def test_margins_of_an_unstable_loop_are_marked(tmp_path, capsys) -> None:
     assert main(["check", str(f), "--json"]) == 0
     (d,) = json.loads(capsys.readouterr().out)["designs"]
     assert d["metrics"]["closed_loop_stable"] is False and d["margins_valid"] is False
+
+
+def test_a_hidden_unstable_mode_is_not_a_stable_loop(tmp_path, capsys) -> None:
+    """Plant s/((s+1)(s+2)) (a zero at s = 0) under C = k(s+0.5)²/s²: L = C·P shows one
+    integrator and a Nyquist-stable loop, but the compensator's second integrator
+    cancels the plant's zero. Independent check with numpy polynomials: the transfer
+    from the reference to the control signal, C/(1+CP) = k(s+0.5)²(s+1)(s+2) /
+    (s²(s+1)(s+2) + k·s(s+0.5)²), keeps a pole at s = 0 — the control signal ramps for
+    a step, so the closed loop is not internally stable."""
+    k = 2.0
+    den_u = np.polyadd(np.polymul([1, 0, 0], np.polymul([1, 1], [1, 2])),
+                       k * np.polymul([1, 0], np.polymul([1, 0.5], [1, 0.5])))
+    assert np.min(np.abs(np.roots(den_u))) < 1e-12
+    f = tmp_path / "hidden.toml"
+    f.write_text('[plant]\ngain=1\nzeros=[0]\npoles=[-1,-2]\n[targets]\ncrossover=1\n'
+                 'phase_margin=50\nintegrators=1\n[[compensator]]\nname="double I"\n'
+                 f'gain={k}\nzeros=[-0.5,-0.5]\npoles=[0,0]\n')
+    assert main(["check", str(f), "--json"]) == 0
+    (d,) = json.loads(capsys.readouterr().out)["designs"]
+    assert d["metrics"]["closed_loop_stable"] is False and d["meets_targets"] is False
+    assert d["metrics"]["peak_control"] is None
+    assert any("hidden unstable mode" in m for m in d["misses"])

@@ -196,3 +196,36 @@ def test_progress_line_rewrites_on_a_terminal_and_logs_stage_ends_elsewhere() ->
     assert term.getvalue().count("\r") == 6 and term.getvalue().count("\n") == 2
     assert term.getvalue().endswith("\n")
     assert log.getvalue().splitlines() == [msgs[1], msgs[3], "refining structure 1/2 PI"]
+
+
+def test_search_never_counts_a_hidden_unstable_mode_as_stable() -> None:
+    """A plant zero at s = 0 with loop type 1 asks the compensator for two
+    integrators, one of which cancels the zero (explorer.loop.hidden_unstable_mask):
+    no trial of such a structure may be feasible, although the Nyquist count of
+    L = C·P alone calls many of them stable (checked here on the same rows)."""
+    import numpy as np
+
+    from explorer.explore import make_problem
+    from explorer.metrics import frequency_metrics_batch
+    from explorer.structures import balance, candidate_structures
+    from explorer.study import parse_study
+    from explorer.tune import evaluate_batch
+
+    study = parse_study({"plant": {"gain": 1.0, "zeros": [0.0], "poles": [-1.0, -2.0]},
+                         "targets": {"crossover": 1.0, "phase_margin": 45, "integrators": 1},
+                         "search": {"max_order": 3}})
+    problem = make_problem(study)
+    rng = np.random.default_rng(5)
+    nyquist_stable = 0
+    for s in candidate_structures(study.plant, study.targets, study.search):
+        assert s.integrators == 2
+        params = {k: rng.uniform(lo, hi, 64) for k, (lo, hi) in s.params.items()}
+        wc = np.full(64, 1.0)
+        res = evaluate_batch(problem, s, params, wc, time_domain=False)
+        assert not res["metrics"]["closed_loop_stable"].any() and not res["feasible"].any()
+        b = balance(study.plant, s, params, wc, problem.pm_deg)
+        ok = np.isfinite(b.gain)
+        if ok.any():
+            fm = frequency_metrics_batch(study.plant, b.gain[ok], b.zeros[ok], b.poles[ok])
+            nyquist_stable += int(np.sum(fm["closed_loop_stable"]))
+    assert nyquist_stable > 0  # the mask, not the Nyquist count, is what refuses them

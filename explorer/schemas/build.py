@@ -115,6 +115,10 @@ EXTRA_METRICS: dict[str, Schema] = {
     "noise_gain": _num("extension: sup of |C(jω)| for ω ≥ crossover", **_NONNEG),
     "noise_gain_ratio": _num("extension: noise_gain / |C(j crossover)|", **_NONNEG),
     "pole_ratio": _num("extension: fastest compensator pole off 0 / crossover", **_NONNEG),
+    "hidden_unstable_mode": {"type": "boolean",
+                             "description": "extension: a compensator root cancels a plant "
+                                            "root in the closed right half plane (then "
+                                            "closed_loop_stable is false)"},
 }
 
 METRICS: Schema = _obj(
