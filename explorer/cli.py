@@ -177,19 +177,24 @@ def _print_study(study: Any) -> None:
     print()
 
 
-def _factored(gain: float, zeros: Sequence[complex], poles: Sequence[complex]) -> str:
+def _factored(gain: float, zeros: Sequence[complex], poles: Sequence[complex], *,
+              var: str = "s", digits: int = 4, sep: str = "") -> str:
+    """Roots form as text: real factors (s+a), complex pairs (s^2+bs+c), in the
+    variable ``var`` (s, or z for a discrete compensator) with ``digits`` significant
+    digits, factors joined by ``sep``."""
     def fac(roots: Sequence[complex]) -> str:
         out = []
-        for r in roots:
+        for r in (complex(x) for x in roots):
             if r.imag < 0:
                 continue
             if r == 0:
-                out.append("s")
+                out.append(var)
             elif r.imag == 0:
-                out.append(f"(s{-r.real:+.4g})")
+                out.append(f"({var}{-r.real:+.{digits}g})")
             else:
-                out.append(f"(s^2{-2 * r.real:+.4g}s{abs(r) * abs(r):+.4g})")
-        return "".join(out) or "1"
+                out.append(f"({var}^2{-2 * r.real:+.{digits}g}{var}"
+                           f"{abs(r) * abs(r):+.{digits}g})")
+        return sep.join(out) or "1"
 
     num, den = fac(zeros), fac(poles)
     text = f"{gain:.6g}" + (f" {num}" if num != "1" else "")

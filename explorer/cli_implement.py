@@ -428,22 +428,10 @@ def _write_csv(path: str, obj: dict[str, Any]) -> None:
 
 
 def _zfactored(gain: float, zeros: Sequence[Any], poles: Sequence[Any], var: str = "z") -> str:
-    def fac(roots: Sequence[Any]) -> str:
-        out = []
-        for r in (complex(x) for x in roots):
-            if r.imag < 0:
-                continue
-            if r == 0:
-                out.append(var)
-            elif r.imag == 0:
-                out.append(f"({var}{-r.real:+.6g})")
-            else:
-                out.append(f"({var}^2{-2 * r.real:+.6g}{var}{abs(r) ** 2:+.6g})")
-        return " ".join(out) or "1"
+    from explorer.cli import _factored
 
-    num, den = fac(zeros), fac(poles)
-    text = f"{gain:.6g}" + (f" {num}" if num != "1" else "")
-    return text + (f" / {den}" if den != "1" else "")
+    return _factored(gain, [complex(x) for x in zeros], [complex(x) for x in poles],
+                     var=var, digits=6, sep=" ")
 
 
 def _print_text(study: Any, comp: Any, obj: dict[str, Any]) -> None:
