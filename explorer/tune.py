@@ -54,6 +54,7 @@ __all__ = [
     "objective_names",
     "PM_SEARCH_DEG",
     "TIME_KEYS",
+    "clear_stale_journal_lock",
 ]
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
@@ -348,7 +349,9 @@ def open_storage(storage: str | None, out_dir: Path) -> optuna.storages.BaseStor
             from optuna.storages.journal import JournalFileBackend, JournalStorage
 
             out_dir.mkdir(parents=True, exist_ok=True)
-            return JournalStorage(JournalFileBackend(str(out_dir / "explore.journal")))
+            journal = out_dir / "explore.journal"
+            clear_stale_journal_lock(journal)
+            return JournalStorage(JournalFileBackend(str(journal)))
         return optuna.storages.RDBStorage(_with_driver(storage))
     except LoopscoutError:
         raise
@@ -357,6 +360,33 @@ def open_storage(storage: str | None, out_dir: Path) -> optuna.storages.BaseStor
             f"storage {storage or str(out_dir / 'explore.journal')!r} cannot be opened: "
             f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
         ) from None
+
+
+#: The journal's lock file: Optuna's file backend locks ``<journal>.lock`` around each
+#: append (a symbolic link, JournalFileSymlinkLock); tests/test_tune.py checks the name
+#: against a real lock, so a change in Optuna fails a test rather than this cleanup.
+JOURNAL_LOCK_SUFFIX = ".lock"
+#: A lock older than this at start-up is stale: an append holds it for milliseconds, so
+#: only a worker killed mid-append leaves it (Optuna would wait out its own 30 s grace).
+STALE_LOCK_S = 5.0
+
+
+def clear_stale_journal_lock(journal: Path) -> bool:
+    """Remove the journal's lock when it is older than STALE_LOCK_S (a worker was
+    killed while appending); True when one was removed. A fresh lock — another
+    worker appending right now — is left alone."""
+    lock = Path(str(journal) + JOURNAL_LOCK_SUFFIX)
+    try:
+        age = time.time() - os.lstat(lock).st_mtime
+    except FileNotFoundError:
+        return False
+    if age < STALE_LOCK_S:
+        return False
+    try:
+        lock.unlink()
+    except FileNotFoundError:  # its owner released it meanwhile
+        return False
+    return True
 
 
 def _with_driver(url: str) -> str:

@@ -229,3 +229,28 @@ def test_search_never_counts_a_hidden_unstable_mode_as_stable() -> None:
             fm = frequency_metrics_batch(study.plant, b.gain[ok], b.zeros[ok], b.poles[ok])
             nyquist_stable += int(np.sum(fm["closed_loop_stable"]))
     assert nyquist_stable > 0  # the mask, not the Nyquist count, is what refuses them
+
+
+def test_a_stale_journal_lock_is_cleared_at_start_and_a_fresh_one_kept(tmp_path) -> None:
+    """A worker killed mid-append leaves Optuna's journal lock behind, and the next
+    run would wait out Optuna's 30 s grace. The lock name is taken from a real lock of
+    Optuna's file backend (so a change there fails here); an old lock is removed at
+    start-up, a fresh one (a live writer) is not."""
+    import os
+    import time
+
+    from optuna.storages.journal import JournalFileSymlinkLock
+
+    from explorer.tune import JOURNAL_LOCK_SUFFIX, STALE_LOCK_S, clear_stale_journal_lock
+
+    journal = tmp_path / "explore.journal"
+    journal.write_text("")
+    real = JournalFileSymlinkLock(str(journal))
+    assert real.acquire()
+    lock = tmp_path / ("explore.journal" + JOURNAL_LOCK_SUFFIX)
+    assert os.path.lexists(lock)  # Optuna's lock is where we look for it
+    assert not clear_stale_journal_lock(journal) and os.path.lexists(lock)  # fresh: kept
+    old = time.time() - 10 * STALE_LOCK_S
+    os.utime(lock, (old, old), follow_symlinks=False)
+    assert clear_stale_journal_lock(journal) and not os.path.lexists(lock)
+    assert not clear_stale_journal_lock(journal)  # nothing left to clear
