@@ -51,6 +51,7 @@ __all__ = [
     "recommended_name",
     "frequency_frame",
     "family_frame",
+    "family_gain_phase_frame",
     "family_step_frame",
     "plant_frame",
     "step_frame",
@@ -350,9 +351,45 @@ def family_step_frame(study: Study, design: dict[str, Any], n_points: int = 400
         columns=["member", "t_s", "y"])
 
 
+def family_gain_phase_frame(fb: pd.DataFrame) -> pd.DataFrame:
+    """Per ω the box the family's loop values fill in gain-phase coordinates: phase
+    from ``phase_lo`` to ``phase_hi`` and gain from ``mag_lo`` to ``mag_hi`` (for a gain
+    × delay family exactly the set of (∠L, |L|) at that ω: the gain moves the dB, the
+    delay only the phase), kept where it meets the chart's window."""
+    keep = ((fb["mag_hi"] > _GP_MAG[0]) & (fb["mag_lo"] < _GP_MAG[1])
+            & (fb["phase_hi"] > _GP_PHASE[0]) & (fb["phase_lo"] < _GP_PHASE[1]))
+    return fb.loc[keep, ["omega_rad_s", "phase_lo", "phase_hi", "mag_lo", "mag_hi",
+                         "phase_deg", "mag_db"]].reset_index(drop=True)
+
+
+def family_gain_phase_chart(fb: pd.DataFrame, name: str) -> Any:
+    """The family on the gain-phase chart: one translucent box per frequency
+    (:func:`family_gain_phase_frame`), the nominal loop, and the critical point
+    (−180°, 0 dB) the boxes must keep away from."""
+    gp = family_gain_phase_frame(fb)
+    x = alt.X("phase_lo:Q", title="phase of L (deg)",
+              scale=alt.Scale(domain=list(_GP_PHASE), nice=False),
+              axis=alt.Axis(values=list(range(-360, 1, 45))))
+    y = alt.Y("mag_lo:Q", title="|L| (dB)", scale=alt.Scale(domain=list(_GP_MAG)))
+    boxes = alt.Chart(gp).mark_rect(opacity=0.12, color=PALETTE[0], clip=True).encode(
+        x=x, x2="phase_hi:Q", y=y, y2="mag_hi:Q",
+        tooltip=[alt.Tooltip("omega_rad_s:Q", format=".4g", title="ω (rad/s)")])
+    nominal = alt.Chart(gp).mark_line(color=_INK, strokeWidth=1.6, clip=True).encode(
+        x="phase_deg:Q", y="mag_db:Q", order="omega_rad_s:Q")
+    critical = alt.Chart(pd.DataFrame({"phase_deg": [-180.0], "mag_db": [0.0]})).mark_point(
+        shape="cross", size=120, color=_LIMIT_RED, filled=True).encode(
+        x="phase_deg:Q", y="mag_db:Q")
+    return (boxes + nominal + critical).properties(
+        width=2 * _W, height=260,
+        title=alt.TitleParams(f"{name}: the family on the gain-phase chart",
+                              subtitle="one box per frequency: every gain and delay of the "
+                                       "family; black: nominal; red cross: (−180°, 0 dB)"))
+
+
 def family_charts(fb: pd.DataFrame, st: pd.DataFrame, name: str) -> tuple[Any, Any]:
-    """Bands of the family (loop gain and phase, |S| and |T|) and the step responses
-    of its corners and worst member, for design ``name``."""
+    """Bands of the family (loop gain and phase, |S| and |T|, and its boxes on the
+    gain-phase chart) and the step responses of its corners and worst member, for
+    design ``name``."""
     x_scale, x_axis = _log_x(fb["omega_rad_s"])
     x = alt.X("omega_rad_s:Q", title="frequency ω (rad/s)", scale=x_scale, axis=x_axis)
 
@@ -372,6 +409,7 @@ def family_charts(fb: pd.DataFrame, st: pd.DataFrame, name: str) -> tuple[Any, A
                          "∠L (deg)")),
         alt.hconcat(band("S_lo", "S_hi", "S_db", "|S| over the family", "|S| (dB)"),
                     band("T_lo", "T_hi", "T_db", "|T| over the family", "|T| (dB)")),
+        family_gain_phase_chart(fb, name),
     )
     steps = (
         alt.Chart(st).mark_line(clip=True).encode(

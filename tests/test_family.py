@@ -10,6 +10,7 @@ and of the delay margin (the extra loop delay that does so), as in Åström & Mu
 
 from __future__ import annotations
 
+import json
 import math
 import tomllib
 from pathlib import Path
@@ -436,3 +437,28 @@ def test_worst_margins_are_never_better_than_any_member(plant, kc, zi, glo, ghi,
         if finite:
             assert not np.isnan(got)
             assert got <= min(finite) + 1e-6
+
+
+def test_gain_phase_boxes_hold_every_member_of_a_gain_delay_box():
+    """Gain-phase band: at each frequency the box (phase_lo…phase_hi, mag_lo…mag_hi)
+    contains (∠L, |L|) of every member of a plain-numpy grid of the kiln family's gain
+    × delay box (phase continued from the nominal by −ω·Δτ, gain shifted by 20·log10 g:
+    the loop algebra, no explorer code), and the boxes are drawn in the report."""
+    from explorer.report import chart_specs, family_frame, family_gain_phase_frame
+
+    s = parse_study(tomllib.loads((ROOT / "studies" / "kiln_family.toml").read_text()))
+    rec = evaluated_record(s, s.compensators[0].compensator, name="PI cautious",
+                           origin="given", structure="PI")
+    fb = family_frame(s, rec)
+    gp = family_gain_phase_frame(fb)
+    assert len(gp) > 20
+    v = s.variation
+    w = gp["omega_rad_s"].to_numpy()
+    for g in np.linspace(v.gain[0], v.gain[1], 7):
+        for tau in np.linspace(v.delay_s[0], v.delay_s[1], 7):
+            db = gp["mag_db"].to_numpy() + 20 * np.log10(g)
+            ph = gp["phase_deg"].to_numpy() - np.degrees(w * (tau - s.plant.delay_s))
+            assert np.all(db >= gp["mag_lo"] - 1e-6) and np.all(db <= gp["mag_hi"] + 1e-6)
+            assert np.all(ph >= gp["phase_lo"] - 1e-6) and np.all(ph <= gp["phase_hi"] + 1e-6)
+    spec = json.dumps(chart_specs(s, [rec])["family"].to_dict())
+    assert "the family on the gain-phase chart" in spec and '"rect"' in spec
