@@ -151,6 +151,8 @@ def _tradeoff(ans: dict[str, Any], alt: dict[str, Any], key: str, sense: int,
             costs.append((worse, _change(k, a, b, s)))
     if alt["order"] > ans["order"]:
         costs.insert(0, (math.inf, f"order {alt['order']}"))
+    if alt["metrics"].get("iae_load") is None and ans["metrics"].get("iae_load") is not None:
+        costs.insert(0, (math.inf, "an offset under a constant load"))
     costs.sort(key=lambda c: -c[0])
     tail = " for " + " and ".join(c for _, c in costs[:2]) if costs else ""
     return f"{gain}{tail}"

@@ -110,3 +110,12 @@ def test_near_duplicates_listed_once_across_structures() -> None:
     given = _d("given twin", origin="given")
     kept = drop_near_duplicates([a, b, c, given])
     assert [d["name"] for d in kept] == [a["name"], "different", "given twin"]
+
+
+def test_an_alternative_without_load_rejection_says_so() -> None:
+    ans = _d("I-type", order=3, ms=1.8, noise=2.5)
+    alt = _d("P-type", order=3, ms=1.5, noise=60.0, iae=None)
+    answer, lines = recommend([ans, alt], max_pole_ratio=20.0, searched_wc=False)
+    assert answer["design"] == "I-type"
+    (line,) = [x for x in lines if x.strip().startswith("lowest Ms: P-type")]
+    assert "an offset under a constant load" in line and "24× the noise gain" in line
