@@ -332,6 +332,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("loopscout: interrupted", file=sys.stderr)
         return 130
+    except ModuleNotFoundError as exc:  # an incomplete install, not a defect
+        if args.debug:
+            traceback.print_exc()
+        print(
+            f"loopscout: the required package {exc.name!r} is not installed in this Python "
+            "environment; install loopscout with its dependencies (README: pip install -e .)",
+            file=sys.stderr,
+        )
+        return 1
     except Exception as exc:  # a defect: still one line unless --debug
         if args.debug:
             traceback.print_exc()

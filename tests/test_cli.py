@@ -212,3 +212,23 @@ def test_a_hidden_unstable_mode_is_not_a_stable_loop(tmp_path, capsys) -> None:
     assert d["metrics"]["closed_loop_stable"] is False and d["meets_targets"] is False
     assert d["metrics"]["peak_control"] is None
     assert any("hidden unstable mode" in m for m in d["misses"])
+
+
+def test_a_missing_dependency_is_named_not_called_a_defect(capsys, monkeypatch) -> None:
+    """An environment without a required package (here: the report module made
+    unimportable for this call) gets one line naming the package and the install
+    command, exit 1 — not 'internal error (a defect of loopscout)'."""
+    import builtins
+
+    real_import = builtins.__import__
+
+    def no_altair(name, *args, **kwargs):
+        if name == "explorer.report" or name.startswith("altair"):
+            raise ModuleNotFoundError(f"No module named {name!r}", name="altair")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.setattr(builtins, "__import__", no_altair)
+    code = main(["report", str(ROOT / "studies" / "kiln_damper.toml"), "--out", "/dev/null"])
+    err = capsys.readouterr().err
+    assert code == 1 and err.count("\n") == 1
+    assert "'altair' is not installed" in err and "defect" not in err
