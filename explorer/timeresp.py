@@ -391,6 +391,40 @@ def _crossover_range(loops: LoopBatch) -> tuple[np.ndarray, np.ndarray]:
     return wlo, whi
 
 
+def _gain_scale(
+    plant: Rational,
+    wlo: np.ndarray,
+    whi: np.ndarray,
+    rmin: np.ndarray,
+    rmax: np.ndarray,
+    tau: float,
+) -> np.ndarray:
+    """Per row, a power of 2 near |P(jω_ref)| (ω_ref: the geometric mean of the lowest and
+    highest crossover, else of the loop's root range, else 1/τ, else 1 rad/s).
+
+    Dividing the plant's gain by it (and multiplying the compensator's) leaves L, and so
+    y_ref, unchanged while both realisations carry gains of order one at the crossover:
+    a plant gain of 1e-12 with a compensator gain of 2e12 left the closed-loop matrix
+    with entries 4e12 and 2.5e-13 and an integrator that settled at 0.99985.
+    """
+    with np.errstate(invalid="ignore"):
+        w_ref = np.sqrt(wlo * whi)
+        w_ref = np.where(np.isfinite(w_ref) & (w_ref > 0), w_ref, np.sqrt(rmin * rmax))
+    fallback = 1.0 / tau if tau > 0 else 1.0
+    w_ref = np.where(np.isfinite(w_ref) & (w_ref > 0), w_ref, fallback)
+    s = 1j * w_ref[:, None]
+    pz = np.array(plant.zeros, dtype=complex)[None, :]
+    pp = np.array(plant.poles, dtype=complex)[None, :]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lg = (
+            math.log2(abs(plant.gain))
+            + np.sum(np.log2(np.abs(s - pz)), axis=1)
+            - np.sum(np.log2(np.abs(s - pp)), axis=1)
+        )
+    lg = np.where(np.isfinite(lg), np.clip(np.round(lg), -900, 900), 0.0)
+    return np.exp2(lg)
+
+
 def _nonzero_root_range(roots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     mags = np.abs(roots)
     ok = (mags > 0) & np.isfinite(mags)
@@ -463,6 +497,47 @@ def _maps_free(P: _SS, C: _SS, h: float) -> _Maps:
     o0[:, 3, n:] = np.einsum("bi,bij->bj", ux, bm)
     o1 = o0 @ g
     return _Maps(g, np.stack([o0, o1], axis=1), 1, h)
+
+
+def _deviation(
+    mp: _Maps, P: _SS, C: _SS, yf: np.ndarray, uss: np.ndarray, lss: np.ndarray
+) -> tuple[_Maps, np.ndarray]:
+    """The delay-free map in deviations from the steady state, and the start z_0.
+
+    x = x_ss + ξ with x_ss = −A⁻¹ B [r, d]: ξ obeys the homogeneous map (its input
+    columns are exactly zero) and the outputs' constant columns are the exact final
+    values (yf, uss, lss from the s → 0 limits). A loop whose time scales lie far apart
+    (a resonance at 1e5 rad/s, a crossover at 2e-5 rad/s) otherwise settled on a
+    rounding-sized offset (y → 0.9999963) that never decayed, and had no metrics.
+    Rows whose steady state is not finite (an unstable loop simulated on request)
+    keep the plain formulation.
+    """
+    a, bm, yx, ye, ux, ue = _loop_free(P, C)
+    bsz, n = a.shape[0], a.shape[1]
+    g, o = mp.g.copy(), mp.o[:, 0].copy()
+    z0 = np.zeros((bsz, n + 2, 2))
+    z0[:, n, 0] = 1.0
+    z0[:, n + 1, 1] = 1.0
+    if n == 0:
+        return mp, z0
+    xss = np.zeros((bsz, n, 2))
+    ok = np.isfinite(yf) & np.isfinite(uss) & np.isfinite(lss)
+    with np.errstate(all="ignore"):
+        for i in np.nonzero(ok)[0]:
+            try:
+                xss[i] = np.linalg.solve(a[i], -bm[i])
+            except np.linalg.LinAlgError:
+                ok[i] = False
+        ok &= np.all(np.isfinite(xss.reshape(bsz, -1)), axis=1)
+        ul = np.einsum("bi,bi->b", ux, xss[:, :, 1]) + ue[:, 1]  # u's final value, load step
+    r = np.nonzero(ok)[0]
+    g[r, :n, n:] = 0.0
+    o[r, :, n:] = 0.0
+    o[r, 0, n], o[r, 0, n + 1] = yf[r], lss[r]
+    o[r, 2, n], o[r, 2, n + 1] = uss[r], ul[r]
+    z0[r, :n, :] = -xss[r]
+    o1 = o @ g
+    return _Maps(g, np.stack([o, o1], axis=1), mp.n_sub, mp.h), z0
 
 
 def _maps_delay(P: _SS, C: _SS, tau: float, n_sub: int) -> _Maps:
@@ -794,6 +869,11 @@ class _Sim:
         self.level = 0
         self.t = 0.0
         self.z: np.ndarray | None = None
+        if self.tau == 0.0:
+            rows = plan.rows.take(idx)
+            mp, self.z = _deviation(self.maps[0], self.P, self.C, rows.yf, rows.uss, rows.lss)
+            self.maps = {0: mp}
+            self.g = mp.g
         self.t0: list[np.ndarray] = []
         self.hk: list[np.ndarray] = []
         self.parts: dict[str, list[list[np.ndarray]]] = {n: [[], [], [], []] for n, _, _ in _NAMES}
@@ -1090,6 +1170,7 @@ class _Plan:
     unstable: np.ndarray  # rows known unstable (not simulated)
     uniform: bool  # a fixed step was asked for (no step growth without delay)
     w_hi: np.ndarray  # highest gain crossover per row, rad/s (NaN: none)
+    a_row: np.ndarray  # gain moved from the plant to the compensator (u ÷ a, y_load × a)
 
 
 def _prepare(
@@ -1127,19 +1208,23 @@ def _prepare(
     pc = np.where(invalid[:, None], -1.0, comp_poles)
     pz = np.array(plant.zeros, dtype=complex).reshape(1, -1)
     pp = np.array(plant.poles, dtype=complex).reshape(1, -1)
-    P1 = _realise(np.array([plant.gain]), pz, pp, "plant")
-    P = _SS(*(np.repeat(x, bsz, axis=0) for x in (P1.a, P1.b, P1.c, P1.d)))
-    C = _realise(g, zc, pc, "compensator")
     tau = float(plant.delay_s)
-
-    kc, c0 = _origin_split(g, zc, pc)
-    kp1, p01 = _origin_split(np.array([plant.gain]), pz, pp)
-    yf, uss, lss = _steady_states(kc, c0, np.full(bsz, kp1[0]), np.full(bsz, p01[0]))
-    iae_ok = (kc > 0) | (kp1[0] < 0)
-
     loops = LoopBatch.series(plant, g, zc, pc)
     wlo, whi = _crossover_range(loops)
     rmin, rmax = _nonzero_root_range(np.concatenate([loops.zeros, loops.poles], axis=1))
+    # Only the loop product C·P matters for y_ref: the plant is realised with its gain
+    # divided by a_row (a power of 2, exact) so that |P(jω)| ≈ 1 near the crossover and
+    # the compensator carries the rest; u and y_load are scaled back by the caller.
+    a_row = _gain_scale(plant, wlo, whi, rmin, rmax, tau)
+    a_row = np.where(invalid, 1.0, a_row)
+    pzb, ppb = np.repeat(pz, bsz, axis=0), np.repeat(pp, bsz, axis=0)
+    P = _realise(plant.gain / a_row, pzb, ppb, "plant")
+    C = _realise(g * a_row, zc, pc, "compensator")
+
+    kc, c0 = _origin_split(g * a_row, zc, pc)
+    kp, p0 = _origin_split(plant.gain / a_row, pzb, ppb)
+    yf, uss, lss = _steady_states(kc, c0, kp, p0)
+    iae_ok = (kc > 0) | (kp < 0)
 
     unstable = np.zeros(bsz, dtype=bool) if stable is None else ~stable
     if tau == 0.0:
@@ -1180,7 +1265,7 @@ def _prepare(
         h_row = np.full(bsz, float(dt_s))
     unstable = unstable | invalid | ~np.isfinite(yf)
     rows = _Rows(yf, uss, lss, iae_ok, np.full(bsz, stable is None), lam)
-    return _Plan(P, C, tau, h_row, t0, rows, unstable, dt_s is not None, whi)
+    return _Plan(P, C, tau, h_row, t0, rows, unstable, dt_s is not None, whi, a_row)
 
 
 def _run_chunk(plan: _Plan, idx: np.ndarray, band: float) -> dict[str, np.ndarray]:
@@ -1282,6 +1367,9 @@ def _simulate_group(
         part = _run_chunk(plan, idx, band)
         for k in METRIC_KEYS:
             res[k][idx] = part[k]
+    # back from the normalised gains (_gain_scale): u = u'/a, y_load = a·y_load'
+    res["peak_control"] = res["peak_control"] / plan.a_row
+    res["iae_load"] = res["iae_load"] * plan.a_row
     return res
 
 
@@ -1448,4 +1536,5 @@ def simulate_steps(
     if t_end_s is not None:
         keep = t <= t_end_s * (1 + 1e-12)
         t, sig = t[keep], [x[keep] for x in sig]
-    return StepResponse(t_s=t, y_ref=sig[0], u_ref=sig[1], y_load=sig[2])
+    a = float(plan.a_row[0])  # the normalised gains (_gain_scale) undone
+    return StepResponse(t_s=t, y_ref=sig[0], u_ref=sig[1] / a, y_load=sig[2] * a)

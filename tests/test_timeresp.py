@@ -792,3 +792,123 @@ def test_too_fine_fixed_step_with_delay_is_refused():
     plant = Rational(gain=1.0, poles=(-1.0,), delay_s=1.0)
     with pytest.raises(DesignError, match="too fine"):
         step_metrics(plant, Rational(gain=0.5, zeros=(-1.0,), poles=(0.0,)), dt_s=1e-4)
+
+
+# ======================================================================================
+# Extreme gains, wide root spans, and the scaling invariances (issue 19)
+# ======================================================================================
+def _gain_scaled(r: Rational, a: float) -> Rational:
+    return Rational(gain=r.gain * a, zeros=r.zeros, poles=r.poles, delay_s=r.delay_s)
+
+
+def _time_scaled(r: Rational, s: float) -> Rational:
+    """r(σ/s): every root × s, delay ÷ s, gain × s^(poles − zeros) — the same loop run
+    s times faster."""
+    k = len(r.poles) - len(r.zeros)
+    return Rational(
+        gain=r.gain * s**k,
+        zeros=tuple(z * s for z in r.zeros),
+        poles=tuple(p * s for p in r.poles),
+        delay_s=r.delay_s / s,
+    )
+
+
+@pytest.mark.parametrize(("kp", "kc"), [(1e-12, 2e12), (1e12, 2e-12), (1.0, 2.0)])
+def test_extreme_gain_split_matches_scipy(kp, kc):
+    """Only the loop product matters for y_ref: a plant gain of 1e-12 under a compensator
+    gain of 2e12 (it had no step figures at all) and the mirror case agree with
+    scipy.signal on the closed-loop transfer functions of the loop as given."""
+    plant = Rational(gain=kp, poles=(-1.0, -2.0))
+    comp = Rational(gain=kc, zeros=(-1.0,), poles=(0.0,))
+    m = step_metrics(plant, comp)
+    assert all(m[k] is not None for k in METRIC_KEYS), m
+    *_, ref = _scipy_metrics(plant, comp, 30.0)
+    assert _close(m["overshoot_pct"], ref["overshoot_pct"], abs_=1e-3)
+    assert _close(m["settling_time_s"], ref["settling_time_s"], rel=1e-5)
+    assert _close(m["rise_time_s"], ref["rise_time_s"], rel=1e-5)
+    assert _close(m["peak_control"], ref["peak_control"], rel=1e-6)
+    assert _close(m["iae_load"], ref["iae_load"], rel=1e-4)
+    # closed form: for a unit load step the integrated error is 1/ki, ki = lim s·C(s)
+    # (Åström & Hägglund, Advanced PID Control, ISA 2006, §4, from memory); the load
+    # response of this loop keeps its sign, so IAE = IE
+    assert _close(m["iae_load"], 1.0 / kc, rel=2e-5)
+
+
+# L = k·(s + a)/s · 1/((s + a)(s + b)): the PI zero cancels the slow plant pole exactly,
+# y_ref = k/(s² + b s + k) (fast), while y_load keeps the slow mode e^{−a t}
+WIDE_SPANS = {
+    "1e-3..1e3 rad/s": (1e-3, 1e3, 1e3),
+    "1e-4..1e4 rad/s": (1e-4, 1e4, 1e6),
+}
+
+
+@pytest.mark.parametrize("name", sorted(WIDE_SPANS))
+def test_wide_root_span_matches_scipy_and_closed_form(name):
+    a, b, k = WIDE_SPANS[name]
+    plant = Rational(gain=1.0, poles=(-a, -b))
+    comp = Rational(gain=k, zeros=(-a,), poles=(0.0,))
+    m = step_metrics(plant, comp)
+    assert all(m[key] is not None for key in METRIC_KEYS), m
+    # scipy: the exactly cancelled (second-order) reference loop, dense lsim over the
+    # fast transient; peak control is C(∞) = k at t = 0⁺ (biproper u)
+    fast = Rational(gain=k, poles=(0.0, -b))
+    t_end = 40.0 / min(b, k / b)
+    *_, ref = _scipy_metrics(fast, Rational(gain=1.0), t_end)
+    assert _close(m["overshoot_pct"], ref["overshoot_pct"], abs_=1e-3)
+    assert _close(m["settling_time_s"], ref["settling_time_s"], rel=1e-5)
+    assert _close(m["rise_time_s"], ref["rise_time_s"], rel=1e-5)
+    assert _close(m["peak_control"], k, rel=1e-9)
+    # closed form: IE = 1/ki with ki = k·a (Åström & Hägglund 2006, §4, from memory);
+    # y_load = s/((s + a)(s² + b s + k)) is a positive impulse-like response (checked on
+    # exact ZOH samples of scipy.signal.lsim over the fast and the slow time scale)
+    tl = _closed_loop_tfs(plant, comp)[2]
+    for t_hi in (t_end, 20.0 / a):
+        t = np.linspace(0.0, t_hi, 4001)
+        assert np.min(signal.lsim(tl, np.ones_like(t), t)[1][1:]) > 0.0
+    assert _close(m["iae_load"], 1.0 / (k * a), rel=1e-5)
+
+
+INVARIANCE_LOOPS = {
+    **{n: FREE_LOOPS[n] for n in ("lead_on_servo", "resonant_drive", "nmp_level")},
+    **{n: DELAY_LOOPS[n] for n in ("kiln_simc", "conveyor_pidf", "damper_nmp")},
+    "neutral": NEUTRAL,
+}
+
+
+@pytest.mark.parametrize("name", sorted(INVARIANCE_LOOPS))
+def test_gain_split_and_time_scale_invariance(name):
+    """Theory: P·a with C/a leaves y_ref unchanged, divides u by a and multiplies y_load
+    by a; every root × s with the delay ÷ s is the same loop s times faster (times and
+    ∫|y_load| dt ÷ s, amplitudes unchanged)."""
+    plant, comp = INVARIANCE_LOOPS[name]
+    base = step_metrics(plant, comp)
+    assert base["settling_time_s"] is not None
+
+    def same(got, factor):
+        for k in METRIC_KEYS:
+            if base[k] is None:
+                assert got[k] is None, k
+            elif k == "overshoot_pct":
+                assert got[k] == pytest.approx(base[k], abs=1e-6), k
+            else:
+                assert got[k] == pytest.approx(base[k] * factor.get(k, 1.0), rel=1e-8), k
+
+    for a in (1e-9, 3.7, 1e9):
+        same(step_metrics(_gain_scaled(plant, a), _gain_scaled(comp, 1.0 / a)),
+             {"peak_control": 1.0 / a, "iae_load": a})
+    for s in (1e-3, 0.3, 2.0**7, 1e3):
+        same(step_metrics(_time_scaled(plant, s), _time_scaled(comp, s)),
+             {"settling_time_s": 1.0 / s, "rise_time_s": 1.0 / s, "iae_load": 1.0 / s})
+
+
+def test_simulated_signals_follow_the_gain_split():
+    """simulate_steps undoes the internal gain normalisation: u ÷ a, y_load × a."""
+    plant, comp = FREE_LOOPS["resonant_drive"]
+    a = 1e-10
+    r0 = simulate_steps(plant, comp, t_end_s=10.0, dt_s=0.01)
+    r1 = simulate_steps(_gain_scaled(plant, a), _gain_scaled(comp, 1.0 / a), t_end_s=10.0,
+                        dt_s=0.01)
+    np.testing.assert_allclose(r1.t_s, r0.t_s, rtol=1e-14)
+    np.testing.assert_allclose(r1.y_ref, r0.y_ref, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(r1.u_ref * a, r0.u_ref, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(r1.y_load / a, r0.y_load, rtol=1e-9, atol=1e-12)
