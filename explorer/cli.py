@@ -16,6 +16,7 @@ from typing import Any, NoReturn
 
 from explorer.errors import LoopscoutError
 from explorer.evaluate import METRIC_UNITS
+from explorer.metric_registry import MARGIN_KEYS
 
 __all__ = ["main", "build_parser"]
 
@@ -227,8 +228,7 @@ _TABLE_ROWS = _table_rows()
 
 
 #: Figures that read as robustness margins only when the closed loop is stable.
-_MARGIN_KEYS = frozenset({"phase_margin_deg", "gain_margin_db", "lower_gain_margin_db",
-                          "delay_margin_s", "sensitivity_peak", "complementary_peak"})
+_MARGIN_KEYS = MARGIN_KEYS
 UNSTABLE_MARGIN_NOTE = (
     "* closed loop unstable: these figures are distances of the Nyquist curve from -1, "
     "not margins of a working loop"

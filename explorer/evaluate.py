@@ -13,6 +13,7 @@ from typing import Any
 
 import numpy as np
 
+from explorer import metric_registry as _registry
 from explorer.loop import Rational, hidden_unstable_mask
 from explorer.metrics import frequency_metrics
 from explorer.noise import noise_figures, pole_ratio
@@ -31,49 +32,10 @@ __all__ = [
     "study_header",
 ]
 
-#: docs/interface.md METRICS keys, in the order the tables show them.
-METRIC_KEYS = (
-    "crossover_rad_s",
-    "crossovers_rad_s",
-    "phase_margin_deg",
-    "gain_margin_db",
-    "phase_crossover_rad_s",
-    "delay_margin_s",
-    "sensitivity_peak",
-    "complementary_peak",
-    "closed_loop_stable",
-    "overshoot_pct",
-    "settling_time_s",
-    "rise_time_s",
-    "peak_control",
-    "hf_gain",
-    "integral_gain",
-    "iae_load",
-)
-
-#: Display name and unit of each key (tables, report).
-METRIC_UNITS: dict[str, tuple[str, str]] = {
-    "crossover_rad_s": ("crossover", "rad/s"),
-    "crossovers_rad_s": ("all crossovers", "rad/s"),
-    "phase_margin_deg": ("phase margin", "deg"),
-    "gain_margin_db": ("gain margin", "dB"),
-    "phase_crossover_rad_s": ("phase crossover", "rad/s"),
-    "lower_gain_margin_db": ("lower gain margin", "dB"),
-    "delay_margin_s": ("delay margin", "s"),
-    "sensitivity_peak": ("Ms", "-"),
-    "complementary_peak": ("Mt", "-"),
-    "closed_loop_stable": ("stable", ""),
-    "overshoot_pct": ("overshoot", "%"),
-    "settling_time_s": ("settling 2 %", "s"),
-    "rise_time_s": ("rise 10-90 %", "s"),
-    "peak_control": ("peak |u|", "-"),
-    "hf_gain": ("hf gain |C(j∞)|", "-"),
-    "integral_gain": ("integral gain", "1/s"),
-    "iae_load": ("IAE load step", "-"),
-    "noise_gain": ("noise gain", "-"),
-    "noise_gain_ratio": ("noise / crossover gain", "-"),
-    "pole_ratio": ("fastest pole / crossover", "-"),
-}
+#: docs/interface.md METRICS keys in table order, and each key's label and unit: from
+#: the one metric list (explorer.metric_registry).
+METRIC_KEYS = _registry.METRIC_KEYS
+METRIC_UNITS = _registry.METRIC_UNITS
 
 #: docs/interface.md: a numeric target crossover must be a gain crossover within this
 #: (the default of ``targets.crossover_tolerance``).
@@ -85,7 +47,7 @@ SETTLING_REL_TOL = 0.01
 #: docs/interface.md: the phase-margin target is met down to target − 0.05°.
 PHASE_MARGIN_TOL_DEG = 0.05
 
-_TIME_KEYS = ("overshoot_pct", "settling_time_s", "rise_time_s", "peak_control", "iae_load")
+_TIME_KEYS = _registry.TIME_KEYS
 
 
 def design_metrics(plant: Rational, comp: Rational) -> dict[str, Any]:

@@ -23,6 +23,7 @@ from typing import Any
 
 import numpy as np
 
+from explorer import metric_registry as _registry
 from explorer import specs
 from explorer.errors import StudyFileError
 from explorer.loop import Rational, roots_from_coefficients
@@ -40,35 +41,11 @@ __all__ = [
     "MAX_FILE_BYTES",
 ]
 
-#: METRICS key → kind of bound: "upper" (value must not exceed) or "lower".
-LIMIT_KEYS: dict[str, str] = {
-    "sensitivity_peak": "upper",
-    "complementary_peak": "upper",
-    "hf_gain": "upper",
-    "overshoot_pct": "upper",
-    "settling_time_s": "upper",
-    "rise_time_s": "upper",
-    "peak_control": "upper",
-    "iae_load": "upper",
-    "gain_margin_db": "lower",
-    "phase_margin_deg": "lower",
-    "delay_margin_s": "lower",
-}
-
-# Allowed range of each limit value: (low, low_inclusive, high, high_inclusive, unit).
-_LIMIT_RANGES: dict[str, tuple[float, bool, float, bool, str]] = {
-    "sensitivity_peak": (1.0, True, math.inf, False, ""),
-    "complementary_peak": (0.0, False, math.inf, False, ""),
-    "hf_gain": (0.0, True, math.inf, False, ""),
-    "overshoot_pct": (0.0, True, math.inf, False, " %"),
-    "settling_time_s": (0.0, False, math.inf, False, " s"),
-    "rise_time_s": (0.0, False, math.inf, False, " s"),
-    "peak_control": (0.0, False, math.inf, False, ""),
-    "iae_load": (0.0, False, math.inf, False, ""),
-    "gain_margin_db": (0.0, True, math.inf, False, " dB"),
-    "phase_margin_deg": (0.0, True, 180.0, False, " deg"),
-    "delay_margin_s": (0.0, True, math.inf, False, " s"),
-}
+#: METRICS key → kind of bound: "upper" (value must not exceed) or "lower"; and the
+#: allowed range of each limit value (low, low_inclusive, high, high_inclusive, unit):
+#: from the one metric list (explorer.metric_registry).
+LIMIT_KEYS: dict[str, str] = _registry.LIMIT_KEYS
+_LIMIT_RANGES: dict[str, tuple[float, bool, float, bool, str]] = _registry.LIMIT_RANGES
 
 MAX_SEARCH_ORDER = 6
 _TOP_KEYS = ("name", "plant", "targets", "limits", "search", "compensator", "variation")

@@ -33,6 +33,7 @@ import optuna
 from optuna.distributions import BaseDistribution, FloatDistribution
 from optuna.trial import TrialState
 
+from explorer import metric_registry as _registry
 from explorer.errors import LoopscoutError
 from explorer.evaluate import CROSSOVER_REL_TOL, PHASE_MARGIN_TOL_DEG
 from explorer.loop import Rational, hidden_unstable_mask
@@ -139,10 +140,8 @@ def constraint_names(limits: dict[str, float]) -> list[str]:
     ]
 
 
-#: Metrics that need the step responses.
-TIME_KEYS = frozenset(
-    {"overshoot_pct", "settling_time_s", "rise_time_s", "peak_control", "iae_load"}
-)
+#: Metrics that need the step responses (explorer.metric_registry).
+TIME_KEYS = frozenset(_registry.TIME_KEYS)
 
 
 def evaluate_batch(
@@ -289,7 +288,7 @@ def evaluate_batch(
 #: target) and its worst goes to ``worst_phase_margin_deg`` for a limit.
 _FAMILY_KEYS = ("sensitivity_peak", "complementary_peak", "gain_margin_db",
                 "delay_margin_s", "closed_loop_stable")
-_FAMILY_TIME_KEYS = ("overshoot_pct", "settling_time_s", "iae_load")
+_FAMILY_TIME_KEYS = _registry.WORST_TIME_KEYS
 
 
 def _family_into(

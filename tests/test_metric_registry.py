@@ -1,0 +1,76 @@
+"""The one metric list (explorer.metric_registry): every other list of metric keys is
+derived from it, and every metric is defined in the docs section its entry names."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+
+from explorer import cli, evaluate, family, metric_registry, study, tune
+from explorer.schemas import build
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def _slug(heading: str) -> str:
+    """The anchor a Markdown renderer gives a heading (lower case, punctuation dropped,
+    spaces to hyphens)."""
+    s = heading.strip().lower()
+    s = re.sub(r"[^\w\- ]", "", s)
+    return s.replace(" ", "-")
+
+
+def _sections(path: Path) -> dict[str, str]:
+    """Anchor → the text of that section (up to the next heading of any level)."""
+    out: dict[str, str] = {}
+    anchor, lines = None, []
+    for line in path.read_text(encoding="utf-8").splitlines():
+        m = re.match(r"^#{1,6} (.*)$", line)
+        if m:
+            if anchor is not None:
+                out[anchor] = "\n".join(lines)
+            anchor, lines = _slug(m.group(1)), []
+        else:
+            lines.append(line)
+    if anchor is not None:
+        out[anchor] = "\n".join(lines)
+    return out
+
+
+@pytest.mark.parametrize("metric", metric_registry.METRICS, ids=lambda m: m.key)
+def test_every_metric_is_defined_where_its_entry_points(metric) -> None:
+    doc, _, anchor = metric.definition.partition("#")
+    sections = _sections(ROOT / doc)
+    assert anchor in sections, f"{metric.key}: no section #{anchor} in {doc}"
+    assert f"`{metric.key}`" in sections[anchor], (
+        f"{metric.key} is not defined in {doc}#{anchor}")
+
+
+def test_the_package_lists_come_from_the_registry() -> None:
+    assert evaluate.METRIC_KEYS == metric_registry.METRIC_KEYS
+    assert evaluate.METRIC_UNITS == metric_registry.METRIC_UNITS
+    assert study.LIMIT_KEYS == metric_registry.LIMIT_KEYS
+    assert set(tune.TIME_KEYS) == set(metric_registry.TIME_KEYS)
+    assert cli._MARGIN_KEYS == metric_registry.MARGIN_KEYS
+    assert tuple(family.WORST_KEYS) == metric_registry.WORST_KEYS
+
+
+def test_the_schemas_agree_with_the_registry() -> None:
+    # the schema builder is kept free of package imports (it is the written contract);
+    # this ties its lists to the package's
+    assert tuple(build.WORST_KEYS) == metric_registry.WORST_KEYS
+    for key in metric_registry.METRIC_KEYS:
+        assert key in build.STABLE_METRICS, f"{key}: a METRICS key missing from the schema"
+
+
+def test_limit_keys_and_ranges_agree() -> None:
+    for key, bound in metric_registry.LIMIT_KEYS.items():
+        assert bound in ("upper", "lower")
+        lo, lo_incl, hi, hi_incl, unit = metric_registry.LIMIT_RANGES[key]
+        assert lo < hi
+        assert unit == "" or unit.startswith(" ")
+    # a limit on a key the registry marks unlimited is refused by the study reader
+    unlimited = [m.key for m in metric_registry.METRICS if m.bound is None]
+    assert "crossover_rad_s" in unlimited and "crossover_rad_s" not in study.LIMIT_KEYS
