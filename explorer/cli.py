@@ -112,6 +112,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
         for d in designs:
             if d["misses"]:
                 print(_safe(f"  {d['name']} misses: " + "; ".join(d["misses"])))
+        _print_data_notes(designs)
         print()
         print(CAUTION)
     return 0
@@ -143,10 +144,14 @@ def _print_study(study: Any) -> None:
     t = study.targets
     print(_safe(f"study: {study.name}  ({study.source})"))
     p = study.plant
-    print(
-        f"plant: {_factored(p.gain, p.zeros, p.poles)}"
-        + (f" * exp(-{p.delay_s:g} s)" if p.delay_s else "")
-    )
+    mp = getattr(study, "measured", None)
+    if mp is not None:
+        _print_measured(mp)
+    else:
+        print(
+            f"plant: {_factored(p.gain, p.zeros, p.poles)}"
+            + (f" * exp(-{p.delay_s:g} s)" if p.delay_s else "")
+        )
     wc = t.crossover_rad_s
     wc_s = (
         "free"
@@ -176,6 +181,54 @@ def _print_study(study: Any) -> None:
         print("plant family: " + ", ".join(parts)
               + " (limits and stability apply to every member; targets to the nominal)")
     print()
+
+
+def _print_measured(mp: Any) -> None:
+    """The measured plant: the file, its band, what is assumed, the fitted model and
+    its error over the band (docs/measured-data.md)."""
+    lo, hi = mp.data.band_rad_s
+    m = mp.fit.model
+    print(_safe(f"plant: measured sweep {mp.shown}, {mp.data.omega_rad_s.size} points, "
+                f"band {lo:.4g} to {hi:.4g} rad/s; frequency figures are read on the data"))
+    given = "given" if mp.integrators is not None else "estimated from the lowest points"
+    print(f"  assumed: {mp.unstable_poles} open-loop unstable pole(s) (given), "
+          f"{mp.plant_integrators} integrator(s) ({given})")
+    print(f"  fitted model (vector fitting): {_factored(m.gain, m.zeros, m.poles)}"
+          + (f" * exp(-{m.delay_s:.4g} s)" if m.delay_s else ""))
+    f = mp.fit
+    print(f"  fit error over the band: {100 * f.rel_rms:.2f} % RMS ({100 * f.rel_max:.2f} % "
+          f"max), magnitude {f.mag_max_db:.2f} dB max, phase {f.phase_max_deg:.2f} deg max")
+    if f.time_from_fit:
+        print("  time responses (overshoot, settling, rise, peak |u|, IAE) come from the "
+              "fitted model")
+    else:
+        for note in f.notes:
+            if "withheld" in note:
+                print(_safe(f"  {note}"))
+    low = mp.data.low_coherence_rows()
+    if low:
+        w = mp.data.omega_rad_s
+        print(f"  low coherence (< 0.6) at {len(low)} point(s): "
+              + ", ".join(f"{w[k]:.4g}" for k in low) + " rad/s")
+
+
+def _print_data_notes(designs: list[dict[str, Any]]) -> None:
+    """Per design on a measured plant: what lies outside the band; then the
+    assumptions of the Nyquist count (the same for every design but the count)."""
+    shown = False
+    for d in designs:
+        if "band_rad_s" not in d:
+            continue
+        for line in d.get("outside_band") or []:
+            print(_safe(f"  {d['name']} outside the band: {line}"))
+        if d.get("time_note"):
+            print(_safe(f"  {d['name']}: {d['time_note']}"))
+        if not shown:
+            print("  assumptions about the data:")
+            for line in d.get("assumptions") or []:
+                if not line.startswith("Nyquist count"):
+                    print(_safe(f"    - {line}"))
+            shown = True
 
 
 def _factored(gain: float, zeros: Sequence[complex], poles: Sequence[complex], *,

@@ -64,17 +64,30 @@ def _run(args: argparse.Namespace) -> int:
         raise LoopscoutError(f"--trim-overshoot must be in (0, 100) %, got {args.trim_overshoot:g}")
     designs: list[dict[str, Any]] = []
     refused: list[dict[str, Any]] = []
-    for hd in hand_designs(study.plant, t, cancel_lightly_damped=study.search.cancel_lightly_damped,
+    from explorer.plant_source import hand_plant
+
+    wc_t = t.crossover_rad_s if isinstance(t.crossover_rad_s, (int, float)) else None
+    # a measured plant: the fitted model, made to match the data at the target crossover
+    hp, data_step = hand_plant(study.plant, study.measured, wc_t)
+    for hd in hand_designs(hp, t, cancel_lightly_damped=study.search.cancel_lightly_damped,
                            error_constant=t.error_constant):
         if hd.compensator is None:
             refused.append({"name": hd.name, "origin": hd.origin, "structure": hd.structure,
                             "reason": hd.reason, "steps": list(hd.steps)})
             continue
         comp = hd.compensator
+        steps = list(hd.steps) + ([data_step] if data_step else [])
         designs.append(evaluated_record(study, comp, name=hd.name, origin=hd.origin,
                                         structure=hd.structure,
-                                        extra={"steps": list(hd.steps)}))
-        if args.trim_overshoot is not None:
+                                        extra={"steps": steps}))
+        if (args.trim_overshoot is not None and study.measured is not None
+                and not study.measured.fit.time_from_fit):
+            refused.append({"name": f"{hd.name} trimmed", "origin": hd.origin,
+                            "structure": hd.structure,
+                            "reason": "the overshoot needs step responses, withheld: the "
+                                      "model fitted to the measured data is poor",
+                            "steps": []})
+        elif args.trim_overshoot is not None:
             tr = trim_gain_for_overshoot(study.plant, comp, args.trim_overshoot)
             if tr.compensator is None:
                 refused.append(

@@ -82,6 +82,7 @@ def meets_targets(
     limits: dict[str, float],
     loop_integrators: int,
     worst: dict[str, Any] | None = None,
+    unknown: dict[str, str] | None = None,
 ) -> tuple[bool, list[str]]:
     """docs/interface.md's test, with the reasons a design misses (empty when it meets).
 
@@ -92,13 +93,24 @@ def meets_targets(
     A lower-bound limit on a margin that is null ("does not exist": no crossover or
     no phase crossover, i.e. infinite) holds; an upper-bound limit on a null value
     (unstable, improper, never settles) fails.
+
+    ``unknown``: for a measured plant, METRICS keys whose null value the data do not
+    establish (outside the measured band; explorer.plant_source), with the reason. Such
+    a null never meets a target or a limit, and the reason is given.
     """
     why: list[str] = []
+    unknown = unknown or {}
+
+    def because(key: str) -> str:
+        return f" (not established: {unknown[key]})" if key in unknown else ""
+
     lim_src = metrics if worst is None else worst
     tag = "" if worst is None else " (worst over the plant family)"
     if metrics.get("hidden_unstable_mode"):
         why.append("closed loop internally unstable: a compensator root cancels a plant "
                    "root in the right half plane or at s = 0 (a hidden unstable mode)")
+    elif "closed_loop_stable" in unknown and not metrics.get("closed_loop_stable"):
+        why.append("closed-loop stability" + because("closed_loop_stable"))
     elif not metrics.get("closed_loop_stable"):
         why.append("closed loop unstable")
     elif worst is not None and not worst.get("closed_loop_stable"):
@@ -116,13 +128,13 @@ def meets_targets(
                        f"{100.0 * (near / wc - 1.0):+.3g} % off; tolerance ±{100.0 * tol:.3g} %")
             else:
                 got = "no gain crossover"
-            why.append(f"crossover {wc:.6g} rad/s missed: {got}")
+            why.append(f"crossover {wc:.6g} rad/s missed: {got}" + because("crossover_rad_s"))
     elif isinstance(wc, tuple):
         c = metrics.get("crossover_rad_s")
         if c is None or not (wc[0] <= c <= wc[1]):
             why.append(
                 f"crossover {c if c is None else f'{c:.4g}'} "
-                f"outside [{wc[0]:.4g}, {wc[1]:.4g}] rad/s"
+                f"outside [{wc[0]:.4g}, {wc[1]:.4g}] rad/s" + because("crossover_rad_s")
             )
     pm_t = targets.phase_margin_deg
     if pm_t is not None:
@@ -130,23 +142,26 @@ def meets_targets(
         if pm is None or pm < pm_t - PHASE_MARGIN_TOL_DEG:
             why.append(
                 f"phase margin {'none' if pm is None else f'{pm:.2f}'} deg "
-                f"< target {pm_t:.2f} deg"
+                f"< target {pm_t:.2f} deg" + because("phase_margin_deg")
             )
     for key, req in targets.requirements.items():
         value = metrics.get(key)
         slack = OVERSHOOT_TOL_PCT if key == "overshoot_pct" else SETTLING_REL_TOL * req
         if value is None or value > req + slack:
             unit = METRIC_UNITS[key][1]
-            why.append(f"{key} {_fmt(value)} > required {req:g} {unit}")
+            why.append(f"{key} {_fmt(value)} > required {req:g} {unit}" + because(key))
     for key, bound in limits.items():
         value = lim_src.get(key) if key in lim_src else metrics.get(key)
         kind = LIMIT_KEYS[key]
         unit = METRIC_UNITS.get(key, (key, ""))[1].strip("-")
         if kind == "upper":
             if value is None or value > bound:
-                why.append(f"{key} {_fmt(value)} > limit {bound:g} {unit}".rstrip() + tag)
+                why.append(f"{key} {_fmt(value)} > limit {bound:g} {unit}".rstrip() + tag
+                           + because(key))
         elif value is not None and value < bound:
             why.append(f"{key} {_fmt(value)} < limit {bound:g} {unit}".rstrip() + tag)
+        elif value is None and key in unknown:
+            why.append(f"{key} none, limit {bound:g} {unit}".rstrip() + because(key))
     return (not why), why
 
 
@@ -219,23 +234,61 @@ def evaluated_record(
 ) -> dict[str, Any]:
     """A DESIGN record of ``comp`` on the study's plant with every metric
     (:func:`design_metrics`) and the target check (:func:`meets_targets`); raises
-    what ``design_metrics`` raises."""
-    metrics = design_metrics(study.plant, comp)
+    what ``design_metrics`` raises. A measured plant (``study.measured``) is read through
+    :func:`explorer.plant_source.design_figures`: frequency metrics on the data, time
+    metrics from the fitted model when it is good, the data extras beside ``metrics``."""
+    unknown: dict[str, str] = {}
+    n_plant = study.plant.n_integrators
+    if study.measured is not None:
+        from explorer.plant_source import design_figures
+
+        metrics, data_extra, unknown = design_figures(study.measured, comp, study.limits)
+        metrics = _with_compensator_figures(study.plant, comp, metrics)
+        extra = {**data_extra, **(extra or {})}
+        n_plant = study.measured.plant_integrators
+    else:
+        metrics = design_metrics(study.plant, comp)
     fam: dict[str, Any] = {}
     if study.variation is not None:
         from explorer.family import worst_of_design
 
         fam = worst_of_design(study.plant, study.variation, comp, metrics)
+    judged = metrics
+    if getattr(study.search, "sample_time_s", None) is not None:
+        # a sampled controller: judged on the sampled loop (explorer.sampled_search)
+        from explorer.sampled_search import sampled_record
+
+        sr = sampled_record(study, comp, metrics)
+        judged = sr["judged"]
+        extra = {**sr["extra"], **(extra or {})}
     ok, why = meets_targets(
-        metrics, study.targets, study.limits, study.plant.n_integrators + comp.n_integrators,
-        worst=fam.get("worst"),
+        judged, study.targets, study.limits, n_plant + comp.n_integrators,
+        worst=fam.get("worst"), unknown=unknown,
     )
+    if judged is not metrics:
+        why = [f"sampled loop: {w}" for w in why]
     if fam:
         extra = {**fam, **(extra or {})}
     return design_record(
         name=name, origin=origin, structure=structure, comp=comp, metrics=metrics,
         meets=ok, reasons=why, extra=extra,
     )
+
+
+def _with_compensator_figures(plant: Rational, comp: Rational,
+                              metrics: dict[str, Any]) -> dict[str, Any]:
+    """A measured plant's METRICS completed as :func:`design_metrics` completes a
+    model's: the hidden-mode check (on the fitted model's roots), the noise figures
+    and the pole ratio; keys in design_metrics' order."""
+    out = dict(metrics)
+    out["hidden_unstable_mode"] = bool(hidden_unstable_mask(
+        plant, np.array([comp.zeros], complex), np.array([comp.poles], complex))[0])
+    if out["hidden_unstable_mode"]:
+        out["closed_loop_stable"] = False
+    wc = out.get("crossover_rad_s")
+    out["noise_gain"], out["noise_gain_ratio"] = noise_figures(comp, wc)
+    out["pole_ratio"] = pole_ratio(comp, wc)
+    return {key: out.get(key) for key in (*METRIC_KEYS, *sorted(set(out) - set(METRIC_KEYS)))}
 
 
 def given_designs(study: Study) -> list[dict[str, Any]]:
@@ -258,7 +311,8 @@ def study_header(study: Study) -> dict[str, Any]:
     return {
         "name": study.name,
         "source": study.source,
-        "plant": study.plant.to_dict() | {"delay": study.plant.delay_s},
+        "plant": (study.plant.to_dict() | {"delay": study.plant.delay_s}
+                  if study.measured is None else study.measured.to_dict()),
         "targets": {
             "crossover_rad_s": wc,
             "phase_margin_deg": t.phase_margin_deg,

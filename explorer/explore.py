@@ -91,6 +91,9 @@ def make_problem(study: Study):  # -> explorer.tune.Problem
         max_pole_ratio=study.search.max_pole_ratio,
         crossover_tol=t.crossover_tolerance,
         variation=study.variation,
+        measured=study.measured,
+        sample_time_s=study.search.sample_time_s,
+        compute_delay_s=study.search.compute_delay_s,
     )
     wc = t.crossover_rad_s
     if isinstance(wc, (int, float)):
@@ -360,8 +363,10 @@ def _hand_designs(study: Study) -> list[Any]:
         return []
     try:
         from explorer.balance import hand_designs
+        from explorer.plant_source import hand_plant
 
-        hds = hand_designs(study.plant, t, cancel_lightly_damped=study.search.cancel_lightly_damped)
+        hp, _ = hand_plant(study.plant, study.measured, float(t.crossover_rad_s))
+        hds = hand_designs(hp, t, cancel_lightly_damped=study.search.cancel_lightly_damped)
     except Exception:  # the hand baselines are references; the exploration stands without them
         return []
     return [hd for hd in hds if hd.compensator is not None]

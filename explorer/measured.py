@@ -563,9 +563,14 @@ def _assemble(
         "gain_margin_db": None, "phase_crossover_rad_s": None,
         "sensitivity_peak": None, "complementary_peak": None, "closed_loop_stable": None,
         "sensitivity_peak_rad_s": None, "complementary_peak_rad_s": None,
-        "closed_loop_rhp_poles": None,
+        "closed_loop_rhp_poles": None, "lower_gain_margin_db": None,
     }
     err: dict[str, Any] = {}
+    # what a null lower-bound margin is known to be at least: +inf (none exists: the
+    # margin is infinite under the assumptions), a number (only a floor is known), or
+    # -inf (not established at all); read by explorer.plant_source for limits
+    floors: dict[str, float] = {"phase_margin_deg": -math.inf, "delay_margin_s": -math.inf,
+                                "gain_margin_db": -math.inf}
     if wc.size and known:
         xs = np.log(wc)
         r = np.full(wc.size, i)
@@ -591,6 +596,7 @@ def _assemble(
         pmr = math.radians(float(pm[j]))
         err["delay_margin_s"] = (pm_err_rad + abs(pmr) * dx) / float(wc[j]) if pmr > 0 else 0.0
     elif not wc.size and known:
+        floors["phase_margin_deg"] = floors["delay_margin_s"] = math.inf
         outside.append("no crossover in the band, and none above or below it under the "
                        "assumptions: |L| < 1 everywhere" if l_bot < 1 else
                        "no crossover in the band")
@@ -598,6 +604,12 @@ def _assemble(
     in_band = xp >= plant.x_lo
     gm_cand = in_band & (lm_p < 0)
     below_gm = (~in_band) & (lm_p < 0)
+    lower = lm_p > 0
+    if known and np.any(lower):
+        res["lower_gain_margin_db"] = float(np.max(-_DB * lm_p[lower]))
+    floor_gm = -_DB * math.log(l_top) if 0 < l_top < 1 else -math.inf
+    if np.any(below_gm):
+        floor_gm = min(floor_gm, float(np.min(-_DB * lm_p[below_gm])))
     if np.any(gm_cand):
         gms = -_DB * lm_p[gm_cand]
         j = int(np.argmin(gms))
@@ -608,6 +620,7 @@ def _assemble(
             outside.append("a phase crossover with |L| < 1 below the band (in the "
                            "extrapolation) would set a smaller gain margin: not established")
         elif l_top < 1 and top_margin < gm:
+            floors["gain_margin_db"] = floor_gm
             outside.append(f"|L| = {l_top:.3g} at the top of the band: a phase crossover "
                            f"above the band could leave only {top_margin:.3g} dB; the gain "
                            "margin is not established")
@@ -624,6 +637,7 @@ def _assemble(
             err["phase_crossover_rad_s"] = math.exp(xj) * math.expm1(dx)
             err["gain_margin_db"] = _DB * (em + smag * dx)
     elif l_top < 1:
+        floors["gain_margin_db"] = floor_gm
         top_margin = -_DB * math.log(l_top)
         outside.append(f"no phase crossover with |L| < 1 in the band; above it the margin "
                        f"is at least {top_margin:.3g} dB under the assumptions")
@@ -715,6 +729,9 @@ def _assemble(
     ]
     res["outside_band"] = outside
     res["assumptions"] = assumptions
+    if not known:
+        floors["gain_margin_db"] = -math.inf
+    res["margin_floors"] = floors
     return res
 
 
@@ -733,8 +750,12 @@ def loop_metrics_on_data(
     ``closed_loop_stable``, ``closed_loop_rhp_poles``, ``hf_gain``,
     ``integral_gain``; extras ``band_rad_s``, ``interpolation_error`` (the bound on
     each reported metric, same units), ``low_coherence_points``, ``outside_band``
-    (why a metric is null), ``assumptions``. A value that depends on the loop
-    outside the band is null, with the reason in ``outside_band``.
+    (why a metric is null), ``assumptions``, ``lower_gain_margin_db`` (phase crossovers
+    with |L| > 1, in the band or its low-frequency extrapolation), and
+    ``margin_floors``: for phase, gain and delay margin, what a null value is known to
+    be at least (+inf: none exists under the assumptions, i.e. infinite; a number: a
+    floor, e.g. the gain margin above the band; -inf: not established). A value that
+    depends on the loop outside the band is null, with the reason in ``outside_band``.
     """
     if comp.delay_s:
         raise DesignError("a compensator with a delay is not supported on measured data")

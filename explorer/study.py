@@ -51,7 +51,9 @@ MAX_SEARCH_ORDER = 6
 _TOP_KEYS = ("name", "plant", "targets", "limits", "search", "compensator", "variation")
 _ROOT_FORM = ("gain", "zeros", "poles")
 _POLY_FORM = ("num", "den")
-_PLANT_KEYS = (*_ROOT_FORM, *_POLY_FORM, "delay")
+_PLANT_KEYS = (*_ROOT_FORM, *_POLY_FORM, "delay", "data", "unstable_poles", "integrators")
+#: keys of a model plant that a measured plant (``plant.data``) replaces
+_MODEL_KEYS = (*_ROOT_FORM, *_POLY_FORM, "delay")
 _COMP_KEYS = ("name", *_ROOT_FORM, *_POLY_FORM)
 _VARIATION_KEYS = ("gain", "delay", "time_scale", "member")
 #: Largest hi/lo of a [variation] gain or time_scale factor range.
@@ -69,7 +71,11 @@ _TARGET_KEYS = (
     "error_constant",
     "crossover_tolerance",
 )
-_SEARCH_KEYS = ("max_order", "trials", "seed", "cancel_lightly_damped", "max_pole_ratio")
+_SEARCH_KEYS = ("max_order", "trials", "seed", "cancel_lightly_damped", "max_pole_ratio",
+                "sample_time", "compute_delay")
+#: Most whole sample periods in the sampled loop's delay (plant delay + computation
+#: delay): the sampled loop carries one state per period of delay.
+MAX_DELAY_SAMPLES = 10000
 
 #: docs/interface.md "Crossover tolerance": default relative tolerance of a numeric target.
 DEFAULT_CROSSOVER_TOLERANCE = 1e-4
@@ -168,6 +174,11 @@ class SearchOptions:
     cancel_lightly_damped: bool = False
     #: practical limit: no compensator pole faster than this multiple of the crossover
     max_pole_ratio: float = DEFAULT_MAX_POLE_RATIO
+    #: the controller's sample period T (s): the search ranks and checks the sampled
+    #: loop (ZOH, Tustin with prewarping at each design's crossover); None: continuous
+    sample_time_s: float | None = None
+    #: the computation delay τc (s) from sampling to output, with ``sample_time_s``
+    compute_delay_s: float = 0.0
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -204,6 +215,9 @@ class Study:
     search: SearchOptions
     compensators: tuple[NamedCompensator, ...]
     variation: Variation | None = None
+    #: a measured plant (``[plant] data``, docs/measured-data.md): an
+    #: explorer.plant_source.MeasuredPlant; ``plant`` is then the model fitted to it
+    measured: Any = None
 
 
 # -- entry points ---------------------------------------------------------------------------
@@ -306,14 +320,35 @@ def parse_study(data: dict[str, Any], source: str = "<study>") -> Study:
 
     plant_tab = _table(data, "plant", "", required=True)
     _check_keys(plant_tab, _PLANT_KEYS, "plant")
-    plant = _rational(plant_tab, "plant", allow_delay=True)
-    _require_proper(plant, plant_tab, "plant", "plant", "")
+    measured = None
+    if "data" in plant_tab:
+        plant, measured = _measured(plant_tab, source)
+    else:
+        for key in ("unstable_poles", "integrators"):
+            if key in plant_tab:
+                raise StudyFileError(f"plant.{key}", "is only used with `plant.data` (a "
+                                                     "measured plant)")
+        plant = _rational(plant_tab, "plant", allow_delay=True)
+        _require_proper(plant, plant_tab, "plant", "plant", "")
 
     targets = _targets(_table(data, "targets", "", required=True))
     limits = _limits(_table(data, "limits", "", required=False))
     search = _search(_table(data, "search", "", required=False))
+    _check_sampling(search, plant, measured, "variation" in data)
     compensators = _compensators(data.get("compensator"))
-    _check_domain(plant, plant_tab, targets, compensators, data.get("compensator"))
+    if measured is None:
+        _check_domain(plant, plant_tab, targets, compensators, data.get("compensator"))
+    else:
+        try:
+            _check_domain(plant, {}, targets, compensators, data.get("compensator"))
+        except StudyFileError as exc:
+            if not exc.key.startswith("plant"):
+                raise
+            raise StudyFileError("plant.data", f"gives a fitted model outside the numerical "
+                                               f"domain: {exc.message}") from None
+        if "variation" in data:
+            raise StudyFileError("variation", "is not supported with a measured plant "
+                                              "(`plant.data`)")
     variation = None
     if "variation" in data:
         variation = _variation(_table(data, "variation", "", required=True), plant)
@@ -326,7 +361,40 @@ def parse_study(data: dict[str, Any], source: str = "<study>") -> Study:
         search=search,
         compensators=compensators,
         variation=variation,
+        measured=measured,
     )
+
+
+def _measured(tab: Mapping[str, Any], source: str) -> tuple[Rational, Any]:
+    """``[plant] data`` (docs/measured-data.md): the sweep read relative to the study
+    file, the model fitted to it. Returns (fitted model, MeasuredPlant)."""
+    from explorer.measured import read_sweep  # lazy: these import this module
+    from explorer.plant_source import measured_plant
+
+    clash = next((k for k in _MODEL_KEYS if k in tab), None)
+    if clash is not None:
+        raise StudyFileError("plant.data", f"and `plant.{clash}` are both given: a measured "
+                                           "plant replaces gain/zeros/poles/delay (the model "
+                                           "is fitted to the data)")
+    name = _opt_string(tab, "data", "plant")
+    if name is None or not name.strip():
+        raise StudyFileError("plant.data", "must name a CSV file (a non-empty string)")
+    unstable = 0
+    if "unstable_poles" in tab:
+        unstable = _int(tab["unstable_poles"], "plant.unstable_poles", low=0, high=MAX_ROOTS)
+    integrators = None
+    if "integrators" in tab:
+        integrators = _int(tab["integrators"], "plant.integrators", low=0,
+                           high=MAX_INTEGRATORS)
+    base = Path(source).parent if source and not source.startswith("<") else Path()
+    sweep = read_sweep(base / name, key="plant.data", shown=name)
+    try:
+        mp = measured_plant(sweep, unstable_poles=unstable, integrators=integrators,
+                            shown=name)
+    except (ValueError, np.linalg.LinAlgError, ArithmeticError) as exc:
+        raise StudyFileError("plant.data", f"{name}: no model could be fitted to the data "
+                                           f"({_one_line(str(exc))[:120]})") from None
+    return mp.fit.model, mp
 
 
 # -- sections ---------------------------------------------------------------------------------
@@ -469,7 +537,43 @@ def _search(tab: Mapping[str, Any]) -> SearchOptions:
     if "max_pole_ratio" in tab:
         kw["max_pole_ratio"] = _number(tab["max_pole_ratio"], "search.max_pole_ratio", low=1.0,
                                        low_incl=False, high=MAX_POLE_RATIO_LIMIT)
+    if "sample_time" in tab:
+        kw["sample_time_s"] = _number(tab["sample_time"], "search.sample_time", low=0.0,
+                                      low_incl=False, high=1.0 / FREQ_MIN, unit=" s")
+    if "compute_delay" in tab:
+        if "sample_time" not in tab:
+            raise StudyFileError("search.compute_delay", "needs `search.sample_time` (the "
+                                                         "computation delay of a sampled "
+                                                         "controller)")
+        kw["compute_delay_s"] = _number(tab["compute_delay"], "search.compute_delay", low=0.0,
+                                        high=1.0 / FREQ_MIN, unit=" s")
     return SearchOptions(**kw)
+
+
+def _check_sampling(search: SearchOptions, plant: Rational, measured: Any,
+                    family: bool) -> None:
+    """A sampled search needs a model plant (and, for now, one plant: no
+    ``[variation]``) and a delay of at most MAX_DELAY_SAMPLES sample periods; the
+    Nyquist frequency π/T must lie in the numerical domain."""
+    T = search.sample_time_s
+    if T is None:
+        return
+    if measured is not None:
+        raise StudyFileError("search.sample_time", "sampled search needs a model plant "
+                                                   "(`plant.data` is a measured sweep)")
+    if family:
+        raise StudyFileError("search.sample_time", "is not supported with a plant family "
+                                                   "(`[variation]`) yet")
+    if not (FREQ_MIN <= math.pi / T <= FREQ_MAX):
+        raise StudyFileError("search.sample_time", f"gives a Nyquist frequency π/T = "
+                                                   f"{math.pi / T:.3g} rad/s outside "
+                                                   f"[{FREQ_MIN:g}, {FREQ_MAX:g}] rad/s")
+    periods = (plant.delay_s + search.compute_delay_s) / T
+    if periods > MAX_DELAY_SAMPLES:
+        raise StudyFileError("search.sample_time", f"is {periods:.3g} times shorter than the "
+                                                   f"plant and computation delay; at most "
+                                                   f"{MAX_DELAY_SAMPLES} periods of delay are "
+                                                   "supported")
 
 
 def _compensators(value: Any) -> tuple[NamedCompensator, ...]:

@@ -37,7 +37,7 @@ from explorer import metric_registry as _registry
 from explorer.errors import LoopscoutError
 from explorer.evaluate import CROSSOVER_REL_TOL, PHASE_MARGIN_TOL_DEG
 from explorer.loop import Rational, hidden_unstable_mask
-from explorer.metrics import frequency_metrics_batch
+from explorer.plant_source import balance_plant, frequency_batch
 from explorer.structures import Structure, balance
 from explorer.study import LIMIT_KEYS, Targets, Variation
 
@@ -90,6 +90,13 @@ class Problem:
     #: the plant family (study ``[variation]``): stability, limits and objectives are
     #: then taken at their worst over it (explorer.family); None for one plant
     variation: Variation | None = None
+    #: a measured plant (explorer.plant_source.MeasuredPlant): frequency metrics are
+    #: then read on the data, ``plant`` is the fitted model (time responses, scaling)
+    measured: Any = None
+    #: the controller's sample period (s) and computation delay (s): the search then
+    #: balances, constrains and ranks on the sampled loop (explorer.sampled_search)
+    sample_time_s: float | None = None
+    compute_delay_s: float = 0.0
 
     @property
     def searched_wc(self) -> bool:
@@ -163,7 +170,12 @@ def evaluate_batch(
 
     n = wc_rad_s.shape[0]
     pm_row = np.full(n, problem.pm_deg) if pm_deg is None else np.asarray(pm_deg, float)
-    b = balance(problem.plant, s, params, wc_rad_s, pm_row)
+    b = balance(balance_plant(problem.plant, problem.measured), s, params, wc_rad_s, pm_row)
+    sampled = None
+    if problem.sample_time_s is not None:  # the sampled loop (explorer.sampled_search)
+        from explorer.sampled_search import sampled_balance
+
+        b, sampled = sampled_balance(problem, s, params, wc_rad_s, pm_row)
     ok = b.shortfall_deg == 0.0
     metrics: dict[str, np.ndarray] = {}
     keys = (
@@ -190,19 +202,30 @@ def evaluate_batch(
     if idx.size:
         try:
             g, z, p = b.gain[idx], b.zeros[idx], b.poles[idx]
-            fm = frequency_metrics_batch(problem.plant, g, z, p)
+            fm = frequency_batch(problem.plant, problem.measured, g, z, p)
             # internal stability: a cancellation in the closed right half plane (an
             # integrator on a plant zero at s = 0) hides a mode the Nyquist count misses
             stable = np.asarray(fm["closed_loop_stable"], bool) & ~hidden_unstable_mask(
                 problem.plant, z, p
             )
-            tm = (
-                step_metrics_batch(problem.plant, g, z, p, stable=stable) if time_domain else {}
-            )
+            # a measured plant: step responses from the fitted model only when it is good
+            timed = time_domain and (problem.measured is None
+                                     or problem.measured.fit.time_from_fit)
+            if sampled is not None:  # readings and step figures of the sampled loop
+                from explorer.sampled_search import sampled_readings
+
+                fm, tm = sampled_readings(problem, sampled, fm,
+                                          hidden_unstable_mask(problem.plant, z, p), timed)
+                stable = np.asarray(fm["closed_loop_stable"], bool)
+            else:
+                tm = step_metrics_batch(problem.plant, g, z, p, stable=stable) if timed else {}
             for k in keys:
                 src = fm if k in fm else tm
                 if k in src:
                     metrics[k][idx] = np.asarray(src[k], float)
+            for k in fm:  # a measured plant: what a null margin is known to be at least
+                if k.startswith("floor_"):
+                    metrics.setdefault(k, np.full(n, np.inf))[idx] = fm[k]
             metrics["closed_loop_stable"][idx] = stable
             if problem.variation is not None:
                 _family_into(problem, g, z, p, fm, tm, time_domain, idx, metrics)
@@ -247,8 +270,10 @@ def evaluate_batch(
         scale = max(abs(bound), 1e-9)
         if LIMIT_KEYS[key] == "upper":
             c = np.where(np.isnan(v), 1.0, np.maximum(v - bound, 0.0) / scale)
-        else:  # null margin = infinite: holds
-            c = np.where(np.isnan(v), 0.0, np.maximum(bound - v, 0.0) / scale)
+        else:  # null margin = infinite: holds (on data: if its known floor holds)
+            null_ok = metrics.get("floor_" + key, np.full(n, np.inf)) >= bound
+            c = np.where(np.isnan(v), np.where(null_ok, 0.0, 1.0),
+                         np.maximum(bound - v, 0.0) / scale)
         cons.append(np.where(ok, c, 0.0))
     constraints = np.stack(cons, axis=1)
     vals = [metrics["sensitivity_peak"], metrics["hf_gain"], metrics["iae_load"]]

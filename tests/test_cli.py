@@ -51,7 +51,14 @@ def test_check_json_follows_interface(path: Path, capsys: pytest.CaptureFixture[
         assert set(METRIC_KEYS) <= set(design["metrics"])
         assert isinstance(design["meets_targets"], bool)
         # the numbers are the metric engine's, not a re-typed copy
-        fm = frequency_metrics(study.plant, entry.compensator)
+        if study.measured is None:
+            fm = frequency_metrics(study.plant, entry.compensator)
+        else:  # a measured plant: read on the data (explorer.measured)
+            from explorer.measured import loop_metrics_on_data
+
+            fm = loop_metrics_on_data(study.measured.data, entry.compensator,
+                                      unstable_poles=study.measured.unstable_poles,
+                                      plant_integrators=study.measured.integrators)
         assert design["metrics"]["phase_margin_deg"] == fm["phase_margin_deg"]
         c = design["compensator"]
         again = Rational(

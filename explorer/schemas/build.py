@@ -110,7 +110,8 @@ EXTRA_METRICS: dict[str, Schema] = {
                                    **_NONNEG),
     "complementary_peak_rad_s": _num("extension: where Mt occurs (0 = the limit ω → 0)",
                                      **_NONNEG),
-    "closed_loop_rhp_poles": _int("extension: closed-loop right-half-plane poles (Nyquist)"),
+    "closed_loop_rhp_poles": _int("extension: closed-loop right-half-plane poles (Nyquist); "
+                                  "null on a measured plant when not established", null=True),
     "final_value": _num("extension: final value of the unit reference step response"),
     "noise_gain": _num("extension: sup of |C(jω)| for ω ≥ crossover", **_NONNEG),
     "noise_gain_ratio": _num("extension: noise_gain / |C(j crossover)|", **_NONNEG),
@@ -187,6 +188,34 @@ DESIGN: Schema = _obj(
         "refined": {"type": "boolean",
                     "description": "extension (explore, optimized): locally refined"},
         "dominates": _str_list("extension (explore, optimized): hand designs it dominates"),
+        # a measured plant ([plant] data, docs/measured-data.md)
+        "band_rad_s": {"type": "array", "items": {"type": "number", **_W}, "minItems": 2,
+                       "maxItems": 2,
+                       "description": "extension (measured plant): the measured band [low, "
+                                      "high]"},
+        "interpolation_error": {"type": "object", "additionalProperties": {"type": "number"},
+                                "description": "extension (measured plant): the bound on "
+                                               "each frequency metric from the "
+                                               "interpolation between measured points, "
+                                               "same units as the metric"},
+        "outside_band": _str_list("extension (measured plant): why a frequency metric is "
+                                  "null or not established (the loop outside the band)"),
+        "assumptions": _str_list("extension (measured plant): what the figures assume "
+                                 "about the plant beyond the data"),
+        "low_coherence_points": {"type": "array", "items": _obj(
+            {"row_index": _int("0-based index of the measured point"),
+             "frequency_rad_s": _num("", null=False, **_W),
+             "coherence": _num("", null=False, minimum=0, maximum=1)},
+            ["row_index", "frequency_rad_s", "coherence"]),
+            "description": "extension (measured plant): points with coherence < 0.6"},
+        "time_from_fit": {"type": "boolean",
+                          "description": "extension (measured plant): the time-domain "
+                                         "metrics come from the fitted model; false: they "
+                                         "are null (see time_note)"},
+        "time_note": {"type": ["string", "null"],
+                      "description": "extension (measured plant): why time-domain metrics "
+                                     "are withheld"},
+        "fit": {"$ref": "#/$defs/fit"},
     },
     ["name", "origin", "structure", "order", "compensator", "meets_targets", "pareto",
      "metrics", "margins_valid", "misses"],
@@ -225,11 +254,43 @@ STUDY: Schema = _obj(
     "extension: the study as read (an echo of the input, open to new keys)",
     closed=False,
 )
-STUDY["properties"]["plant"] = _obj(
+STUDY["properties"]["plant"] = {"oneOf": [_obj(
     {"gain": {"type": "number"}, "zeros": {"type": "array", "items": {"$ref": "#/$defs/root"}},
      "poles": {"type": "array", "items": {"$ref": "#/$defs/root"}},
      "delay": {"type": "number", "minimum": 0}},
     ["gain", "zeros", "poles", "delay"], closed=False,
+), _obj(
+    {"data": {"type": "string", "description": "the CSV as written in the study"},
+     "points": _int("measured points"),
+     "band_rad_s": {"type": "array", "items": {"type": "number"}},
+     "unstable_poles": _int("open-loop right-half-plane poles (given)"),
+     "integrators": _int("plant integrators (given or estimated)"),
+     "integrators_given": {"type": "boolean"},
+     "fit": {"$ref": "#/$defs/fit"}},
+    ["data", "points", "band_rad_s", "unstable_poles", "integrators", "fit"], closed=False,
+)]}
+
+#: the model fitted to a measured plant and its error over the band (explorer/fit.py)
+FIT: Schema = _obj(
+    {"model": _obj({"gain": {"type": "number"},
+                    "zeros": {"type": "array", "items": {"$ref": "#/$defs/root"}},
+                    "poles": {"type": "array", "items": {"$ref": "#/$defs/root"}},
+                    "delay": {"type": "number", "minimum": 0}},
+                   ["gain", "zeros", "poles", "delay"]),
+     "order": _int("poles of the fitted rational part"),
+     "rel_rms": _num("RMS of |model/data - 1| over the band", null=False, minimum=0),
+     "rel_max": _num("max of |model/data - 1|", null=False, minimum=0),
+     "mag_rms_db": _num("", null=False, minimum=0),
+     "mag_max_db": _num("", null=False, minimum=0),
+     "phase_rms_deg": _num("", null=False, minimum=0),
+     "phase_max_deg": _num("", null=False, minimum=0),
+     "poor": {"type": "boolean"},
+     "time_from_fit": {"type": "boolean"},
+     "threshold_rel_rms": _num("the poor-fit threshold of rel_rms", null=False),
+     "notes": _str_list("how the fit was made, and why it is poor")},
+    ["model", "order", "rel_rms", "rel_max", "mag_rms_db", "mag_max_db", "phase_rms_deg",
+     "phase_max_deg", "poor", "time_from_fit", "threshold_rel_rms", "notes"],
+    "extension (measured plant): the rational-plus-delay model fitted to the data",
 )
 
 CAUTION: Schema = {"type": "string", "minLength": 1,
@@ -244,7 +305,7 @@ def _designs(item: Schema | None = None) -> Schema:
 def _defs() -> dict[str, Schema]:
     return {"root": ROOT, "factor": FACTOR, "metrics": METRICS, "worst": WORST,
             "worst_member": WORST_MEMBER, "worst_basis": WORST_BASIS,
-            "design": DESIGN, "study": STUDY}
+            "design": DESIGN, "study": STUDY, "fit": FIT}
 
 
 def _top(name: str, title: str, props: dict[str, Schema], required: list[str],
