@@ -199,6 +199,7 @@ def design_frame(
                 "status": "meets targets" if d.get("meets_targets") else "misses targets",
                 "Ms": _num(m.get("sensitivity_peak")),
                 "hf_gain": _num(m.get("hf_gain")),
+                "noise_gain": _num(m.get("noise_gain")),
                 "iae_load": _num(m.get("iae_load")),
                 "crossover_rad_s": _num(m.get("crossover_rad_s")),
                 "phase_margin_deg": _num(m.get("phase_margin_deg")),
@@ -1137,7 +1138,7 @@ def _charts(
     df = design_frame(designs, recommended)
     all_styles = design_styles(designs)
     ms_lim = study.limits.get("sensitivity_peak")
-    for key, x, title in (("pareto_hf", "hf_gain", "noise gain |C(j∞)|"),
+    for key, x, title in (("pareto_hf", "noise_gain", "noise gain (largest |C| above crossover)"),
                           ("pareto_iae", "iae_load", "load IAE")):
         sub = df.dropna(subset=[x, "Ms"])
         if len(sub) >= 2:

@@ -187,7 +187,7 @@ def _plant_facts(study: Study) -> list[str]:
 
 # names read in a sentence ("settling 2 % 6.5 > ..." would be confusing)
 _SAY = {"settling_time_s": "settling time", "rise_time_s": "rise time",
-        "hf_gain": "noise gain |C(j∞)|", "iae_load": "load IAE"}
+        "iae_load": "load IAE"}
 _KEY_RE = re.compile(r"\b(" + "|".join(sorted(METRIC_UNITS, key=len, reverse=True)) + r")\b")
 
 
@@ -406,7 +406,7 @@ _KEY_FIGS = (
     ("phase_margin_deg", "phase margin", "{:.1f}°"),
     ("crossover_rad_s", "crossover", "{:.3g} rad/s"),
     ("gain_margin_db", "gain margin", "{:.1f} dB"),
-    ("hf_gain", "noise gain |C(j∞)|", "{:.3g}"),
+    ("noise_gain", "noise gain", "{:.3g}"),
     ("iae_load", "load IAE", "{:.3g}"),
     ("overshoot_pct", "overshoot", "{:.1f} %"),
     ("settling_time_s", "settling 2 %", "{:.3g} s"),

@@ -284,11 +284,11 @@ def test_pareto_has_the_ms_limit_line_and_log_axis_for_spread_values(kiln):
     study, ds = kiln
     ds = json.loads(json.dumps(ds))
     for d, hf in zip(ds, (0.0, 2.0, 300.0), strict=True):
-        d["metrics"]["hf_gain"] = hf
+        d["metrics"]["noise_gain"] = hf
     spec = _spec(chart_specs(study, ds)["pareto_hf"])
     assert f"Ms limit {study.limits['sensitivity_peak']:g}" in _texts(spec)
     scales = [d["scale"] for d in _walk(spec)
-              if d.get("field") == "hf_gain" and isinstance(d.get("scale"), dict)]
+              if d.get("field") == "noise_gain" and isinstance(d.get("scale"), dict)]
     assert scales and scales[0]["type"] == "symlog"  # 0 and 2..300: spans decades
 
 
