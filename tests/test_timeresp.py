@@ -912,3 +912,49 @@ def test_simulated_signals_follow_the_gain_split():
     np.testing.assert_allclose(r1.y_ref, r0.y_ref, rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(r1.u_ref * a, r0.u_ref, rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(r1.y_load / a, r0.y_load, rtol=1e-9, atol=1e-12)
+
+
+def test_huge_compensator_gain_horizon_follows_the_crossover():
+    """Kiln plant (delay removed) under a PI with gain × 1e10: the crossover (6519 rad/s,
+    far above the roots at 0.02 and 0.1 rad/s) sets the first horizon, not the slow
+    pole, and no simulation holds more than the 2^17-interval cap (it took 35 s and
+    5.2 GB at × 1e10 and was killed at × 1e12)."""
+    from explorer.metrics import frequency_metrics
+    from explorer.timeresp import _MAX_INTERVALS, _comp_arrays, _prepare
+
+    plant = Rational(gain=0.005, poles=(-0.02, -0.1))
+    for k in (1e6, 1e10, 1e20):
+        comp = Rational(gain=0.85 * k, zeros=(-0.02,), poles=(0.0,))
+        wc = frequency_metrics(plant, comp)["crossover_rad_s"]
+        # closed form: above the roots |L| ≈ 0.005·0.85k/ω², so ωc ≈ √(0.00425 k)
+        assert wc == pytest.approx(math.sqrt(0.00425 * k), rel=1e-3)
+        plan = _prepare(plant, *_comp_arrays(comp), None, None)
+        assert plan.t0_row[0] <= 12.0 / wc * 1.01
+        r = simulate_steps(plant, comp)
+        assert r.t_s.size <= 2 * _MAX_INTERVALS + 2
+
+
+@pytest.mark.slow
+def test_huge_compensator_gain_runs_in_bounded_memory():
+    # a whole batch of such designs (every row reaching the interval cap) stays in 1.5 GB
+    # of address space: rows are chunked and each chunk's trajectory is capped
+    import os
+    import subprocess
+    import sys
+
+    pytest.importorskip("resource")
+    code = (
+        "import resource; resource.setrlimit(resource.RLIMIT_AS, (3 << 29, 3 << 29))\n"
+        "import numpy as np\n"
+        "from explorer.loop import Rational\n"
+        "from explorer.timeresp import step_metrics_batch\n"
+        "n = 24\n"
+        "m = step_metrics_batch(Rational(gain=0.005, poles=(-0.02, -0.1)),\n"
+        "    0.85e10 * (1 + 0.01 * np.arange(n)), np.full((n, 1), -0.02), np.zeros((n, 1)))\n"
+        "print(int(np.isfinite(m['final_value']).sum()))\n"
+    )
+    env = {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         env={**os.environ, **env}, timeout=600)
+    assert out.returncode == 0, out.stderr[-500:]
+    assert out.stdout.split() == ["24"]
