@@ -239,6 +239,12 @@ def _grid(study: Study, designs: Sequence[dict[str, Any]]) -> np.ndarray:
     elif tc is not None:
         wcs.append(float(tc))
     wcs = [w for w in wcs if math.isfinite(w) and w > 0]
+    mp = getattr(study, "measured", None)
+    if mp is not None:  # a measured plant: the whole band, and a decade either side
+        lo, hi = mp.data.band_rad_s
+        lo_w = min([lo, *wcs]) if wcs else lo
+        hi_w = max([hi, *wcs]) if wcs else hi
+        return np.logspace(math.log10(lo_w) - 1, math.log10(hi_w) + 0.5, N_FREQ)
     if not wcs:  # no crossover known: span the plant's own corner frequencies
         p = study.plant
         wcs = [abs(r) for r in (*p.poles, *p.zeros) if abs(r) > 0]
@@ -860,8 +866,48 @@ def _target_wc(study: Study) -> list[float]:
     return list(tc) if isinstance(tc, tuple) else ([] if tc is None else [float(tc)])
 
 
+def measured_frame(study: Study, comp: Rational | None = None) -> pd.DataFrame:
+    """A measured plant's points (``[plant] data``): omega_rad_s, mag_db, phase_deg,
+    coherence_low — of the plant, or of the loop C·P with ``comp``; the phase moved by
+    whole turns onto the branch of the fitted model drawn beside it. Empty without data."""
+    mp = getattr(study, "measured", None)
+    if mp is None:
+        return pd.DataFrame(columns=["omega_rad_s", "mag_db", "phase_deg", "coherence_low"])
+    w = mp.data.omega_rad_s
+    val = mp.data.response
+    ph = np.degrees(mp.data.phase_rad)
+    model = study.plant
+    if comp is not None:
+        val = val * comp.freqresp(w)
+        ph = ph + np.degrees(comp.phase_rad(w))
+        model = model * comp
+    ph = ph + 360.0 * np.round((np.degrees(model.phase_rad(w)) - ph) / 360.0)
+    low = np.zeros(w.size, bool)
+    low[mp.data.low_coherence_rows()] = True
+    return pd.DataFrame({"omega_rad_s": w, "mag_db": 20 * np.log10(np.abs(val)),
+                         "phase_deg": ph, "coherence_low": low})
+
+
+def _measured_marks(md: pd.DataFrame, x: Any, band: tuple[float, float]) -> tuple[Any, Any]:
+    """Measured points (hollow where the coherence is low) and the band's limits, for
+    the gain and the phase panel."""
+    md = md.assign(point=np.where(md["coherence_low"], "measured, coherence < 0.6",
+                                  "measured"))
+    enc = dict(x=x, shape=alt.Shape("point:N", title=None, legend=alt.Legend(orient="bottom")),
+               tooltip=[alt.Tooltip("omega_rad_s:Q", format=".4g", title="ω (rad/s)"),
+                        alt.Tooltip("mag_db:Q", format=".4g", title="dB"),
+                        alt.Tooltip("phase_deg:Q", format=".4g", title="deg")])
+    pts = alt.Chart(md).mark_point(color=_INK, size=28, filled=False)
+    mag = pts.encode(y="mag_db:Q", **enc)
+    ph = pts.encode(y="phase_deg:Q", **enc)
+    lim = _vrule(list(band), "measured band", dash=(1, 2))
+    return mag + lim, ph + lim
+
+
 def plant_chart(pf: pd.DataFrame, study: Study) -> alt.VConcatChart:
-    """The plant alone: |P| (dB) and continuous phase (deg, delay included) against log ω."""
+    """The plant alone: |P| (dB) and continuous phase (deg, delay included) against log ω.
+    A measured plant: the fitted model as the line, the measured points and the band's
+    limits over it."""
     x_scale, x_axis = _log_x(pf["omega_rad_s"])
     x = alt.X("omega_rad_s:Q", title="frequency ω (rad/s)", scale=x_scale, axis=x_axis)
     tip = [alt.Tooltip("omega_rad_s:Q", format=".4g", title="ω (rad/s)")]
@@ -881,8 +927,14 @@ def plant_chart(pf: pd.DataFrame, study: Study) -> alt.VConcatChart:
     if wc:
         mag_l = mag_l + _vrule(wc, "target crossover")
         ph_l = ph_l + _vrule(wc, "target crossover")
+    mp = getattr(study, "measured", None)
+    what = "|P(jω)|"
+    if mp is not None:
+        m_pts, p_pts = _measured_marks(measured_frame(study), x, mp.data.band_rad_s)
+        mag_l, ph_l = mag_l + m_pts, ph_l + p_pts
+        what = "|P(jω)|: measured points, the fitted model as the line"
     return alt.vconcat(
-        mag_l.properties(width=_W, height=170, title="Plant gain |P(jω)|"),
+        mag_l.properties(width=_W, height=170, title=f"Plant gain {what}"),
         ph_l.properties(width=_W, height=170, title="Plant phase (continuous, delay included)"),
     )
 
@@ -890,8 +942,11 @@ def plant_chart(pf: pd.DataFrame, study: Study) -> alt.VConcatChart:
 def bode_charts(
     fr: pd.DataFrame, study: Study, pick: alt.Parameter,
     styles: dict[str, DesignStyle] | None = None, recommended: str | None = None,
+    measured_loop: tuple[str, pd.DataFrame] | None = None,
 ) -> alt.VConcatChart:
-    """|L| (dB) and continuous phase (deg) against log ω with the target marks."""
+    """|L| (dB) and continuous phase (deg) against log ω with the target marks;
+    ``measured_loop``: (design name, :func:`measured_frame` of its loop) for a measured
+    plant, drawn as points with the band's limits."""
     styles = styles or design_styles([{"name": n} for n in dict.fromkeys(fr["name"])])
     wc = _target_wc(study)
     mag: Any = _line(fr, "mag_db", "|L| (dB)", pick, styles, recommended).add_params(pick)
@@ -905,8 +960,19 @@ def bode_charts(
     pm = study.targets.phase_margin_deg or study.limits.get("phase_margin_deg")
     if pm is not None:
         ph = ph + _hrule(-180.0 + pm, f"−180° + PM target ({pm:g}°)", dash=(2, 3))
+    mp = getattr(study, "measured", None)
+    title = "Loop gain |L(jω)|"
+    if mp is not None and measured_loop is not None:
+        # one design's loop on the measured points (the recommended, or the first drawn)
+        name, md = measured_loop
+        md = md[md["phase_deg"] >= -450.0]
+        x_scale, x_axis = _log_x(fr["omega_rad_s"])
+        x = alt.X("omega_rad_s:Q", scale=x_scale, axis=x_axis)
+        m_pts, p_pts = _measured_marks(md, x, mp.data.band_rad_s)
+        mag, ph = mag + m_pts, ph + p_pts
+        title += f" (points: {name} on the measured data; lines: with the fitted model)"
     return alt.vconcat(
-        mag.properties(width=_W, height=200, title="Loop gain |L(jω)|"),
+        mag.properties(width=_W, height=200, title=title),
         ph.properties(width=_W, height=200, title="Loop phase (continuous, delay included)"),
     )
 
@@ -1152,7 +1218,21 @@ def _charts(
     sel = response_designs(designs, recommended)
     styles = {str(d["name"]): all_styles[str(d["name"])] for d in sel}
     fr = frequency_frame(study, sel)
-    out["bode"] = bode_charts(fr, study, pick, styles, recommended)
+    m_loop = None
+    if getattr(study, "measured", None) is not None and sel:
+        first = next((d for d in sel if str(d["name"]) == recommended), sel[0])
+        m_loop = (str(first["name"]), measured_frame(study, _comp(first)))
+        mp = study.measured
+        lo, hi = mp.data.band_rad_s
+        notes.append(
+            f"Measured plant ({mp.shown}, {mp.data.omega_rad_s.size} points, band "
+            f"{lo:.4g} to {hi:.4g} rad/s): every frequency figure in the tables is read on "
+            "the data; the curves are drawn with the model fitted to it (relative RMS error "
+            f"{100 * mp.fit.rel_rms:.2g} % over the band), the measured points over them.")
+        if mp.fit.time_from_fit:
+            notes.append("Step and load responses come from the fitted model "
+                         "(time_from_fit), not from the data.")
+    out["bode"] = bode_charts(fr, study, pick, styles, recommended, m_loop)
     out["nichols"] = nichols_chart(fr, _ms(study), pick, styles, recommended)
     out["sensitivity"] = sensitivity_chart(
         fr, _ms(study), pick, styles, recommended, study.limits.get("complementary_peak")
@@ -1160,8 +1240,13 @@ def _charts(
     focus = [str(d["name"]) for d in sel if d.get("meets_targets")]
     if recommended is not None:
         focus = [recommended] + [n for n in focus if n != recommended][:2]
-    st = step_frame(study, sel, focus=focus or None)
-    if len(st):
+    no_time = getattr(study, "measured", None) is not None and \
+        not study.measured.fit.time_from_fit
+    st = step_frame(study, sel, focus=focus or None) if not no_time else pd.DataFrame()
+    if no_time:
+        notes.append("No step responses: the model fitted to the measured data is poor "
+                     "(time-domain figures withheld).")
+    elif len(st):
         out["steps"] = step_charts(st, study, pick, styles, recommended)
         iae = {str(d["name"]): _num(d["metrics"].get("iae_load")) for d in sel}
         out["load"] = load_chart(st, pick, styles, recommended, iae)

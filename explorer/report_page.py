@@ -149,11 +149,19 @@ def factored(comp: dict[str, Any]) -> str:
 
 
 def plant_factored(study: Study) -> str:
-    """The plant in factored form, with its delay as e^(−τs)."""
+    """The plant in factored form, with its delay as e^(−τs); a measured plant is named
+    by its file and band, with the model fitted to it."""
     p = study.plant
     txt = factored({"gain": p.gain, "zeros": list(p.zeros), "poles": list(p.poles)})
     if p.delay_s > 0:
         txt += f" · e^(−{p.delay_s:.4g}s)"
+    mp = getattr(study, "measured", None)
+    if mp is not None:
+        lo, hi = mp.data.band_rad_s
+        txt = (f"measured sweep {mp.shown} ({mp.data.omega_rad_s.size} points, "
+               f"{lo:.4g} to {hi:.4g} rad/s); fitted model {txt}, relative RMS error "
+               f"{100 * mp.fit.rel_rms:.2g} % over the band"
+               + ("" if mp.fit.time_from_fit else " (poor: no step responses)"))
     return txt
 
 
