@@ -678,26 +678,38 @@ def worst_of_design(plant: Rational, v: Variation, comp: Rational,
         wm = Member(gain_factor=gf, delay_s=d, time_scale=sg,
                     plant=scaled_plant(plant, gf, d, sg), label="inside the box")
     stable = bool(fw["closed_loop_stable"][0])
-    tset = list(members)
+    box = has_box(plant, v)
+    # with a box its corners are on the refinement's lattice (explorer.family_time)
+    tset = [m for m in members if not box or m.gain_factor is None or m.label == "nominal"]
     if who < 0:
         tset.append(wm)
     tkeys = ("overshoot_pct", "settling_time_s", "iae_load")
     tw: dict[str, float | None] = {k: None for k in tkeys}
+    refinement = None
     if stable:
         vals: dict[str, list[float | None]] = {k: [] for k in tkeys}
+        tms: list[dict[str, Any]] = []
         for i, m in enumerate(tset):
             if i == 0:
                 tm = {k: nominal.get(k) for k in tkeys}
             else:
                 st = True
-                if i >= len(members):
+                if m.label == "inside the box":
                     st = bool(frequency_metrics(m.plant, comp)["closed_loop_stable"])
                 tm = step_metrics(m.plant, comp, stable=st) if st else {k: None for k in tkeys}
+            tms.append(tm)
             for k in tkeys:
                 x = tm.get(k)
                 vals[k].append(None if x is None or not math.isfinite(float(x)) else float(x))
         for k in tkeys:
             tw[k] = None if any(x is None for x in vals[k]) else max(vals[k])  # type: ignore
+        if box:
+            from explorer.family_time import box_time_worst
+
+            refinement = box_time_worst(plant, v, comp, extra=tms)
+            for k in tkeys:
+                r = refinement.values[k]
+                tw[k] = None if r is None or tw[k] is None else max(tw[k], r)  # type: ignore
     worst: dict[str, Any] = {}
     for k in WORST_KEYS:
         if k == "closed_loop_stable":
@@ -713,8 +725,23 @@ def worst_of_design(plant: Rational, v: Variation, comp: Rational,
                          "time_scale": wm.time_scale, "where": wm.label},
         "worst_basis": {
             "frequency": "every member of the box (sector geometry) and every listed member",
-            "time": [m.label for m in tset],
+            "time": [m.label for m in tset] + ([_refinement_line(refinement)]
+                                               if refinement is not None else []),
             "time_scale_bound": float(fw["time_scale_bound"][0]),
             "time_scale_gap": float(fw["time_scale_gap"][0]),
+            **({"time_refinement": refinement.to_dict()} if refinement is not None else {}),
         },
     }
+
+
+def _refinement_line(r: Any) -> str:
+    """One line of ``worst_basis.time`` on the box refinement (explorer.family_time)."""
+    if r.converged:
+        state = "converged to the tolerance"
+    else:
+        left = [f"{k}: {n} cell(s) above the tolerance" for k, n in r.unresolved.items() if n]
+        left += [f"{k}: {n} cell(s) across a jump" for k, n in r.jumps.items() if n]
+        state = ("not converged (member cap hit" if r.cap_hit else "not converged (") + \
+            ("; " if r.cap_hit and left else "") + "; ".join(left) + ")"
+    return (f"the box: {r.points} members by adaptive refinement (tolerance: overshoot "
+            "0.2 percentage points, settling time 1 %, load IAE 1 %), " + state)
