@@ -282,6 +282,14 @@ def implementation(study: Any, comp: Any, *, name: str, sample_time_s: float,
     wc = cont.get("crossover_rad_s")
     warnings: list[str] = []
     notes: list[str] = []
+    mp = getattr(study, "measured", None)
+    if mp is not None:  # a measured plant: the hand-off reads the model fitted to it
+        warnings.append(
+            f"the plant is a measured sweep ({mp.shown}): the continuous and sampled "
+            f"figures here come from the model fitted to it (relative RMS error "
+            f"{100 * mp.fit.rel_rms:.2g} % over the band)"
+            + ("; the fit is POOR — check and balance read the data, use their figures"
+               if mp.fit.poor else "; check and balance read the data itself"))
     used_method = method
     wp = None
     if method == "tustin-prewarp":

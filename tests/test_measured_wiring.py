@@ -327,3 +327,22 @@ def test_bundled_hopper_study_runs_through_every_command(
                           "--designs", str(tmp_path / "x" / "designs.json"),
                           "--out", str(tmp_path / "again.html"))
     assert code == 0, err
+
+
+def test_report_points_are_the_measured_data(tmp_path: Path) -> None:
+    from explorer.report import measured_frame, plant_chart, plant_frame
+
+    data_study, _ = _studies(tmp_path, 20)
+    st = load_study(data_study)
+    w = _grid(20)
+    md = measured_frame(st)
+    # the points are the sweep (here: the invented model's closed form), not the fit
+    np.testing.assert_allclose(md["mag_db"], 20 * np.log10(np.abs(MODEL.freqresp(w))),
+                               rtol=1e-12, atol=1e-9)
+    # on the fitted model's phase branch (within the fit's phase error, far below a turn)
+    assert np.all(np.abs(md["phase_deg"] - np.degrees(st.plant.phase_rad(w))) < 5.0)
+    loop = measured_frame(st, PI)
+    np.testing.assert_allclose(loop["mag_db"],
+                               20 * np.log10(np.abs((MODEL * PI).freqresp(w))), atol=1e-9)
+    spec = json.dumps(plant_chart(plant_frame(st), st).to_dict())
+    assert "measured band" in spec and "coherence" in spec
