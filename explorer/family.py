@@ -44,8 +44,11 @@ crossover (r_lo ≤ 1 ≤ r_hi) of π + the smallest angle of the sector (wrappe
 where the sector's angles cover −180° and r_hi < 1 of −20·log10 r_hi. Evaluated on
 the grid and at the edges of those frequency sets (crossovers of the extreme
 members, refined by bisection), combined with the exact margins of the sampled
-members. Time-domain worst values have no such geometry: they are the worst over
-a stated finite set (:func:`time_members`).
+members. Time-domain worst values have no such geometry: over the box they are
+estimated by an adaptive refinement to a stated tolerance (explorer.family_time),
+combined with the nominal plant, the listed members and the worst-Ms member
+(:func:`worst_of_design`); the search uses the cheaper finite set
+:func:`search_time_members`.
 """
 
 from __future__ import annotations
@@ -166,7 +169,8 @@ def sampled_members(plant: Rational, v: Variation) -> list[Member]:
 
 def search_time_members(plant: Rational, v: Variation) -> list[Member]:
     """The smaller set the search takes step responses over (the final re-check of
-    every reported design uses :func:`time_members`): nominal, the corners at the
+    every reported design refines the whole box, :func:`worst_of_design`): nominal,
+    the corners at the
     largest delay with the extreme gains and time scales, and the listed members."""
     g, d, s = _ranges(plant, v)
     return [m for m in sampled_members(plant, v)
@@ -174,8 +178,8 @@ def search_time_members(plant: Rational, v: Variation) -> list[Member]:
 
 
 def time_members(plant: Rational, v: Variation) -> list[Member]:
-    """The finite set the time-domain worst values are taken over (besides the
-    worst-Ms member of each design): nominal, every corner, every listed member."""
+    """Nominal, every corner, every listed member (the report's step responses; the
+    reported worst step figures refine the whole box, explorer.family_time)."""
     return sampled_members(plant, v)
 
 
@@ -657,9 +661,12 @@ def worst_of_design(plant: Rational, v: Variation, comp: Rational,
 
     ``nominal``: the design's METRICS on the nominal plant (its time-domain values are
     reused). Frequency keys: the whole family (:func:`family_worst_batch`);
-    time-domain keys: the worst over the nominal plant, the corners of the box, the
-    listed members and the worst-Ms member — a finite set, named in ``worst_basis``.
-    Time-domain keys are None when any member is unstable."""
+    time-domain keys: the worst over the box by adaptive refinement
+    (:func:`explorer.family_time.box_time_worst`, a stated tolerance, an estimate) and
+    over the nominal plant, the listed members and the worst-Ms member (without a box:
+    the sampled members), named in ``worst_basis.time`` with a line on the refinement
+    and ``worst_basis.time_refinement``. Time-domain keys are None when any member is
+    unstable or any value found is None."""
     from explorer.metrics import frequency_metrics
     from explorer.timeresp import step_metrics
 
