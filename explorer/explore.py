@@ -23,6 +23,7 @@ from explorer.evaluate import evaluated_record, given_designs
 from explorer.loop import Rational
 from explorer.recommend import drop_near_duplicates, practical_misses, recommend
 from explorer.report import write_report
+from explorer.sampled_search import judged_metrics
 from explorer.structures import Structure, candidate_structures
 from explorer.study import LIMIT_KEYS, MAX_SEARCH_ORDER, Study, load_study
 
@@ -479,7 +480,9 @@ def explore(
     )
     for d in designs:
         d["practical_misses"] = practical_misses(d, study.search.max_pole_ratio)
-    frame = rank_designs(designs)
+    # a sampled controller is ranked on its sampled loop (designs.csv shows those figures)
+    frame = rank_designs([{**d, "metrics": judged_metrics(d["metrics"], d.get("sampled_metrics"))}
+                          for d in designs])
     pareto = dict(zip(frame["name"], frame["pareto"], strict=True)) if len(frame) else {}
     doms = dict(zip(frame["name"], frame["dominates_hand"], strict=True)) if len(frame) else {}
     for d in designs:

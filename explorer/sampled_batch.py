@@ -83,8 +83,8 @@ def discretize_batch(gain: np.ndarray, zeros: np.ndarray, poles: np.ndarray,
     T = float(sample_time_s)
     g = np.asarray(gain, float).ravel()
     n = g.shape[0]
-    zs = np.asarray(zeros, complex).reshape(n, -1)
-    ps = np.asarray(poles, complex).reshape(n, -1)
+    zs = _rows(zeros, n)
+    ps = _rows(poles, n)
     wp = np.asarray(prewarp_rad_s, float).ravel()
     ok = np.isfinite(wp) & (wp > 0) & (wp < math.pi / T)
     ok &= np.all(np.isfinite(zs), axis=1) & np.all(np.isfinite(ps), axis=1) & np.isfinite(g)
@@ -101,6 +101,14 @@ def discretize_batch(gain: np.ndarray, zeros: np.ndarray, poles: np.ndarray,
     nan = complex(np.nan, np.nan)
     return DiscreteBatch(gain=np.where(ok, gd, np.nan), zeros=np.where(ok[:, None], zd, nan),
                          poles=np.where(ok[:, None], pd, nan), sample_time_s=T, valid=ok)
+
+
+def _rows(a: np.ndarray, n: int) -> np.ndarray:
+    """Roots as (n, k) complex (k from a 2-D input, so that n = 0 works)."""
+    x = np.asarray(a, complex)
+    if x.ndim == 2:
+        return x.reshape(n, x.shape[1])
+    return x.reshape(n, -1) if n else np.zeros((0, 0), complex)
 
 
 def poly_rows(roots: np.ndarray) -> np.ndarray:
@@ -234,8 +242,7 @@ def sampled_metrics_batch(sp: SampledPlant, dc: DiscreteBatch, comp_gain: np.nda
     d = DiscreteBatch(gain=dc.gain[ok], zeros=dc.zeros[ok], poles=dc.poles[ok],
                       sample_time_s=T, valid=dc.valid[ok])
     cont = LoopBatch.series(sp.plant, np.asarray(comp_gain, float).ravel()[ok],
-                            np.asarray(comp_zeros, complex).reshape(n, -1)[ok],
-                            np.asarray(comp_poles, complex).reshape(n, -1)[ok])
+                            _rows(comp_zeros, n)[ok], _rows(comp_poles, n)[ok])
     cont = LoopBatch(gain=cont.gain, zeros=cont.zeros, poles=cont.poles,
                      delay_s=np.full(ok.size, sp.delay_s))
     m = ok.size
@@ -309,9 +316,7 @@ def sampled_metrics_batch(sp: SampledPlant, dc: DiscreteBatch, comp_gain: np.nda
     gm_db, garg = _per_row_min(pr[below], -20.0 * np.log10(pv[below]), m)
     w_gm = np.where(garg >= 0, pw[below][np.maximum(garg, 0)] if below.any() else np.nan, np.nan)
     # peaks |S| and |T|
-    ms, w_ms = _peaks(lambda r, w: 1.0 / np.abs(1.0 + loop_at(r, w)), 1.0 / np.abs(1.0 + L), grid)
-    mt, w_mt = _peaks(lambda r, w: np.abs(loop_at(r, w) / (1.0 + loop_at(r, w))),
-                      np.abs(L / (1.0 + L)), grid)
+    (ms, w_ms), (mt, w_mt) = _peaks(loop_at, L, grid)
     # stability
     N = sp.n + d.poles.shape[1] + sp.d + 1
     if N <= MAX_EIG_STATES:
@@ -341,37 +346,55 @@ def sampled_metrics_batch(sp: SampledPlant, dc: DiscreteBatch, comp_gain: np.nda
     return out
 
 
-def _peaks(f: Any, vals: np.ndarray, grid: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Per row: the largest value over the grid (the first point standing for ω → 0),
-    the _PEAK_CANDIDATES largest interior grid maxima refined by golden-section search in
-    ln ω (explorer.sampled._peak, vectorised)."""
-    m = vals.shape[0]
-    v = np.where(np.isfinite(vals), vals, np.inf)
-    best_i = np.argmax(v, axis=1)
-    best_v = v[np.arange(m), best_i]
-    best_w = np.where(best_i == 0, 0.0, grid[best_i])
-    inf_row = np.isinf(best_v)
-    interior = (v[:, 1:-1] >= v[:, :-2]) & (v[:, 1:-1] >= v[:, 2:])
-    score = np.where(interior, v[:, 1:-1], -np.inf)
-    k = min(_PEAK_CANDIDATES, score.shape[1])
-    if k > 0:
+def _peaks(loop_at: Any, L: np.ndarray, grid: np.ndarray
+           ) -> tuple[tuple[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]]:
+    """Per row, (value, ω) of the peaks of |S| = 1/|1 + L| and |T| = |L/(1 + L)|: the
+    largest value over the grid (the first point standing for ω → 0), the
+    _PEAK_CANDIDATES largest interior grid maxima refined by golden-section search in
+    ln ω (explorer.sampled._peak, vectorised; both peaks in one search)."""
+    m = L.shape[0]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        both = (1.0 / np.abs(1.0 + L), np.abs(L / (1.0 + L)))
+    bests, rr_all, cc_all, flag_all = [], [], [], []
+    for which, vals in enumerate(both):
+        v = np.where(np.isfinite(vals), vals, np.inf)
+        best_i = np.argmax(v, axis=1)
+        best_v = v[np.arange(m), best_i]
+        best_w = np.where(best_i == 0, 0.0, grid[best_i])
+        bests.append((best_v, best_w))
+        interior = (v[:, 1:-1] >= v[:, :-2]) & (v[:, 1:-1] >= v[:, 2:])
+        score = np.where(interior, v[:, 1:-1], -np.inf)
+        k = min(_PEAK_CANDIDATES, score.shape[1])
+        if k == 0:
+            continue
         top = np.argsort(-score, axis=1, kind="stable")[:, :k]
         rr = np.repeat(np.arange(m), k)
         cc = top.ravel() + 1
-        keep = np.isfinite(score[rr, cc - 1]) & ~inf_row[rr]
-        rr, cc = rr[keep], cc[keep]
-        if rr.size:
-            x, fx = _golden_max(lambda lw: f(rr, np.exp(lw)), np.log(grid[cc - 1]),
-                                np.log(grid[cc + 1]))
-            for_row = np.full(m, -np.inf)
-            np.maximum.at(for_row, rr, fx)
-            better = for_row > best_v
-            order = np.lexsort((-fx, rr))
-            first = order[np.r_[True, rr[order][1:] != rr[order][:-1]]]
-            first = first[better[rr[first]]]
-            best_v[rr[first]] = fx[first]
-            best_w[rr[first]] = np.exp(x[first])
-    return best_v, best_w
+        keep = np.isfinite(score[rr, cc - 1]) & ~np.isinf(best_v)[rr]
+        rr_all.append(rr[keep])
+        cc_all.append(cc[keep])
+        flag_all.append(np.full(int(keep.sum()), which))
+    if rr_all and sum(r.size for r in rr_all):
+        rr, cc, flag = np.concatenate(rr_all), np.concatenate(cc_all), np.concatenate(flag_all)
+
+        def f(lw: np.ndarray) -> np.ndarray:
+            lv = loop_at(rr, np.exp(lw))
+            with np.errstate(divide="ignore", invalid="ignore"):
+                return np.where(flag == 0, 1.0 / np.abs(1.0 + lv), np.abs(lv / (1.0 + lv)))
+
+        x, fx = _golden_max(f, np.log(grid[cc - 1]), np.log(grid[cc + 1]))
+        for which in (0, 1):
+            sel = flag == which
+            r_w, x_w, f_w = rr[sel], x[sel], fx[sel]
+            if not r_w.size:
+                continue
+            best_v, best_w = bests[which]
+            order = np.lexsort((-f_w, r_w))
+            first = order[np.r_[True, r_w[order][1:] != r_w[order][:-1]]]
+            first = first[f_w[first] > best_v[r_w[first]]]
+            best_v[r_w[first]] = f_w[first]
+            best_w[r_w[first]] = np.exp(x_w[first])
+    return bests[0], bests[1]
 
 
 def _argument_count(sp: SampledPlant, d: DiscreteBatch, grid: np.ndarray) -> np.ndarray:

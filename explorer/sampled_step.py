@@ -237,6 +237,9 @@ def sampled_step_metrics(plant: Rational, dc: DiscreteBatch, compute_delay_s: fl
     """STEP_KEYS of the sampled loop for every row (NaN = null), from
     :func:`simulate_sampled`; the horizon (one for the batch: the largest of
     ``horizon_s``) doubles up to three times while a response has not settled.
+    ``capped`` (bool per row): the row would need more than MAX_SAMPLES periods (the
+    sample time is very short against the loop's time scale); its figures are NaN and
+    the caller takes them from elsewhere.
     ``final_value`` is the closed-loop DC gain (the continuous loop's: the hold and
     Tustin keep the DC gain); rows must be stable."""
     n = dc.n
@@ -245,18 +248,27 @@ def sampled_step_metrics(plant: Rational, dc: DiscreteBatch, compute_delay_s: fl
         return out
     h = float(np.nanmax(horizon_s))
     yf = np.asarray(final_value, float)
+    capped = np.zeros(n, bool)
+    ref = ld = None
+    settled = lsettled = np.zeros(n, bool)
     for _ in range(4):
+        if h / dc.sample_time_s > MAX_SAMPLES:
+            capped = np.ones(n, bool) if ref is None else ~(settled & lsettled)
+            break
         ref = simulate_sampled(plant, dc, compute_delay_s, h, per_sample=per_sample)
         ld = simulate_sampled(plant, dc, compute_delay_s, h, load=True, per_sample=per_sample)
         t = ref.t_s
         half = band * np.abs(yf)
         ts, settled = _last_exit(t, ref.y, yf, half)
+        settled |= ~np.isfinite(yf)
         lpk = np.max(np.abs(ld.y), axis=1)
-        tl, lsettled = _last_exit(t, ld.y, np.zeros(n), 0.02 * lpk)
-        if np.all(settled | ~np.isfinite(yf)) and np.all(lsettled) or \
-                len(t) > per_sample * (MAX_SAMPLES - 1):
+        _, lsettled = _last_exit(t, ld.y, ld.y[:, -1], band * lpk)
+        if np.all(settled & lsettled):
             break
         h *= 2.0
+    out["capped"] = capped
+    if ref is None or ld is None:
+        return out
     ok = np.isfinite(yf) & (yf != 0)
     with np.errstate(divide="ignore", invalid="ignore"):
         os_ = np.maximum((np.max(ref.y * np.sign(yf)[:, None], axis=1) - np.abs(yf))
@@ -272,4 +284,6 @@ def sampled_step_metrics(plant: Rational, dc: DiscreteBatch, compute_delay_s: fl
     iae = np.trapezoid(np.abs(ld.y), t, axis=1)
     tail = np.abs(ld.y[:, -1]) <= 1e-3 * np.maximum(lpk, 1e-300)
     out["iae_load"] = np.where(lsettled & tail, iae, np.nan)
+    for k in STEP_KEYS:
+        out[k] = np.where(capped, np.nan, out[k])
     return out

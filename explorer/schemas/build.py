@@ -149,15 +149,61 @@ WORST_MEMBER: Schema = _obj(
     ["gain_factor", "delay_s", "time_scale", "where"],
     "extension ([variation]): the member with the worst sensitivity peak",
 )
+_TIME_FIGURES = ("overshoot_pct", "settling_time_s", "iae_load")
+TIME_REFINEMENT: Schema = _obj(
+    {"method": {"type": "string"},
+     "members_simulated": _int("members of the box whose step responses were simulated"),
+     "tolerance": _obj({"overshoot_pct": _num("percentage points", null=False, minimum=0),
+                        "settling_time_rel": _num("", null=False, minimum=0),
+                        "iae_load_rel": _num("", null=False, minimum=0)},
+                       ["overshoot_pct", "settling_time_rel", "iae_load_rel"]),
+     "finest_cell": _num("smallest cell, share of each range", null=False,
+                         exclusiveMinimum=0),
+     "converged": {"type": "boolean"},
+     "cap_hit": {"type": "boolean"},
+     "unresolved_cells": _obj({k: _int("") for k in _TIME_FIGURES}, list(_TIME_FIGURES)),
+     "jump_cells": _obj({k: _int("") for k in _TIME_FIGURES}, list(_TIME_FIGURES)),
+     "largest_excess": _obj({k: _num("", null=False, minimum=0) for k in _TIME_FIGURES},
+                            list(_TIME_FIGURES)),
+     "worst_at": _obj({k: {"oneOf": [{"type": "null"}, _obj(
+         {"gain_factor": _num("", null=False, exclusiveMinimum=0),
+          "delay_s": _num("", null=False, minimum=0),
+          "time_scale": _num("", null=False, exclusiveMinimum=0)},
+         ["gain_factor", "delay_s", "time_scale"])]} for k in _TIME_FIGURES},
+         list(_TIME_FIGURES), "the member of the box where each worst was found (null: "
+         "at the nominal plant or a listed member)")},
+    ["method", "members_simulated", "tolerance", "finest_cell", "converged", "cap_hit",
+     "unresolved_cells", "jump_cells", "largest_excess", "worst_at"],
+    "extension ([variation] with a range): the adaptive refinement of the step figures "
+    "over the box (docs/metrics.md)",
+)
 WORST_BASIS: Schema = _obj(
     {"frequency": {"type": "string"},
-     "time": _str_list("the members whose step responses were simulated"),
+     "time": _str_list("the members whose step responses were simulated one by one, "
+                       "then one line on the refinement over the box"),
      "time_scale_bound": _num("", minimum=0),
-     "time_scale_gap": _num("", minimum=0)},
+     "time_scale_gap": _num("", minimum=0),
+     "time_refinement": TIME_REFINEMENT},
     ["frequency", "time"],
     "extension ([variation], being built, so open to new keys): the members the worst "
     "values were taken over",
     closed=False,
+)
+
+#: extension ([search] sample_time): the design's sampled loop, what meets_targets
+#: judges (explorer/sampled_search.py; docs/explore.md "Sampled controller")
+DESIGN_SAMPLED_KEYS = ("crossover_rad_s", "crossovers_rad_s", "phase_margin_deg",
+                       "gain_margin_db", "phase_crossover_rad_s", "delay_margin_s",
+                       "sensitivity_peak", "complementary_peak", "closed_loop_stable",
+                       "overshoot_pct", "settling_time_s", "rise_time_s", "peak_control",
+                       "iae_load")
+DESIGN_SAMPLED: Schema = _obj(
+    {**{k: STABLE_METRICS[k] for k in DESIGN_SAMPLED_KEYS},
+     "lower_gain_margin_db": EXTRA_METRICS["lower_gain_margin_db"]},
+    list(DESIGN_SAMPLED_KEYS),
+    "extension ([search] sample_time): the METRICS readings of the sampled loop (C(z) by "
+    "Tustin with prewarping, zero-order hold, plant and computation delay); step figures "
+    "from the exact sampled simulation, between samples too",
 )
 
 ORIGINS = ["given", "phase-balanced", "hand", "optimized"]
@@ -175,6 +221,15 @@ DESIGN: Schema = _obj(
         "worst": {"$ref": "#/$defs/worst"},
         "worst_member": {"$ref": "#/$defs/worst_member"},
         "worst_basis": {"$ref": "#/$defs/worst_basis"},
+        "sample_time_s": _num("extension ([search] sample_time): the controller's sample "
+                              "period", null=False, exclusiveMinimum=0),
+        "compute_delay_s": _num("extension ([search] compute_delay)", null=False, minimum=0),
+        "sampled_prewarp_rad_s": _num("extension: the Tustin prewarp frequency (the "
+                                      "continuous crossover; null: plain Tustin)",
+                                      exclusiveMinimum=0),
+        "sampled_metrics": {"$ref": "#/$defs/design_sampled"},
+        "sampled_note": {"type": "string",
+                         "description": "extension: why the sampled loop has no figures"},
         "margins_valid": {"type": "boolean",
                           "description": "extension: false when the closed loop is unstable "
                                          "(margins and peaks are then no robustness margins)"},
@@ -305,7 +360,7 @@ def _designs(item: Schema | None = None) -> Schema:
 def _defs() -> dict[str, Schema]:
     return {"root": ROOT, "factor": FACTOR, "metrics": METRICS, "worst": WORST,
             "worst_member": WORST_MEMBER, "worst_basis": WORST_BASIS,
-            "design": DESIGN, "study": STUDY, "fit": FIT}
+            "design_sampled": DESIGN_SAMPLED, "design": DESIGN, "study": STUDY, "fit": FIT}
 
 
 def _top(name: str, title: str, props: dict[str, Schema], required: list[str],
