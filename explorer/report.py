@@ -1186,6 +1186,101 @@ def load_chart(
     ))
 
 
+def sampled_nichols_chart(
+    sf: pd.DataFrame, ms: float, pick: alt.Parameter, styles: dict[str, DesignStyle],
+    recommended: str | None, T: float, tc: float,
+) -> alt.LayerChart:
+    """Gain-phase chart of the continuous design C(s)·P(s) (solid) against the sampled
+    loop C(z)·H(z) (dashed; hold, plant delay, computation delay; up to π/T) for each
+    design of ``sf`` (explorer.report_sampled.sampled_loop_frame), on the |T| contours
+    and the Ms locus of the gain-phase chart."""
+    sub = sf[(sf["mag_db"] > _GP_MAG[0]) & (sf["mag_db"] < _GP_MAG[1])]
+    x = alt.X("phase_deg:Q", title="phase of L (deg)",
+              scale=alt.Scale(domain=list(_GP_PHASE), nice=False),
+              axis=alt.Axis(values=list(range(-360, 1, 45))))
+    y = alt.Y("mag_db:Q", title="|L| (dB)", scale=alt.Scale(domain=list(_GP_MAG)))
+    cf = m_contour_frame()
+    cont = alt.Chart(cf).mark_line(color="#9aa7a3", strokeWidth=0.8, clip=True).encode(
+        x=x, y=y, detail="curve:N", order="k:Q", tooltip=["label:N"])
+    labels = alt.Chart(m_contour_labels(cf)).mark_text(
+        color="#5f6b67", fontSize=10, dy=-6, align="center"
+    ).encode(x="phase_deg:Q", y="mag_db:Q", text="text:N")
+    msl = alt.Chart(ms_circle_frame(ms)).mark_line(
+        color=_LIMIT_RED, strokeWidth=2, clip=True, strokeDash=[6, 3]
+    ).encode(x="phase_deg:Q", y="mag_db:Q", order="k:Q", tooltip=["label:N"])
+    names = [n for n in styles if n in set(sub["name"])]
+    loops = alt.Chart(sub).mark_line(clip=True).encode(
+        x=x, y=y,
+        color=alt.Color("name:N", title="design", legend=_legend(),
+                        scale=alt.Scale(domain=names,
+                                        range=[styles[n].colour for n in names])),
+        strokeDash=alt.StrokeDash("loop:N", title="loop", legend=_legend(),
+                                  scale=alt.Scale(domain=["continuous", "sampled"],
+                                                  range=[[1, 0], [6, 3]])),
+        strokeWidth=alt.condition(_is(recommended), alt.value(3.0), alt.value(1.6)),
+        order="omega_rad_s:Q",
+        opacity=_opacity(pick),
+        tooltip=["name:N", "loop:N",
+                 alt.Tooltip("omega_rad_s:Q", format=".4g", title="ω (rad/s)"),
+                 alt.Tooltip("phase_deg:Q", format=".4g", title="phase (deg)"),
+                 alt.Tooltip("mag_db:Q", format=".3g", title="|L| (dB)")],
+    )
+    delay = f", computation delay {tc:g} s" if tc else ""
+    return (cont + labels + msl + loops).properties(
+        width=_W, height=300,
+        title=alt.TitleParams(
+            "Continuous against sampled loop",
+            subtitle=[f"sampled every T = {T:g} s{delay}; solid: the design C(s)·P(s), "
+                      "dashed: C(z) with hold",
+                      f"and delays, up to π/T = {math.pi / T:.4g} rad/s; red dashed: "
+                      f"|1+L| = 1/Ms, Ms = {ms:g}"],
+        ),
+    )
+
+
+def sampled_step_chart(
+    ys: pd.DataFrame, us: pd.DataFrame, pick: alt.Parameter,
+    styles: dict[str, DesignStyle], recommended: str | None, T: float,
+) -> alt.VConcatChart:
+    """The sampled loop's unit reference step: the plant output between samples too
+    (smooth; a dot at each sample instant when there are at most 150), and the
+    controller output u[k] as the staircase the hold applies."""
+    names = [n for n in styles if n in set(ys["name"])]
+    colour = alt.Color("name:N", title="design", legend=_legend(),
+                       scale=alt.Scale(domain=names, range=[styles[n].colour for n in names]))
+    t_max = float(ys["t_s"].max()) if len(ys) else 1.0
+    xs = alt.X("t_s:Q", title="time (s)", scale=alt.Scale(domain=[0.0, t_max], nice=False))
+    width = alt.condition(_is(recommended), alt.value(3.0), alt.value(1.6))
+    y_line = alt.Chart(ys).mark_line(clip=True).encode(
+        x=xs, y=alt.Y("y:Q", title="output y"), color=colour, strokeWidth=width,
+        opacity=_opacity(pick),
+        tooltip=["name:N", alt.Tooltip("t_s:Q", format=".4g"), alt.Tooltip("y:Q", format=".4g")],
+    )
+    layers: Any = y_line + _hrule(1.0, "", dash=(2, 3))
+    if len(ys) and t_max / T <= 150:
+        at = ys[np.isclose(np.mod(ys["t_s"] / T + 0.5, 1.0), 0.5, atol=1e-6)]
+        layers = layers + alt.Chart(at).mark_point(filled=True, size=18, clip=True).encode(
+            x=xs, y="y:Q", color=colour, opacity=_opacity(pick),
+            tooltip=["name:N", alt.Tooltip("t_s:Q", format=".4g", title="sample at (s)"),
+                     alt.Tooltip("y:Q", format=".4g")])
+    u_line = alt.Chart(us).mark_line(clip=True, interpolate="step-after").encode(
+        x=xs, y=alt.Y("u:Q", title="controller output u[k]"), color=colour,
+        strokeWidth=width, opacity=_opacity(pick),
+        tooltip=["name:N", alt.Tooltip("t_s:Q", format=".4g", title="t_k (s)"),
+                 alt.Tooltip("u:Q", format=".4g", title="u[k]")],
+    )
+    return alt.vconcat(
+        layers.properties(width=_W, height=200, title=alt.TitleParams(
+            "Sampled loop: unit reference step",
+            subtitle=[f"plant output between samples (exact); dots: the samples every "
+                      f"T = {T:g} s" if t_max / T <= 150 else
+                      "plant output between samples (exact)"])),
+        u_line.properties(width=_W, height=140, title=alt.TitleParams(
+            "controller output, held between samples",
+            subtitle=["u[k] reaches the plant after the computation and plant delays"])),
+    )
+
+
 def _ms(study: Study) -> float:
     return float(study.limits.get("sensitivity_peak", DEFAULT_MS))
 
@@ -1257,6 +1352,7 @@ def _charts(
             f"Response charts show {len(sel)} of {len(designs)} designs: the recommended, "
             "Pareto and hand designs."
         )
+    _sampled_charts(study, designs, sel, recommended, styles, pick, out, notes)
     fam = _family_design(study, designs, recommended)
     if fam is not None:
         bands, steps = family_charts(family_frame(study, fam), family_step_frame(study, fam),
@@ -1265,10 +1361,44 @@ def _charts(
         out["family_steps"] = steps
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message="Automatically deduplicated")
-        for key in ("pareto_iae", "nichols", "sensitivity", "steps", "load"):
+        for key in ("pareto_iae", "nichols", "sensitivity", "steps", "load",
+                    "sampled_nichols", "sampled_steps"):
             if key in out and key != "pareto_iae":
                 out[key] = out[key].add_params(pick)
     return out, notes
+
+
+def _sampled_charts(study: Study, designs: Sequence[dict[str, Any]],
+                    sel: Sequence[dict[str, Any]], recommended: str | None,
+                    styles: dict[str, DesignStyle], pick: alt.Parameter,
+                    out: dict[str, Any], notes: list[str]) -> None:
+    """With a sample time (the study's ``[search] sample_time``, or the designs'):
+    continuous against sampled loop for the recommended design and up to two others
+    meeting the targets, and their sampled step responses (explorer.report_sampled)."""
+    from explorer.report_sampled import sample_time_of, sampled_loop_frame, sampled_step_frames
+
+    ts = sample_time_of(study, designs)
+    if ts is None or not sel:
+        return
+    T, tc = ts
+    focus = [d for d in sel if str(d["name"]) == recommended]
+    focus += [d for d in sel if d.get("meets_targets") and d not in focus][:3 - len(focus)]
+    focus = focus or list(sel[:3])
+    try:
+        sf = sampled_loop_frame(study, focus, T, tc)
+        ys, us = sampled_step_frames(study, focus, T, tc)
+    except Exception as exc:  # noqa: BLE001 — the continuous charts stand without these
+        notes.append(f"Sampled-loop charts left out: {type(exc).__name__}: {exc}")
+        return
+    if len(sf):
+        out["sampled_nichols"] = sampled_nichols_chart(sf, _ms(study), pick, styles,
+                                                       recommended, T, tc)
+    if len(ys):
+        out["sampled_steps"] = sampled_step_chart(ys, us, pick, styles, recommended, T)
+    notes.append(f"Sampled controller (T = {T:g} s, computation delay {tc:g} s): the "
+                 "designs were judged on the sampled loop — Tustin with prewarping at each "
+                 "design's crossover, zero-order hold, plant and computation delay; the "
+                 "continuous charts above show the designs C(s)·P(s).")
 
 
 def _family_design(study: Study, designs: Sequence[dict[str, Any]],

@@ -47,6 +47,10 @@ _CHART_ORDER = {
     "sensitivity": "|S| peak is Ms; |T| peak is Mt.",
     "steps": "Time axis sized to the recommended designs' transients.",
     "load": "A unit step added at the plant input (a load change), delay included.",
+    "sampled_nichols": "The margins the sampled controller really has: the dashed loop "
+                       "includes the hold, the sampling and the delays.",
+    "sampled_steps": "The sampled loop simulated exactly: output between the samples, "
+                     "controller output as held.",
     "family": "Bands: every operating point of the plant family ([variation]); the line "
               "is the nominal plant. The upper |S| and |T| edges are the worst over the "
               "whole gain × delay box at sampled time scales.",
