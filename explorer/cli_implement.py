@@ -257,6 +257,33 @@ def _run(args: argparse.Namespace) -> int:
     return 0
 
 
+#: at most this many samples of plant plus computation delay: the sampled loop's grids
+#: grow with the delay line (1e5 samples took 16 s and 0.55 GB, 1e14 asked for 700 TiB)
+MAX_DELAY_SAMPLES = 10_000
+
+
+def _check_sampling_domain(plant_delay_s: float, T: float, compute_delay_s: float) -> None:
+    """The sample time and the computation delay inside the study file's numerical domain
+    (docs/study-file.md): T and a nonzero computation delay in [1e-8, 1e8] s, and the
+    whole delay at most MAX_DELAY_SAMPLES samples."""
+    from explorer.errors import LoopscoutError
+    from explorer.study import FREQ_MAX, FREQ_MIN
+
+    lo, hi = 1.0 / FREQ_MAX, 1.0 / FREQ_MIN
+    if not lo <= T <= hi:
+        raise LoopscoutError(f"`--sample-time` {T:.6g} s is outside [{lo:g}, {hi:g}] s "
+                             "(the study file's numerical domain)")
+    if compute_delay_s and not lo <= compute_delay_s <= hi:
+        raise LoopscoutError(f"`--compute-delay` {compute_delay_s:.6g} s is outside "
+                             f"[{lo:g}, {hi:g}] s (or 0)")
+    samples = (plant_delay_s + compute_delay_s) / T
+    if samples > MAX_DELAY_SAMPLES:
+        raise LoopscoutError(
+            f"`--sample-time` {T:.6g} s makes the delay ({plant_delay_s + compute_delay_s:.6g} "
+            f"s) {samples:.6g} samples long; at most {MAX_DELAY_SAMPLES} "
+            f"(--sample-time ≥ {(plant_delay_s + compute_delay_s) / MAX_DELAY_SAMPLES:.3g} s)")
+
+
 def implementation(study: Any, comp: Any, *, name: str, sample_time_s: float,
                    compute_delay_s: float, method: str, prewarp_rad_s: float | None,
                    caution: str) -> dict[str, Any]:
@@ -276,6 +303,7 @@ def implementation(study: Any, comp: Any, *, name: str, sample_time_s: float,
     )
 
     T = sample_time_s
+    _check_sampling_domain(study.plant.delay_s, T, compute_delay_s)
     wn = math.pi / T
     plant = study.plant
     cont = design_metrics(plant, comp)
