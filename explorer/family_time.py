@@ -104,6 +104,9 @@ class TimeWorst:
             "unresolved_cells": dict(self.unresolved),
             "jump_cells": dict(self.jumps),
             "largest_excess": dict(self.excess),
+            "worst_at": {k: None if a is None else
+                         {"gain_factor": a[0], "delay_s": a[1], "time_scale": a[2]}
+                         for k, a in self.at.items()},
         }
 
 
