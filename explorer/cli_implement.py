@@ -77,12 +77,15 @@ def register(sub: Any, caution: str) -> None:
     p.add_argument("study", metavar="STUDY", help="study file (TOML), see docs/study-file.md")
     p.add_argument("--design", required=True, metavar="NAME",
                    help="a [[compensator]] name of the study, or with --from a design name")
-    p.add_argument("--sample-time", required=True, type=_positive_seconds, metavar="T",
-                   help="sample time, seconds")
+    p.add_argument("--sample-time", type=_positive_seconds, default=None, metavar="T",
+                   help="sample time, seconds (default: the study's [search] sample_time; "
+                        "required without one)")
     p.add_argument("--from", dest="from_file", metavar="DIR/designs.json", default=None,
                    help="take the design from an exploration's designs.json")
-    p.add_argument("--compute-delay", type=_nonnegative_seconds, default=0.0, metavar="SECONDS",
-                   help="time from sampling to the output update, seconds (default 0)")
+    p.add_argument("--compute-delay", type=_nonnegative_seconds, default=None,
+                   metavar="SECONDS",
+                   help="time from sampling to the output update, seconds (default: the "
+                        "study's [search] compute_delay with its sample_time, else 0)")
     p.add_argument("--method", choices=METHODS, default=METHODS[0],
                    help="discretization (default tustin-prewarp: Tustin prewarped at the "
                         "design's crossover)")
@@ -241,8 +244,15 @@ def _run(args: argparse.Namespace) -> int:
         )
     if args.prewarp is not None and args.method != "tustin-prewarp":
         raise LoopscoutError(f"--prewarp applies to --method tustin-prewarp, not {args.method}")
-    obj = implementation(study, comp, name=args.design, sample_time_s=args.sample_time,
-                         compute_delay_s=args.compute_delay, method=args.method,
+    T, tc = args.sample_time, args.compute_delay
+    if T is None:  # the study's sampled controller ([search] sample_time)
+        T = study.search.sample_time_s
+        if T is None:
+            raise LoopscoutError("--sample-time is required (the study has no "
+                                 "`search.sample_time`)")
+        tc = study.search.compute_delay_s if tc is None else tc
+    obj = implementation(study, comp, name=args.design, sample_time_s=T,
+                         compute_delay_s=0.0 if tc is None else tc, method=args.method,
                          prewarp_rad_s=args.prewarp, caution=args.caution)
     obj["source"] = {"study": study.source, "from": args.from_file}
     obj["structure"] = describe_structure(comp)

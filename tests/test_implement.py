@@ -229,3 +229,16 @@ def test_subprocess_one_line_exit_2() -> None:
     )
     assert proc.returncode == 2
     assert proc.stderr.count("\n") == 1 and "available" in proc.stderr
+
+
+def test_sample_time_from_the_study(capsys: pytest.CaptureFixture[str]) -> None:
+    """Without --sample-time the study's [search] sample_time and compute_delay are used
+    (the sampled controller the exploration judged); a study without one is refused."""
+    plc = str(ROOT / "studies" / "conveyor_plc.toml")
+    obj = _run_json(capsys, plc, "--design", "PI + lead")
+    assert obj["sample_time_s"] == 0.1 and obj["compute_delay_s"] == 0.02
+    obj = _run_json(capsys, plc, "--design", "PI + lead", "--compute-delay", "0")
+    assert obj["sample_time_s"] == 0.1 and obj["compute_delay_s"] == 0.0
+    rc = main(["implement", str(ROOT / "studies" / "conveyor_speed.toml"), "--design", "PI"])
+    err = capsys.readouterr().err.strip()
+    assert rc == 2 and "--sample-time is required" in err and "\n" not in err
