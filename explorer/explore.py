@@ -520,6 +520,15 @@ def _summary(
             "(the reasons per structure follow)"
         )
     lines.append(f"explored {len(structures)} structures x {n_trials} trials")
+    mp = study.measured
+    if mp is not None:  # a measured plant: where the figures come from
+        lo, hi = mp.data.band_rad_s
+        lines.append(
+            f"measured plant {mp.shown} (band {lo:.4g} to {hi:.4g} rad/s): frequency "
+            "figures read on the data; "
+            + ("time figures from the fitted model (relative RMS error "
+               f"{100 * mp.fit.rel_rms:.2g} %)" if mp.fit.time_from_fit else
+               "time figures withheld (the fitted model is poor)"))
     for label, reason in why.items():
         lines.append(f"{label}: {reason}")
     for d in ok:
