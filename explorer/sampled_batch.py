@@ -127,6 +127,13 @@ def closed_loop_matrices(sp: SampledPlant, dc: DiscreteBatch) -> np.ndarray:
     controller states (controllable canonical form of C(z) from its coefficients) and
     the past inputs u[k−1] ... u[k−d−1] — explorer.sampled.closed_loop_matrix for
     every row at once. Their eigenvalues are the closed-loop poles in z."""
+    return closed_loop_parts(sp, dc)["F"]
+
+
+def closed_loop_parts(sp: SampledPlant, dc: DiscreteBatch) -> dict[str, Any]:
+    """:func:`closed_loop_matrices` with the pieces a simulation needs: ``F``; ``Ku``
+    and ``y_row`` (u[k] = Ku·X + b0/den·(r − dp·load), y[k] = y_row·X + Yu·(u terms)
+    + dp·load); ``b0``, ``den``, ``Yu``, ``dp``; the block sizes ``n``, ``nc``."""
     rows = dc.n
     nc = dc.poles.shape[1]
     a = poly_rows(dc.poles)  # (rows, nc+1), a0 = 1
@@ -165,7 +172,8 @@ def closed_loop_matrices(sp: SampledPlant, dc: DiscreteBatch) -> np.ndarray:
     F[:, n + nc, :] = Ku
     for i in range(1, m):
         F[:, n + nc + i, n + nc + i - 1] = 1.0
-    return F
+    return {"F": F, "Ku": Ku, "y_row": y_row, "b0": b0, "den": den, "Yu": Yu, "dp": dp,
+            "n": n, "nc": nc, "gamma0": sp.gamma0[:, 0] if sp.d == 0 else None}
 
 
 def _grid(sp: SampledPlant, dc: DiscreteBatch, cont: LoopBatch,
@@ -222,13 +230,15 @@ def _per_row_min(rows: np.ndarray, vals: np.ndarray, n: int) -> tuple[np.ndarray
 
 
 def sampled_metrics_batch(sp: SampledPlant, dc: DiscreteBatch, comp_gain: np.ndarray,
-                          comp_zeros: np.ndarray, comp_poles: np.ndarray
-                          ) -> dict[str, np.ndarray]:
+                          comp_zeros: np.ndarray, comp_poles: np.ndarray, *,
+                          full: bool = True) -> dict[str, np.ndarray]:
     """The sampled-loop readings of explorer.sampled.sampled_loop_metrics for every row:
     arrays (n,) with NaN for null, ``crossovers_rad_s`` (n, k) padded with NaN,
     ``closed_loop_stable`` bool. ``comp_*`` is C(s) (it anchors the phase branch at low
     frequency, as in the one-design version). Rows with ``dc.valid`` False are unstable
-    with NaN readings."""
+    with NaN readings. ``full=False`` stops after the gain crossovers (crossovers, phase
+    and delay margins only; the other keys NaN, stability False): what a correction
+    pass of explorer.sampled_search needs."""
     T = sp.sample_time_s
     wn = math.pi / T
     n = dc.n
@@ -291,6 +301,14 @@ def sampled_metrics_batch(sp: SampledPlant, dc: DiscreteBatch, comp_gain: np.nda
     else:
         pm_min = wc = dmin = np.full(m, np.nan)
         xs = np.full((m, 1), np.nan)
+    if not full:
+        for k, v in (("crossover_rad_s", wc), ("phase_margin_deg", pm_min),
+                     ("delay_margin_s", dmin)):
+            out[k][ok] = v
+        cx = np.full((n, xs.shape[1]), np.nan)
+        cx[ok] = xs
+        out["crossovers_rad_s"] = cx
+        return out
     # phase crossovers (phase ≡ −180° mod 360°) with |L| < 1, and z = −1
     lev = np.floor((phase + math.pi) / (2.0 * math.pi))
     rj, cj = np.nonzero((lev[:, :-1] != lev[:, 1:]) & fin[:, :-1] & fin[:, 1:])

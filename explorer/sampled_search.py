@@ -100,22 +100,23 @@ def sampled_balance(problem: Any, s: Any, params: dict[str, np.ndarray],
     pm_b = np.asarray(pm_deg, float).copy()
     for it in range(CORRECTIONS + 1):
         b = balance(pa, s, params, wc_b, pm_b)
-        ok = b.shortfall_deg == 0.0
-        idx = np.flatnonzero(ok)
+        idx = np.flatnonzero(b.shortfall_deg == 0.0)
         dc = discretize_batch(b.gain[idx], b.zeros[idx], b.poles[idx], T, wc_b[idx])
-        sm = sampled_metrics_batch(sp, dc, b.gain[idx], b.zeros[idx], b.poles[idx])
         if it == CORRECTIONS or idx.size == 0:
             break
+        # a correction pass needs the crossovers and phase margins only
+        sm = sampled_metrics_batch(sp, dc, b.gain[idx], b.zeros[idx], b.poles[idx], full=False)
         wx = _nearest(sm["crossovers_rad_s"], wc_rad_s[idx])
         pm_err = pm_deg[idx] - sm["phase_margin_deg"]
         ratio = wc_rad_s[idx] / wx
-        good = np.isfinite(pm_err) & np.isfinite(ratio) & sm["closed_loop_stable"]
+        good = np.isfinite(pm_err) & np.isfinite(ratio)
         if not np.any(good & ((np.abs(pm_err) > _PM_TOL_DEG)
                               | (np.abs(ratio - 1.0) > _WC_REL_TOL))):
             break
         rows = idx[good]
         pm_b[rows] += np.clip(pm_err[good], -30.0, 30.0)
         wc_b[rows] *= np.clip(ratio[good], 0.5, 2.0)
+    sm = sampled_metrics_batch(sp, dc, b.gain[idx], b.zeros[idx], b.poles[idx])
     return b, {"sm": sm, "dc": dc, "prewarp": wc_b, "idx": idx, "sp": sp,
                "gain": b.gain, "zeros": b.zeros, "poles": b.poles}
 

@@ -26,18 +26,92 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
+from typing import Any
 
 import numpy as np
 
 from explorer.loop import Rational
-from explorer.sampled import _phi_gamma, realize
-from explorer.sampled_batch import DiscreteBatch, poly_rows
+from explorer.sampled import SampledPlant, _phi_gamma, realize, sample_plant
+from explorer.sampled_batch import DiscreteBatch, closed_loop_parts, poly_rows
 
 __all__ = ["SampledSteps", "simulate_sampled", "sampled_step_metrics", "STEP_KEYS"]
 
 STEP_KEYS = ("overshoot_pct", "settling_time_s", "rise_time_s", "peak_control", "iae_load")
 #: Most sample periods simulated (the horizon doubles up to this while not settled).
 MAX_SAMPLES = 20000
+#: Closed loops with at most this many states are marched by doubling (powers of the
+#: augmented closed-loop matrix, a few batched products); longer delay lines sample by
+#: sample.
+MAX_DOUBLING_STATES = 40
+
+
+@lru_cache(maxsize=16)
+def _sampled(plant: Rational, T: float, tc: float) -> SampledPlant:
+    return sample_plant(plant, T, tc)
+
+
+def _run(F: np.ndarray, aff: np.ndarray, X0: np.ndarray, steps: int) -> np.ndarray:
+    """X_0 ... X_steps of X_{k+1} = F X_k + aff for every row, by doubling: the
+    augmented matrix [[F, aff], [0, 1]] squared log2(steps) times, each power applied to
+    every state found so far. (rows, steps + 1, N)."""
+    rows, N = X0.shape
+    Ft = np.zeros((rows, N + 1, N + 1))
+    Ft[:, :N, :N] = F
+    Ft[:, :N, N] = aff
+    Ft[:, N, N] = 1.0
+    Z = np.concatenate([X0, np.ones((rows, 1))], axis=1)[:, :, None]
+    P = Ft
+    while Z.shape[2] < steps + 1:
+        Z = np.concatenate([Z, P @ Z], axis=2)
+        P = P @ P
+    return np.transpose(Z[:, :N, :steps + 1], (0, 2, 1))
+
+
+def _march(parts: dict[str, Any], K: int, r: float, load: bool, kl: int, el: float,
+           g_part: np.ndarray, g_full: np.ndarray
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(X (rows, K + 1, N), u (rows, K), y (rows, K)) of the closed loop at the samples,
+    by doubling over the stretches of constant input (before the load arrives, the
+    period it arrives in, after)."""
+    F, Ku, y_row = parts["F"], parts["Ku"], parts["y_row"]
+    b0, den, Yu, dp, n, nc = (parts[k] for k in ("b0", "den", "Yu", "dp", "n", "nc"))
+    rows, N = Ku.shape
+    ku_r = b0 / den
+    ku_l = -b0 * dp / den
+    sp_gamma0 = parts.get("gamma0")
+    a_r = np.zeros((rows, N))
+    a_l = np.zeros((rows, N))
+    if sp_gamma0 is not None:
+        a_r[:, :n] += sp_gamma0[None, :] * ku_r[:, None]
+        a_l[:, :n] += sp_gamma0[None, :] * ku_l[:, None]
+    if nc:
+        a_r[:, n] += 1.0 - Yu * ku_r
+        a_l[:, n] += -(dp + Yu * ku_l)
+    a_r[:, n + nc] += ku_r
+    a_l[:, n + nc] += ku_l
+    share_full = np.zeros(N)
+    share_full[:n] = g_full
+    share_part = np.zeros(N)
+    share_part[:n] = g_part
+    X0 = np.zeros((rows, N))
+    ld = np.zeros(K)
+    if not load or kl >= K:
+        X = _run(F, r * a_r, X0, K)
+    else:
+        first = _run(F, r * a_r, X0, kl) if kl > 0 else X0[:, None, :]
+        on_now = 1.0 if el == 0.0 else 0.0
+        xk = first[:, -1]
+        x_next = (np.einsum("bij,bj->bi", F, xk) + r * a_r + on_now * a_l + share_part)
+        rest = _run(F, r * a_r + a_l + share_full, x_next, K - kl - 1)
+        X = np.concatenate([first, rest], axis=1)
+        ld[kl + (0 if el == 0.0 else 1):] = 1.0
+    u = np.einsum("bn,bkn->bk", Ku, X[:, :K]) + ku_r[:, None] * r + ku_l[:, None] * ld[None, :]
+    y = (np.einsum("bn,bkn->bk", y_row, X[:, :K]) + (Yu * ku_r)[:, None] * r
+         + (dp + Yu * ku_l)[:, None] * ld[None, :])
+    return X, u, y
+
+
 #: e^{Ah} and ∫₀^h e^{As} ds B by (plant matrices, h): the same few h recur in every call.
 _PG_CACHE: dict[tuple[tuple[bytes, bytes], float], tuple[np.ndarray, np.ndarray]] = {}
 
@@ -137,7 +211,12 @@ def simulate_sampled(plant: Rational, dc: DiscreteBatch, compute_delay_s: float,
     def u_at(j: int) -> np.ndarray:
         return u[:, j] if 0 <= j < K else np.zeros(rows)
 
-    for k in range(K):
+    parts = closed_loop_parts(_sampled(plant, T, compute_delay_s), dc)
+    if parts["F"].shape[1] <= MAX_DOUBLING_STATES:
+        xs_all, u, ys = _march(parts, K, r, load, kl, el, g_part, g_full)
+        xs[:] = xs_all[:, :, :n]
+        x = xs_all[:, K, :n]
+    for k in range(K if parts["F"].shape[1] > MAX_DOUBLING_STATES else 0):
         ld = load_on(k * T)
         y_x = x @ c
         if du == 0 and eu == 0.0:  # no delay at all: y[k] holds u[k] (algebraic loop)

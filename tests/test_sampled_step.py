@@ -57,7 +57,9 @@ def _reference(plant: Rational, comp_d, T: float, tc: float, K: int, M: int, loa
     return np.array(y), np.array(u_samples)
 
 
-@pytest.mark.parametrize("tau,tc", [(0.13, 0.02), (0.0, 0.0), (0.2, 0.0), (0.0, 0.03)])
+# the last one: 61 periods of delay, past MAX_DOUBLING_STATES (marched sample by sample)
+@pytest.mark.parametrize("tau,tc", [(0.13, 0.02), (0.0, 0.0), (0.2, 0.0), (0.0, 0.03),
+                                    (3.0, 0.02)])
 @pytest.mark.parametrize("load", [False, True])
 def test_steps_match_substepped_zoh(tau: float, tc: float, load: bool) -> None:
     # an invented belt drive: three lags, a PI + lead
