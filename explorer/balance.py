@@ -5,7 +5,7 @@ margin exactly — or refused with the step that failed and by how many degrees.
 Every design here fixes the gain from |L(jωc)| = 1 and one or two root locations from
 the phase condition ∠L(jωc) = −180° + PM, using the exact continuous phase of
 :mod:`explorer.loop` (natural low-frequency branch, delay included as −ωτ). Each
-finished design is then checked (:func:`check_loop`): every gain crossover is found
+finished design is then checked (:func:`loop_check`): every gain crossover is found
 and the smallest phase margin must be the target, and the closed loop must be stable
 by the Nyquist criterion. A design that fails the check is refused, never returned.
 
@@ -42,6 +42,7 @@ import numpy as np
 
 from explorer.errors import DesignError
 from explorer.loop import ROOT_TOL, Rational, feedback_sign
+from explorer.metrics import frequency_metrics, frequency_metrics_batch
 from explorer.study import Targets
 
 __all__ = [
@@ -54,7 +55,7 @@ __all__ = [
     "pi_plus_lead",
     "lag_for_error_constant",
     "hand_designs",
-    "check_loop",
+    "loop_check",
     "trim_gain_for_overshoot",
     "MAX_LEAD_BOOST_DEG",
     "WELL_DAMPED_ZETA",
@@ -90,7 +91,7 @@ _WC_CHECK_REL = 1e-6
 # value objects
 @dataclass(frozen=True, kw_only=True)
 class LoopCheck:
-    """What :func:`check_loop` found on one loop L = C·P.
+    """What :func:`loop_check` found on one loop L = C·P.
 
     ``crossovers_rad_s`` ascending, ``phase_margins_deg`` for each (reduced into
     (−180°, 180°]), ``closed_loop_rhp_poles`` = P + N by the Nyquist criterion,
@@ -314,10 +315,30 @@ def _set_gain(plant: Rational, sign: int, zeros: Sequence[complex], poles: Seque
     return Rational(gain=sign / mag, zeros=tuple(zeros), poles=tuple(poles))
 
 
-def _verify(plant: Rational, comp: Rational, wc: float, pm: float) -> tuple[LoopCheck, str]:
-    """Run :func:`check_loop`; refuse when the design misses the targets."""
+def loop_check(plant: Rational, comp: Rational) -> LoopCheck:
+    """Every gain crossover of L = C·P with its phase margin, and closed-loop stability,
+    from the batch engine (:func:`explorer.metrics.frequency_metrics`, the one that
+    gives every reported figure): crossovers and Z = P + N from it, each crossover's
+    margin 180° + ∠L(jω) on the natural branch of :mod:`explorer.loop`, reduced into
+    (−180°, 180°]. (tests/nyquist_oracle.py keeps an independent Nyquist checker as a
+    test oracle.)"""
+    fm = frequency_metrics(plant, comp)
     loop = plant * comp
-    chk = check_loop(loop)
+    xs = tuple(float(w) for w in (fm["crossovers_rad_s"] or ()))
+    pms = []
+    for x in xs:
+        pmv = _phase_deg(loop, x) + 180.0
+        pms.append(pmv - 360.0 * math.ceil((pmv - 180.0) / 360.0))
+    z = fm.get("closed_loop_rhp_poles")
+    return LoopCheck(crossovers_rad_s=xs, phase_margins_deg=tuple(pms),
+                     open_loop_rhp_poles=sum(1 for p in loop.poles if p.real > 0),
+                     closed_loop_rhp_poles=-1 if z is None else int(z),
+                     closed_loop_stable=bool(fm["closed_loop_stable"]))
+
+
+def _verify(plant: Rational, comp: Rational, wc: float, pm: float) -> tuple[LoopCheck, str]:
+    """Run :func:`loop_check`; refuse when the design misses the targets."""
+    chk = loop_check(plant, comp)
     xs = chk.crossovers_rad_s
     if not xs or min(abs(w / wc - 1) for w in xs) > _WC_CHECK_REL:
         raise _Refusal("check", f"ωc = {_f(wc)} rad/s is not a gain crossover of the design "
@@ -334,11 +355,10 @@ def _verify(plant: Rational, comp: Rational, wc: float, pm: float) -> tuple[Loop
         )
     if not chk.closed_loop_stable:
         extra = f" ({chk.note})" if chk.note else ""
-        raise _Refusal(
-            "check",
-            f"the closed loop would be unstable: {chk.closed_loop_rhp_poles} closed-loop "
-            f"right-half-plane pole(s) by the Nyquist count{extra}",
-        )
+        count = ("" if chk.closed_loop_rhp_poles < 0
+                 else f": {chk.closed_loop_rhp_poles} closed-loop right-half-plane pole(s) "
+                      "by the Nyquist count")
+        raise _Refusal("check", f"the closed loop would be unstable{count}{extra}")
     others = len(chk.crossovers_rad_s) - 1
     line = (
         f"check: {len(chk.crossovers_rad_s)} gain crossover(s)"
@@ -797,202 +817,6 @@ def _balanced_structure(res: BalanceResult) -> str:
 
 
 # ---------------------------------------------------------------------------------------
-# loop check: all crossovers and the Nyquist count (independent of explorer.metrics)
-def _odd_multiples_between(a: float, b: float) -> int:
-    """Number of odd multiples of π strictly between a and b (either order)."""
-    lo, hi = (a, b) if a <= b else (b, a)
-    # (2k+1)π in (lo, hi)  ⇔  k in ((lo/π − 1)/2, (hi/π − 1)/2)
-    k_lo = math.floor((lo / math.pi - 1.0) / 2.0) + 1
-    k_hi = math.ceil((hi / math.pi - 1.0) / 2.0) - 1
-    return max(0, k_hi - k_lo + 1)
-
-
-def _signed_crossings(a: float, b: float) -> int:
-    """Clockwise (phase decreasing) crossings of odd multiples of π from a to b, minus
-    counterclockwise ones."""
-    n = _odd_multiples_between(a, b)
-    return n if b < a else -n
-
-
-def check_loop(loop: Rational) -> LoopCheck:
-    """Every gain crossover with its phase margin, and closed-loop stability of
-    1/(1 + L) by the Nyquist criterion, delay included.
-
-    Crossovers: sign changes of ln|L| on a log grid spanning the loop's root moduli
-    (with points clustered on lightly damped roots), refined by brentq. Stability:
-    Z = P + N with N the clockwise encirclements of −1, counted from the exact
-    continuous phase: on each frequency interval where |L| > 1 the net crossings of
-    the ray (−∞, −1) are the odd multiples of π between the phases at its ends (an
-    imaginary-axis pole's indentation is the natural branch's −π jump inside such an
-    interval), doubled for the mirror half, plus the passage through ω = 0 (the
-    indentation at s = 0). Sources: Nyquist, Bell Syst. Tech. J. 11 (1932); Åström &
-    Murray, *Feedback Systems* (2008) §9.2.
-    """
-    if loop.relative_degree < 0:
-        raise DesignError("the loop is improper; its Nyquist count is not defined")
-    b = loop.batch()
-    zeros = np.array(loop.zeros, dtype=complex)
-    poles = np.array(loop.poles, dtype=complex)
-    roots = np.concatenate([zeros, poles])
-    tau = loop.delay_s
-
-    def logmag(w: float | np.ndarray) -> np.ndarray:
-        w = np.atleast_1d(np.asarray(w, dtype=float))
-        with np.errstate(divide="ignore"):
-            return b.log_mag_at(np.zeros(w.size, dtype=np.intp), w)[0]
-
-    def phase(w: float) -> float:
-        return float(b.phase_at(np.zeros(1, dtype=np.intp), np.array([float(w)]))[0])
-
-    def phase_count(w: float) -> float:
-        # Phase for the crossing count. Exactly on a level (2k+1)π (a plot lying on the
-        # real axis), break the tie as the contour shifted an infinitesimal σ to the right
-        # would: d∠L/dσ = Im(Σ 1/(jω − z) − Σ 1/(jω − p)).
-        ph = phase(w)
-        off = (ph / math.pi - 1.0) / 2.0
-        if abs(off - round(off)) * 2.0 * math.pi < 1e-10:
-            s = 1j * w
-            with np.errstate(divide="ignore", invalid="ignore"):
-                d = np.sum(1 / (s - zeros)).imag - np.sum(1 / (s - poles)).imag
-            if np.isfinite(d) and d != 0:
-                ph += math.copysign(1e-9, d)
-        return ph
-
-    scales = [abs(r) for r in roots if abs(r) > 0]
-    if tau > 0:
-        scales.append(1.0 / tau)
-    if not scales:
-        scales = [abs(loop.gain) ** (1.0 / max(loop.n_integrators, 1)) or 1.0]
-    lo, hi = 1e-4 * min(scales), 1e4 * max(scales)
-    m0 = loop.n_integrators
-    for _ in range(40):
-        v_lo = float(logmag(lo)[0])
-        if (m0 > 0 and v_lo <= 0) or (m0 < 0 and v_lo >= 0):
-            lo /= 1e3
-        else:
-            break
-    rd = loop.relative_degree
-    note = None
-    if rd > 0:
-        for _ in range(40):
-            if float(logmag(hi)[0]) >= 0:
-                hi *= 1e3
-            else:
-                break
-    hf_above = rd == 0 and abs(loop.gain) >= 1.0
-    if rd == 0 and abs(1.0 + loop.gain) < 1e-9:
-        return LoopCheck(crossovers_rad_s=(), phase_margins_deg=(), open_loop_rhp_poles=0,
-                         closed_loop_rhp_poles=-1, closed_loop_stable=False,
-                         note="ill-posed loop: 1 + L(j∞) = 0")
-
-    decades = math.log10(hi / lo)
-    grid = [np.geomspace(lo, hi, int(80 * decades) + 2)]
-    axis_freqs = []
-    for r in roots:
-        w0 = abs(r)
-        if w0 == 0:
-            continue
-        zeta = abs(r.real) / w0
-        if _on_axis(r):
-            axis_freqs.append(abs(r.imag))
-        if zeta < 0.7:
-            zc = max(zeta, 1e-9)
-            u = np.concatenate([-np.geomspace(1e-3, 40, 60), np.geomspace(1e-3, 40, 60)])
-            grid.append(abs(r.imag) * np.exp(u * zc) if abs(r.imag) > 0 else np.array([w0]))
-    w = np.unique(np.concatenate(grid))
-    w = w[(w >= lo) & (w <= hi)]
-    for wa in axis_freqs:
-        w = w[np.abs(w - wa) > 1e-12 * wa]
-    v = logmag(w)
-
-    # gain crossovers
-    from scipy.optimize import brentq
-
-    sgn = np.sign(v)
-    xs: list[float] = [float(w[i]) for i in np.flatnonzero(sgn == 0)]
-    for j in np.flatnonzero(sgn[:-1] * sgn[1:] < 0):
-        a, c = math.log(w[j]), math.log(w[j + 1])
-        if not (np.isfinite(v[j]) and np.isfinite(v[j + 1])):
-            xs.append(float(math.exp(0.5 * (a + c))))
-            continue
-        x = brentq(lambda t: float(logmag(math.exp(t))[0]), a, c, xtol=1e-15, rtol=1e-15)
-        xs.append(math.exp(x))
-    xs.sort()
-    pms = []
-    for x in xs:
-        pmv = math.degrees(phase(x)) + 180.0
-        pmv = pmv - 360.0 * math.ceil((pmv - 180.0) / 360.0)  # into (−180, 180]
-        pms.append(pmv)
-
-    # Nyquist count
-    # strictly Re > 0, the same split as the phase branches of explorer.loop
-    n_rhp = sum(1 for p in loop.poles if p.real > 0)
-    n_cw = 0
-    marginal = False
-    # runs of |L| > 1 between crossovers
-    bounds = [lo, *xs, hi]
-    above = []
-    for i in range(len(bounds) - 1):
-        inside = w[(w > bounds[i]) & (w < bounds[i + 1])]
-        probe = inside[len(inside) // 2] if inside.size else math.sqrt(bounds[i] * bounds[i + 1])
-        above.append(float(logmag(probe)[0]) > 0)
-    for i, up in enumerate(above):
-        if not up:
-            continue
-        wa, wb = bounds[i], bounds[i + 1]
-        pa = phase_count(wa)
-        if i == len(above) - 1 and hf_above:
-            if tau > 0:
-                note = "the loop gain does not roll off and the loop has a delay (neutral type)"
-                return LoopCheck(crossovers_rad_s=tuple(xs), phase_margins_deg=tuple(pms),
-                                 open_loop_rhp_poles=n_rhp, closed_loop_rhp_poles=-1,
-                                 closed_loop_stable=False, note=note)
-            pb = phase(hi * 1e6)
-            if loop.gain < 0:
-                # L(j∞) = k < −1 lies on the ray: the side it approaches from follows
-                # L(jω) ≈ k·(1 − j(Σp − Σz)/ω), i.e. Im L has the sign of Σ Re p − Σ Re z
-                level = math.pi * (2 * round((pb / math.pi - 1.0) / 2.0) + 1)
-                side = float(np.sum(poles.real) - np.sum(zeros.real))
-                pb = level - math.copysign(1e-9, side) if side != 0 else level
-                if side == 0:
-                    note = "L(jω) approaches −|k| along the real axis (degenerate count)"
-            # passage through ω = ∞ (the large arc, L ≈ its biproper limit): from the phase
-            # at +∞ to its mirror image, reflected across the nearest multiple of π
-            n_cw += _signed_crossings(pb, 2 * math.pi * round(pb / math.pi) - pb)
-        else:
-            pb = phase_count(wb)
-        n_cw += 2 * _signed_crossings(pa, pb)
-    # passage through ω = 0 (indentation when m0 > 0)
-    if above and above[0] and m0 >= 0:
-        p_lo = phase_count(lo)
-        c = math.pi * round((p_lo + m0 * math.pi / 2) / math.pi)
-        n_cw += _signed_crossings(2 * c - p_lo, p_lo)
-    z = n_rhp + n_cw
-    if note is not None and note.startswith("L(jω) approaches −|k|") and tau == 0:
-        # the plot lies on the negative real axis as ω → ∞ and the crossing count is
-        # degenerate; without a delay the closed-loop polynomial den + num decides
-        num = loop.gain * np.poly(zeros).real if zeros.size else np.array([loop.gain])
-        den = np.poly(poles).real
-        size = max(num.size, den.size)
-        cl = np.roots(np.pad(den, (size - den.size, 0)) + np.pad(num, (size - num.size, 0)))
-        z = int(np.sum(cl.real > 0))
-        marginal = marginal or bool(np.any(np.abs(cl.real) <= 1e-9 * np.maximum(1.0,
-                                                                                np.abs(cl))))
-        note += "; decided by the roots of the closed-loop polynomial"
-    if any(abs(pmv) < 1e-9 for pmv in pms):
-        marginal = True
-        note = "a crossover has zero phase margin (closed-loop poles on the imaginary axis)"
-    if m0 == 0 and abs(1.0 + loop.dc_gain()) < 1e-12:
-        marginal = True
-        note = "L(0) = −1: a closed-loop pole at s = 0"
-    if z < 0:
-        note = f"inconsistent Nyquist count (P = {n_rhp}, N = {n_cw})"
-    stable = (z == 0) and not marginal
-    return LoopCheck(crossovers_rad_s=tuple(xs), phase_margins_deg=tuple(pms),
-                     open_loop_rhp_poles=n_rhp, closed_loop_rhp_poles=z,
-                     closed_loop_stable=stable, note=note)
-
-
 # ---------------------------------------------------------------------------------------
 # overshoot trim
 def trim_gain_for_overshoot(plant: Rational, compensator: Rational, overshoot_pct: float,
@@ -1002,8 +826,8 @@ def trim_gain_for_overshoot(plant: Rational, compensator: Rational, overshoot_pc
     ``overshoot_pct``; report the new crossover and phase margin.
 
     The gain factor is scanned on a log grid over ``factor_range`` (one batch of step
-    responses, :func:`explorer.timeresp.step_metrics_batch`, stability from
-    :func:`check_loop`), the sign change of overshoot − target nearest to factor 1 is
+    responses, :func:`explorer.timeresp.step_metrics_batch`, stability from the batch
+    engine), the sign change of overshoot − target nearest to factor 1 is
     bracketed, and brentq refines it (1-D root finding on the simulated overshoot). The
     crossover and phase margin move with the gain: they are reported, not kept. Refused
     (``compensator`` None) when no stable factor in the range reaches the target.
@@ -1026,22 +850,20 @@ def trim_gain_for_overshoot(plant: Rational, compensator: Rational, overshoot_pc
                         poles=compensator.poles)
 
     def os_of(f: float) -> float:
-        stable = check_loop(plant * scaled(f)).closed_loop_stable
+        stable = bool(frequency_metrics(plant, scaled(f))["closed_loop_stable"])
         if not stable:
             return math.nan
         val = step_metrics(plant, scaled(f), stable=True).get("overshoot_pct")
         return math.nan if val is None else float(val)
 
     factors = np.unique(np.concatenate([np.geomspace(f_lo, f_hi, n_scan), [1.0]]))
-    stable = np.array([check_loop(plant * scaled(float(f))).closed_loop_stable
-                       for f in factors])
     n, nz, npl = factors.size, len(compensator.zeros), len(compensator.poles)
-    batch = step_metrics_batch(
-        plant, compensator.gain * factors,
-        np.tile(np.array(compensator.zeros, dtype=complex), n).reshape(n, nz),
-        np.tile(np.array(compensator.poles, dtype=complex), n).reshape(n, npl),
-        stable=stable,
-    )
+    gains = compensator.gain * factors
+    zs = np.tile(np.array(compensator.zeros, dtype=complex), n).reshape(n, nz)
+    ps = np.tile(np.array(compensator.poles, dtype=complex), n).reshape(n, npl)
+    stable = np.asarray(frequency_metrics_batch(plant, gains, zs, ps)["closed_loop_stable"],
+                        bool)
+    batch = step_metrics_batch(plant, gains, zs, ps, stable=stable)
     os_vals = np.asarray(batch["overshoot_pct"], dtype=float)
     steps = [f"target overshoot {_f(overshoot_pct)} %: scan {factors.size} gain factors in "
              f"[{_f(f_lo)}, {_f(f_hi)}], {int(stable.sum())} with a stable closed loop"]
@@ -1067,7 +889,7 @@ def trim_gain_for_overshoot(plant: Rational, compensator: Rational, overshoot_pc
     else:
         f = brentq(lambda g: os_of(g) - overshoot_pct, a, b_, xtol=1e-12, rtol=1e-10)
     comp = scaled(f)
-    chk = check_loop(plant * comp)
+    chk = loop_check(plant, comp)
     k = int(np.argmin(chk.phase_margins_deg)) if chk.phase_margins_deg else None
     wc = chk.crossovers_rad_s[k] if k is not None else None
     pm = chk.phase_margins_deg[k] if k is not None else None

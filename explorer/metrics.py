@@ -36,7 +36,7 @@ from typing import Any
 import numpy as np
 
 from explorer.errors import DesignError
-from explorer.loop import LoopBatch, Rational
+from explorer.loop import ROOT_TOL, LoopBatch, Rational
 
 __all__ = [
     "FREQUENCY_KEYS",
@@ -303,6 +303,35 @@ def _odd_count(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     return np.maximum(0, np.ceil((hi - 1.0) / 2.0) - np.floor((lo - 1.0) / 2.0) - 1).astype(int)
 
 
+#: |Im L| ≤ this × |L|: the curve lies on the real axis to rounding (an undamped mode,
+#: pure integrators: L = 1/(s²(s² + 1)) is real at every ω)
+_ON_REAL_AXIS = 1e-12
+
+
+def _tiebroken_imag(loops: LoopBatch, rows: np.ndarray, omega: np.ndarray,
+                    val: np.ndarray) -> np.ndarray:
+    """Im L(jω) at points ``(rows[i], omega[i])``; where L lies on the real axis to
+    rounding, the sign the Nyquist contour shifted an infinitesimal σ > 0 into the
+    right half plane gives it (Im L(σ + jω) ≈ Im L(jω) + σ·Im(dL/ds)), as a value of
+    magnitude 1e-9·|L| (an angle 1e-9 rad off the axis, so arcs that start or end
+    there count their crossings). The same convention puts imaginary-axis poles outside the
+    contour (not in P); a curve lying along the negative real axis then crosses it
+    where it really does, not by the sign of rounding noise."""
+    im = np.array(val.imag, dtype=float, copy=True)
+    flat = np.abs(im) <= _ON_REAL_AXIS * np.abs(val)
+    if np.any(flat):
+        k = np.flatnonzero(flat.ravel())
+        r, w = np.asarray(rows).ravel()[k], np.asarray(omega, float).ravel()[k]
+        with np.errstate(all="ignore"):
+            v, d, _ = _eval_points(loops, r, w, second=False)
+            slope = (v * d / (1j * w)).imag  # Im(dL/ds) = Im(L · (d ln L/d ln ω) / s)
+        flat_im = im.ravel()
+        flat_im[k] = np.where(np.isfinite(slope) & (slope != 0.0),
+                              np.copysign(1e-9 * np.abs(v), slope), flat_im[k])
+        im = flat_im.reshape(im.shape)
+    return im
+
+
 def _arc_crossings(start_angle: np.ndarray, end_angle: np.ndarray, turns: np.ndarray) -> np.ndarray:
     """Signed crossings of the negative real axis (clockwise +1) by an arc that
     rotates by about −``turns``·π from ``start_angle`` to ``end_angle`` (rad)."""
@@ -335,22 +364,28 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
 
     # axis poles s = ±jb (b > 0): their intervals are arcs, not ordinary segments
     axis_arc = np.zeros(n, dtype=int)
-    ax_pole = (loops.poles.real == 0) & (loops.poles.imag > 0)
+    # "on the axis" within ROOT_TOL of the modulus, the split explorer.loop uses for
+    # open-loop right-half-plane poles: a pole at 1e-297 ± 1j is an undamped mode, and
+    # counting it both as an open-loop RHP pole and by its (unresolvable) phase jump
+    # gave a wrong Nyquist count
+    on_axis = np.abs(loops.poles.real) <= ROOT_TOL * np.abs(loops.poles)
+    ax_pole = on_axis & (loops.poles.imag > 0)
     skip = np.zeros((n, m - 1), dtype=bool)
     if np.any(ax_pole):
         # rare: a loop with an undamped mode; handled per design
         for i, k in zip(*np.nonzero(ax_pole), strict=True):
             b = loops.poles[i, k].imag
-            if np.any(np.isclose(loops.poles[i, :k].imag, b) & (loops.poles[i, :k].real == 0)):
+            if np.any(np.isclose(loops.poles[i, :k].imag, b) & on_axis[i, :k]):
                 continue  # multiplicity handled with the first column
-            mult = int(np.sum(np.isclose(loops.poles[i].imag, b) & (loops.poles[i].real == 0)))
+            mult = int(np.sum(np.isclose(loops.poles[i].imag, b) & on_axis[i]))
             below = np.searchsorted(grid[i], b) - 1
             if 0 <= below < m - 1:
                 skip[i, below] = True
             w_pair = np.array([b * (1 - 1e-7), b * (1 + 1e-7)])
             v = loops.take(np.array([i])).freqresp(w_pair)[0]
-            a0 = np.angle(v[0])
-            a1 = np.angle(v[1])
+            v_im = _tiebroken_imag(loops, np.array([i, i]), w_pair, v)
+            a0 = np.arctan2(v_im[0], v[0].real)
+            a1 = np.arctan2(v_im[1], v[1].real)
             axis_arc[i] += 2 * int(
                 _arc_crossings(np.array([a0]), np.array([a1]), np.array([float(mult)]))[0]
             )
@@ -388,7 +423,7 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     wg = np.exp(xg)
 
     # -- phase crossovers (L real negative) -----------------------------------------------
-    im = lval.imag
+    im = _tiebroken_imag(loops, np.repeat(np.arange(n), m).reshape(n, m), grid, lval)
     re = lval.real
     si = np.where(im >= 0, 1, -1)
     pb = (si[:, :-1] != si[:, 1:]) & ~skip
@@ -531,25 +566,37 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     mt = np.maximum(mt, t_inf)
 
     # -- Nyquist ----------------------------------------------------------------------------
-    poles = loops.poles
-    p_rhp = np.sum(poles.real > 0, axis=1)
+    p_rhp = loops.n_rhp_poles()
     n_cw = np.zeros(n, dtype=int)
     if pi_all.size:
         left = lp_all > 1.0
         np.add.at(n_cw, pi_all[left], 2 * direction_all[left])
     # through s = 0: for m0 > 0 an infinite arc rotating clockwise by m0·π; for
     # m0 = 0 the curve passes through the real value L(0) (a crossing if L(0) < −1)
-    eps_angle = np.angle(lval[:, 0])
+    eps_angle = np.arctan2(im[:, 0], re[:, 0])
     arc0 = _arc_crossings(-eps_angle, eps_angle, np.maximum(m0, 0).astype(float))
     n_cw += np.where((m0 > 0) | ((m0 == 0) & (mag[:, 0] > 1.0)), arc0, 0)
     n_cw += axis_arc
     # ω → ∞ for a biproper loop without delay: L(j∞) is real
+    degenerate = np.zeros(n, dtype=bool)
     if loops.relative_degree == 0:
-        last_im = lval[:, -1].imag
+        last_im = im[:, -1]
         through = (tau == 0) & (hf.real < -1.0)
         n_cw += np.where(through, np.where(last_im < 0, 1, -1), 0)
+        # the curve reaches L(j∞) < −1 along the real axis with no side to read (a
+        # constant loop, L = −10 after a cancellation): without a delay the closed-loop
+        # polynomial den + num decides, as in tests/nyquist_oracle.py
+        degenerate = through & (np.abs(last_im) <= _ON_REAL_AXIS * np.abs(lval[:, -1]))
     z_rhp = p_rhp + n_cw
-    marginal = ~np.isfinite(ms) | (ms > 1e12)
+    on_axis_cl = np.zeros(n, dtype=bool)
+    for i in np.flatnonzero(degenerate):
+        num = loops.gain[i] * np.poly(loops.zeros[i]).real
+        den = np.poly(loops.poles[i]).real
+        size = max(num.size, den.size)
+        cl = np.roots(np.pad(den, (size - den.size, 0)) + np.pad(num, (size - num.size, 0)))
+        z_rhp[i] = int(np.sum(cl.real > 0))
+        on_axis_cl[i] = bool(np.any(np.abs(cl.real) <= 1e-9 * np.maximum(1.0, np.abs(cl))))
+    marginal = ~np.isfinite(ms) | (ms > 1e12) | on_axis_cl
     neutral = (tau > 0) & (np.abs(hf) >= 1.0)
     stable = (z_rhp == 0) & ~marginal & ~neutral
     ms = np.where(np.isfinite(ms) & (ms < 1e12), ms, np.nan)
@@ -725,7 +772,10 @@ def frequency_metrics_batch(
     for start in range(0, n, chunk):
         sl = slice(start, start + chunk)
         loops = LoopBatch.series(plant, comp_gain[sl], cz[sl], cp[sl])
-        out = loop_metrics_batch(loops)
+        # a refinement step may land exactly on an axis zero or pole (L = 0 or ∞ there):
+        # the values are handled as such (non-finite → not a crossing, not a peak)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            out = loop_metrics_batch(loops)
         out.update(_compensator_batch(comp_gain[sl], cz[sl], cp[sl]))
         pieces.append(out)
     return _concat(pieces)

@@ -24,6 +24,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
+from nyquist_oracle import check_loop
 from scipy import signal
 
 from explorer.balance import (
@@ -31,16 +32,23 @@ from explorer.balance import (
     PI_ZERO_RATIO,
     BalanceResult,
     HandDesign,
-    check_loop,
     hand_designs,
     lag_for_error_constant,
     lead_at_crossover,
+    loop_check,
     phase_balanced,
     pi_plus_lead,
 )
 from explorer.errors import DesignError
 from explorer.loop import Rational
 from explorer.study import Targets
+
+#: The package's loop check (the batch engine) and the independent oracle: both must
+#: agree with the outside references below.
+CHECKERS = {
+    "engine": lambda loop: loop_check(loop, Rational(gain=1.0)),
+    "oracle": check_loop,
+}
 
 
 # ---------------------------------------------------------------------------------------
@@ -626,40 +634,67 @@ def random_loops(draw, with_delay: bool):
     return Rational(gain=k, zeros=zeros, poles=poles, delay_s=delay)
 
 
+@pytest.mark.parametrize("checker", sorted(CHECKERS))
 @settings(max_examples=150, deadline=None)
-@given(random_loops(with_delay=False))
-def test_check_loop_matches_closed_loop_roots(loop):
+@given(loop=random_loops(with_delay=False))
+def test_check_loop_matches_closed_loop_roots(checker, loop):
     assume(len(loop.zeros) < len(loop.poles) or abs(1.0 + loop.gain) > 1e-3)  # well-posed
     num = loop.gain * np.poly(loop.zeros) if loop.zeros else np.array([loop.gain])
     den = np.poly(loop.poles).real
     num = np.pad(num.real, (len(den) - len(num), 0))
     cl = np.roots(den + num)
     assume(np.all(np.abs(cl.real) > 1e-6 * np.maximum(1.0, np.abs(cl))))  # not marginal
-    chk = check_loop(loop)
+    chk = CHECKERS[checker](loop)
     assert chk.closed_loop_rhp_poles == int(np.sum(cl.real > 0))
     assert chk.closed_loop_stable == bool(np.all(cl.real < 0))
 
 
+@pytest.mark.parametrize("checker", sorted(CHECKERS))
 @settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(random_loops(with_delay=True))
-def test_check_loop_with_delay_matches_winding(loop):
-    chk = check_loop(loop)
+@given(loop=random_loops(with_delay=True))
+def test_check_loop_with_delay_matches_winding(checker, loop):
+    chk = CHECKERS[checker](loop)
     assume(all(abs(m) > 0.5 for m in chk.phase_margins_deg))  # not near marginal
     assume(loop.n_integrators != 0 or abs(1.0 + loop.dc_gain()) > 1e-3)  # L(0) ≠ −1
     ref = ref_rhp_count_winding(loop.gain, loop.zeros, loop.poles, loop.delay_s)
     assert chk.closed_loop_rhp_poles == ref
 
 
-def test_check_loop_crossovers_match_dense_grid():
+@pytest.mark.parametrize("checker", sorted(CHECKERS))
+def test_check_loop_crossovers_match_dense_grid(checker):
     # conditionally stable loop, docs/references.md §2 system 8 with P control k = 20:
     # (s+6)²/(s(s+1)²(s+36)) — unstable for 6.045 < k < 52.26 (recomputed there)
     plant = Rational(gain=1.0, zeros=(-6.0, -6.0), poles=(0.0, -1.0, -1.0, -36.0))
     for k, stable in ((3.0, True), (20.0, False), (80.0, True)):
-        chk = check_loop(plant * Rational(gain=k))
+        chk = CHECKERS[checker](plant * Rational(gain=k))
         assert chk.closed_loop_stable is stable
         ref = ref_margins(plant, Rational(gain=k))
         assert [x for x, _ in ref] == pytest.approx(chk.crossovers_rad_s, rel=1e-5)
         assert [m for _, m in ref] == pytest.approx(chk.phase_margins_deg, abs=1e-3)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(loop=st.one_of(random_loops(with_delay=False), random_loops(with_delay=True)))
+def test_engine_and_oracle_agree(loop):
+    """One engine answers loop questions in the package; the oracle, written
+    independently, must find the same crossovers, margins and Nyquist count."""
+    assume(len(loop.zeros) < len(loop.poles) or abs(1.0 + loop.gain) > 1e-3)
+    ref = check_loop(loop)
+    assume(all(abs(m) > 0.05 for m in ref.phase_margins_deg))  # not near marginal
+    assume(loop.n_integrators != 0 or abs(1.0 + loop.dc_gain()) > 1e-3)
+    assume(ref.closed_loop_rhp_poles >= 0)  # the oracle's own count is consistent
+    if loop.delay_s == 0:  # closed-loop poles (almost) on the axis: marginal, no verdict
+        num = loop.gain * np.poly(loop.zeros) if loop.zeros else np.array([loop.gain])
+        den = np.poly(loop.poles).real
+        cl = np.roots(den + np.pad(num.real, (len(den) - len(num), 0)))
+        assume(np.all(np.abs(cl.real) > 1e-6 * np.maximum(1.0, np.abs(cl))))
+    got = CHECKERS["engine"](loop)
+    assert got.crossovers_rad_s == pytest.approx(ref.crossovers_rad_s, rel=1e-7)
+    assert got.phase_margins_deg == pytest.approx(ref.phase_margins_deg, abs=1e-6)
+    assert got.open_loop_rhp_poles == ref.open_loop_rhp_poles
+    assert got.closed_loop_stable == ref.closed_loop_stable
+    if ref.closed_loop_rhp_poles >= 0:
+        assert got.closed_loop_rhp_poles == ref.closed_loop_rhp_poles
 
 
 # ---------------------------------------------------------------------------------------
