@@ -346,3 +346,24 @@ def test_report_points_are_the_measured_data(tmp_path: Path) -> None:
                                20 * np.log10(np.abs((MODEL * PI).freqresp(w))), atol=1e-9)
     spec = json.dumps(plant_chart(plant_frame(st), st).to_dict())
     assert "measured band" in spec and "coherence" in spec
+
+
+@pytest.mark.slow
+def test_search_constraints_and_record_check_agree_on_data(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """One meaning of "meets" on a measured plant as well: the search's batch
+    constraints (frequency_batch, margin floors) and the record's check
+    (design_figures, unknown reasons) on random designs of every structure of the
+    hopper study, its limits tightened so that random designs both meet and miss."""
+    import tests.test_targets_agree as agree
+
+    (tmp_path / "data").mkdir()
+    (tmp_path / "data" / "hopper_gate_sweep.csv").write_text(
+        (ROOT / "studies" / "data" / "hopper_gate_sweep.csv").read_text())
+    text = (ROOT / "studies" / "hopper_gate.toml").read_text()
+    text = text.replace("sensitivity_peak = 1.7", "sensitivity_peak = 1.35")
+    text = text.replace("gain_margin_db   = 8", "gain_margin_db   = 21.5")
+    assert "1.35" in text and "21.5" in text
+    (tmp_path / "hopper_tight.toml").write_text(text)
+    monkeypatch.setattr(agree, "STUDIES", tmp_path)
+    agree.test_batch_constraints_and_record_check_agree("hopper_tight")
