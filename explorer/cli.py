@@ -7,8 +7,6 @@ traceback); ``--json`` prints exactly one JSON object on stdout.
 from __future__ import annotations
 
 import argparse
-import json
-import math
 import sys
 import traceback
 from collections.abc import Callable, Sequence
@@ -16,6 +14,7 @@ from typing import Any, NoReturn
 
 from explorer.errors import LoopscoutError
 from explorer.evaluate import METRIC_UNITS
+from explorer.json_text import json_text
 from explorer.metric_registry import MARGIN_KEYS
 
 __all__ = ["main", "build_parser"]
@@ -121,23 +120,8 @@ def _cmd_check(args: argparse.Namespace) -> int:
 # --------------------------------------------------------------------------------------
 # output helpers
 # --------------------------------------------------------------------------------------
-def _clean(obj: Any) -> Any:
-    """JSON-safe: non-finite floats → null, tuples → lists, numpy scalars → Python."""
-    if isinstance(obj, dict):
-        return {str(k): _clean(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_clean(v) for v in obj]
-    if isinstance(obj, bool) or obj is None or isinstance(obj, str):
-        return obj
-    if hasattr(obj, "item"):
-        obj = obj.item()
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    return obj
-
-
 def _print_json(obj: dict[str, Any]) -> None:
-    sys.stdout.write(json.dumps(_clean(obj), indent=2, allow_nan=False) + "\n")
+    sys.stdout.write(json_text(obj) + "\n")
 
 
 def _print_study(study: Any) -> None:
@@ -213,22 +197,28 @@ def _print_measured(mp: Any) -> None:
 
 
 def _print_data_notes(designs: list[dict[str, Any]]) -> None:
-    """Per design on a measured plant: what lies outside the band; then the
-    assumptions of the Nyquist count (the same for every design but the count)."""
-    shown = False
-    for d in designs:
-        if "band_rad_s" not in d:
-            continue
+    """Per design on a measured plant: the interpolation error bounds, what lies
+    outside the band, why time figures are withheld; then, once, the assumptions (the
+    same for every design but the Nyquist count, which is left out here)."""
+    data = [d for d in designs if "band_rad_s" in d]
+    units = {"crossover_rad_s": "rad/s", "phase_margin_deg": "deg", "gain_margin_db": "dB",
+             "delay_margin_s": "s", "sensitivity_peak": "", "complementary_peak": ""}
+    for d in data:
+        err = d.get("interpolation_error") or {}
+        shown = [f"{METRIC_UNITS.get(k, (k, ''))[0]} ±{v:.2g}" + (f" {units[k]}"
+                                                                  if units[k] else "")
+                 for k, v in err.items() if k in units]
+        if shown:
+            print(_safe(f"  {d['name']} interpolation error bounds: " + ", ".join(shown)))
         for line in d.get("outside_band") or []:
             print(_safe(f"  {d['name']} outside the band: {line}"))
         if d.get("time_note"):
             print(_safe(f"  {d['name']}: {d['time_note']}"))
-        if not shown:
-            print("  assumptions about the data:")
-            for line in d.get("assumptions") or []:
-                if not line.startswith("Nyquist count"):
-                    print(_safe(f"    - {line}"))
-            shown = True
+    if data:
+        print("  assumptions about the data:")
+        for line in data[0].get("assumptions") or []:
+            if not line.startswith("Nyquist count"):
+                print(_safe(f"    - {line}"))
 
 
 def _factored(gain: float, zeros: Sequence[complex], poles: Sequence[complex], *,

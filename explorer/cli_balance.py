@@ -51,7 +51,13 @@ def register(sub: Any, caution: str) -> None:
 
 def _run(args: argparse.Namespace) -> int:
     from explorer.balance import hand_designs, trim_gain_for_overshoot
-    from explorer.cli import _design_table, _print_json, _print_study, _study_header
+    from explorer.cli import (
+        _design_table,
+        _print_data_notes,
+        _print_json,
+        _print_study,
+        _study_header,
+    )
     from explorer.errors import LoopscoutError
     from explorer.evaluate import evaluated_record
     from explorer.study import load_study
@@ -121,6 +127,7 @@ def _run(args: argparse.Namespace) -> int:
                 print("  misses: " + "; ".join(d["misses"]))
     for r in refused:
         print(f"{r['name']} refused: {r['reason']}")
+    _print_data_notes(designs)  # a measured plant: bounds, outside the band, assumptions
     print()
     print(args.caution)
     return 0
