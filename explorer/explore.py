@@ -10,7 +10,6 @@ designs (explorer.balance) as reference points, ranks (explorer.ranking), and wr
 
 from __future__ import annotations
 
-import json
 import math
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -20,6 +19,7 @@ import numpy as np
 
 from explorer.errors import LoopscoutError
 from explorer.evaluate import evaluated_record, given_designs
+from explorer.json_text import json_text
 from explorer.loop import Rational
 from explorer.recommend import drop_near_duplicates, practical_misses, recommend
 from explorer.report import write_report
@@ -578,22 +578,8 @@ def _study_header(study: Study) -> dict[str, Any]:
     return study_header(study)
 
 
-def _clean(v: Any) -> Any:
-    if isinstance(v, dict):
-        return {k: _clean(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_clean(x) for x in v]
-    if isinstance(v, (np.floating, float)):
-        return None if not math.isfinite(float(v)) else float(v)
-    if isinstance(v, np.integer):
-        return int(v)
-    if isinstance(v, np.bool_):
-        return bool(v)
-    return v
-
-
 def _write(out: Path, study: Study, obj: dict[str, Any], frame: Any) -> None:
-    text = json.dumps(_clean(obj), indent=2, allow_nan=False)
+    text = json_text(obj)
     (out / "designs.json").write_text(text + "\n", encoding="utf-8")
     csv = frame.copy()
     if len(csv):
