@@ -130,10 +130,23 @@ def _inputs(
     return study, given_designs(study), None, None
 
 
+def _check_out_file(path: Path) -> None:
+    """Refuse an unwritable --out before the charts are built (a missing folder was
+    refused only after 20 s of rendering)."""
+    from explorer.errors import LoopscoutError
+
+    folder = path.parent if str(path.parent) else Path(".")
+    if path.is_dir():
+        raise LoopscoutError(f"cannot write report {path}: it is a directory")
+    if not folder.is_dir():
+        raise LoopscoutError(f"cannot write report {path}: the folder {folder} does not exist")
+
+
 def _cmd_report(args: argparse.Namespace) -> int:
     from explorer.report import write_report
 
     study, designs, answer, summary = _inputs(args)
+    _check_out_file(Path(args.out))
     out = write_report(study, designs, Path(args.out), answer=answer, summary=summary)
     print(f"wrote {out}")
     return 0

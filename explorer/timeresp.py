@@ -772,6 +772,23 @@ def _reverse(a):
 
 
 def _abs_integral(a):
+    """∫₀¹ |p(σ)| dσ for every cubic (…, 4), split exactly at sign changes.
+
+    A cubic whose Bernstein coefficients on [0, 1] share one strict sign keeps that
+    sign (the convex-hull property) and is integrated in one piece; only the others
+    (a few per sign change of the signal) are split.
+    """
+    a0, a1, a2, a3 = a[..., 0], a[..., 1], a[..., 2], a[..., 3]
+    bern = np.stack([a0, a0 + a1 / 3, a0 + (2 * a1 + a2) / 3, a0 + a1 + a2 + a3], axis=-1)
+    one_sign = np.all(bern > 0, axis=-1) | np.all(bern < 0, axis=-1)
+    out = np.abs(a0 + a1 / 2 + a2 / 3 + a3 / 4)
+    if not np.all(one_sign):
+        split = ~one_sign
+        out[split] = _abs_integral_split(a[split])
+    return out
+
+
+def _abs_integral_split(a):
     """∫₀¹ |p(σ)| dσ for every cubic (…, 4), split exactly at sign changes."""
     pts = _breaks(a)
     vals = _pval(a[..., None, :], pts)

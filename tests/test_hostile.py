@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import datetime as dt
 import json
-import math
 import os
 import subprocess
 import sys
@@ -24,230 +23,28 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hostile_corpus import (
+    EXTREME,
+    FAILURES,
+    _roots,
+    extreme_study,
+    format_table,
+    hostile_files,
+    make,
+    verify_frequency,
+    verify_step_scipy,
+)
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from reference_loop import reference_metrics
 
 from explorer import study as study_mod
 from explorer.cli import main
 from explorer.errors import StudyFileError
-from explorer.loop import Rational
 from explorer.study import parse_study
 
 ROOT = Path(__file__).resolve().parents[1]
 
-PLANT = "gain = 8.0\nzeros = []\npoles = [-0.5, -4, -12]\n"
-TARGETS = "crossover = 1.5\nphase_margin = 50\nintegrators = 1\n"
-COMP = '[[compensator]]\nname = "A"\ngain = 1.2\nzeros = [-0.5]\npoles = [0]\n'
-
-
-def make(plant: str = PLANT, targets: str = TARGETS, rest: str = COMP, top: str = "") -> str:
-    return f"{top}\n[plant]\n{plant}\n[targets]\n{targets}\n{rest}"
-
-
-def _roots(values: list[float]) -> str:
-    return "[" + ", ".join(repr(float(v)) for v in values) + "]"
-
-
-# ======================================================================================
-# (a) the hostile corpus
-def _corpus() -> list[tuple[str, str | bytes]]:
-    cases: list[tuple[str, str | bytes]] = []
-
-    def add(name: str, text: str | bytes) -> None:
-        cases.append((name, text))
-
-    # -- wrong types at every scalar key -----------------------------------------------
-    wrong = {"string": '"7"', "bool": "true", "list": "[1]", "table": "{ a = 1 }",
-             "date": "1979-05-27", "datetime": "1979-05-27T07:32:00Z"}
-    scalar_sites = {
-        "plant.gain": lambda v: make(plant=f"gain = {v}\npoles = [-1]\n"),
-        "plant.delay": lambda v: make(plant=PLANT + f"delay = {v}\n"),
-        "targets.phase_margin": lambda v: make(
-            targets=f"crossover = 1.5\nphase_margin = {v}\nintegrators = 1\n"),
-        "targets.integrators": lambda v: make(targets=f"crossover = 1.5\nintegrators = {v}\n"),
-        "targets.overshoot": lambda v: make(targets=f"overshoot = {v}\nintegrators = 1\n"),
-        "limits.sensitivity_peak": lambda v: make(
-            rest=COMP + f"[limits]\nsensitivity_peak = {v}\n"),
-        "limits.gain_margin_db": lambda v: make(rest=COMP + f"[limits]\ngain_margin_db = {v}\n"),
-        "search.max_order": lambda v: make(rest=COMP + f"[search]\nmax_order = {v}\n"),
-        "search.seed": lambda v: make(rest=COMP + f"[search]\nseed = {v}\n"),
-        "compensator.gain": lambda v: make(rest=f"[[compensator]]\ngain = {v}\npoles = [0]\n"),
-    }
-    for site, build in scalar_sites.items():
-        for kind, value in wrong.items():
-            if site == "targets.overshoot" and kind == "bool":
-                continue
-            add(f"type {site} {kind}", build(value))
-    for kind, value in wrong.items():
-        if kind != "string":
-            add(f"type name {kind}", make(top=f"name = {value}\n"))
-        if kind != "string":
-            add(f"type root {kind}", make(plant=f"gain = 1\npoles = [{value}]\n"))
-    for section in ("plant", "targets", "limits", "search"):
-        if section in ("limits", "search"):
-            add(f"section {section} as value", make(top=f"{section} = 3\n"))
-        else:
-            add(f"section {section} as value",
-                f"{section} = 3\n" + make().replace(f"[{section}]", "[other]"))
-    add("compensator as table", make(rest="[compensator]\ngain = 1\n"))
-    add("compensator as number", make(rest="compensator = 1\n"))
-    add("compensator list of numbers", make(rest="compensator = [1, 2]\n"))
-
-    # -- NaN and infinities ---------------------------------------------------------------
-    for bad in ("nan", "inf", "-inf", "+nan"):
-        add(f"nonfinite gain {bad}", make(plant=f"gain = {bad}\npoles = [-1]\n"))
-        add(f"nonfinite delay {bad}", make(plant=PLANT + f"delay = {bad}\n"))
-        add(f"nonfinite root {bad}", make(plant=f"gain = 1\npoles = [{bad}]\n"))
-        add(f"nonfinite crossover {bad}",
-            make(targets=f"crossover = {bad}\nintegrators = 1\n"))
-        add(f"nonfinite pm {bad}", make(targets=f"phase_margin = {bad}\nintegrators = 1\n"))
-        add(f"nonfinite num {bad}", make(plant=f"num = [{bad}]\nden = [1, 1]\n"))
-        add(f"nonfinite limit {bad}", make(rest=COMP + f"[limits]\niae_load = {bad}\n"))
-        add(f"nonfinite complex {bad}",
-            make(plant=f'gain = 1\npoles = ["{bad}+1j", "{bad}-1j"]\n'))
-
-    # -- huge and tiny numbers (outside the numerical domain) ------------------------------
-    for g in ("1e308", "-1e308", "5e-324", "1e-101", "1e101", "-1e-200"):
-        add(f"domain gain {g}", make(plant=f"gain = {g}\npoles = [-1, -2]\n"))
-        add(f"domain compensator gain {g}",
-            make(rest=f"[[compensator]]\ngain = {g}\npoles = [0]\n"))
-    for r in ("-1e300", "-1e-300", "-1e-9", "-2e8", "1e9", "-5e-324"):
-        add(f"domain pole {r}", make(plant=f"gain = 1\npoles = [{r}, -1]\n"))
-        add(f"domain zero {r}", make(plant=f"gain = 1\nzeros = [{r}]\npoles = [-1, -2]\n"))
-    add("domain complex pair 1e200",
-        make(plant='gain = 1\npoles = ["-1e200+1e200j", "-1e200-1e200j", -1]\n'))
-    for d in ("1e300", "1e-300", "1e9", "1e-9"):
-        add(f"domain delay {d}", make(plant=PLANT + f"delay = {d}\n"))
-    for w in ("1e300", "1e-300", "1e9"):
-        add(f"domain crossover {w}", make(targets=f"crossover = {w}\nintegrators = 1\n"))
-    add("domain settling time tiny",
-        make(targets="overshoot = 10\nsettling_time = 1e-12\nintegrators = 1\n"))
-    add("domain span plant", make(plant="gain = 1\npoles = [-1e-5, -1e5]\n"))
-    add("domain span delay", make(plant="gain = 1\npoles = [-1e5]\ndelay = 1e4\n"))
-    add("domain span compensator",
-        make(rest="[[compensator]]\ngain = 1\nzeros = [-1e-7]\npoles = [0]\n"))
-    add("domain delay short", make(plant=PLANT + "delay = 1e-6\n"))
-    add("domain delay short vs compensator",
-        make(plant=PLANT + "delay = 1e-3\n",
-             rest="[[compensator]]\ngain = 1\nzeros = [-1e-3]\npoles = [0]\n"))
-    add("domain span crossover", make(targets="crossover = 1e-7\nintegrators = 1\n"))
-    add("domain magnitude budget",
-        make(plant="gain = 1\npoles = " + _roots([-1e6] * 40) + "\n",
-             targets="crossover = 1e6\nintegrators = 0\n",
-             rest="[[compensator]]\ngain = 1\npoles = " + _roots([-1e6] * 40) + "\n"))
-    add("domain num/den gain inf", make(plant="num = [1e300]\nden = [1e-300, 1]\n"))
-    add("domain num/den LinAlg", make(plant="num = [1]\nden = [1e-300, 1, 1]\n"))
-    add("domain num/den (s+1)^200",
-        make(plant="num = [1]\nden = " + _roots(list(np.poly([-1.0] * 200))) + "\n"))
-    add("domain num/den 41 leading zeros", make(plant="num = [1]\nden = " +
-                                                _roots([0.0] * 41 + [1.0, 1.0]) + "\n"))
-    add("domain integrators 1e8", make(targets="integrators = 100000000\n"))
-    add("domain integrators 4", make(targets="integrators = 4\n"))
-    add("domain integrators 10**30", make(targets="integrators = " + "9" * 18 + "\n"))
-    add("domain too many poles", make(plant="gain = 1\npoles = " + _roots([-1.0] * 41) + "\n"))
-    add("domain 20000 poles",
-        make(plant="gain = 1\npoles = " + _roots([-1 - 1e-3 * i for i in range(20000)]) + "\n"))
-    add("domain too many zeros",
-        make(plant="gain = 1\nzeros = " + _roots([-2.0] * 41) + "\npoles = "
-             + _roots([-1.0] * 40) + "\n"))
-    add("domain too many compensators",
-        make(rest="".join(f'[[compensator]]\nname = "C{i}"\ngain = 1\npoles = [0]\n'
-                          for i in range(101))))
-
-    # -- nesting ---------------------------------------------------------------------------
-    for depth in (50, 500, 5000):
-        add(f"nesting array {depth}", make(top="x = " + "[" * depth + "]" * depth + "\n"))
-        add(f"nesting in plant {depth}",
-            make(plant="gain = 1\npoles = " + "[" * depth + "]" * depth + "\n"))
-    add("nesting inline table 600", make(top="x = " + "{a = " * 600 + "1" + "}" * 600 + "\n"))
-    add("nesting dotted tables", make(top="[" + ".".join(["a"] * 300) + "]\nb = 1\n"))
-
-    # -- unknown keys at every level -----------------------------------------------------
-    for where, build in {
-        "top": lambda k: make(top=f"{k} = 1\n"),
-        "plant": lambda k: make(plant=PLANT + f"{k} = 1\n"),
-        "targets": lambda k: make(targets=TARGETS + f"{k} = 1\n"),
-        "limits": lambda k: make(rest=COMP + f"[limits]\n{k} = 1\n"),
-        "search": lambda k: make(rest=COMP + f"[search]\n{k} = 1\n"),
-        "compensator": lambda k: make(rest=COMP + f"{k} = 1\n"),
-    }.items():
-        for k in ("dealy", '"\\u001b[2J"', '"a.b"', '"' + "k" * 500 + '"', '""'):
-            add(f"unknown key {where} {k[:12]}", build(k))
-
-    # -- lone and unpaired complex roots, bad root strings ----------------------------------
-    for roots in ('["-2+3j"]', '["-2+3j", "-2-3.1j"]', '["-2+3j", "-2+3j", "-2-3j"]',
-                  '["-2+3i", "-2-3i"]', '["3j-2", "-3j-2"]', '["1e999+1j", "1e999-1j"]',
-                  '["--1"]', '["-1" ]', '[""]', '["nanj", "-nanj"]', '["\\u001b"]'):
-        if roots == '["-1" ]':
-            continue
-        add(f"roots {roots}", make(plant=f"gain = 1\npoles = {roots}\n"))
-        add(f"compensator roots {roots}", make(rest=f"[[compensator]]\ngain = 1\nzeros = []\n"
-                                                    f"poles = {roots}\n"))
-
-    # -- bad ranges, limits, search, requirements --------------------------------------------
-    for rng in ("[3, 1]", "[1]", "[1, 2, 3]", "[0, 1]", "[-1, 1]", "[1e-7, 1]", "[1, 1]",
-                "[]", '["a", 2]', "[nan, 2]"):
-        add(f"range {rng}", make(targets=f"crossover = {rng}\nintegrators = 1\n"))
-    add("range with tolerance",
-        make(targets="crossover = [1, 2]\ncrossover_tolerance = 0.1\nintegrators = 1\n"))
-    for key, v in (("sensitivity_peak", "0.5"), ("phase_margin_deg", "200"),
-                   ("gain_margin_db", "-3"), ("settling_time_s", "0"),
-                   ("hf_gain", "-1"), ("overshoot_pct", "-1"), ("complementary_peak", "0"),
-                   ("delay_margin_s", "-1e-300"), ("bandwidth", "3")):
-        add(f"limit {key} {v}", make(rest=COMP + f"[limits]\n{key} = {v}\n"))
-    for key, v in (("max_order", "7"), ("max_order", "-1"), ("trials", "0"),
-                   ("trials", "1000000000"), ("seed", "-5"), ("seed", "4294967296"),
-                   ("seed", "1.5"), ("max_pole_ratio", "1"), ("max_pole_ratio", "1e300"),
-                   ("cancel_lightly_damped", "1")):
-        add(f"search {key} {v}", make(rest=COMP + f"[search]\n{key} = {v}\n"))
-    for tg in ("phase_margin = 90\nintegrators = 1\n", "phase_margin = 0\nintegrators = 1\n",
-               "overshoot = 100\nintegrators = 1\n", "overshoot = -1\nintegrators = 1\n",
-               "overshoot = 10\nphase_margin = 50\nintegrators = 1\n",
-               "settling_time = 2\nintegrators = 1\n",
-               "overshoot = 10\nsettling_time = 2\nsettling_band = 0.03\nintegrators = 1\n",
-               "overshoot = 10\npm_rule = \"guess\"\nintegrators = 1\n",
-               "error_constant = 0\nintegrators = 1\n", "error_constant = 1e300\nintegrators = 1\n",
-               "crossover = 1\ncrossover_tolerance = 0.9\nintegrators = 1\n",
-               "crossover = 1\n", "integrators = -1\n"):
-        add(f"targets {tg.splitlines()[0]} {len(cases)}", make(targets=tg))
-
-    # -- bad [[compensator]] -------------------------------------------------------------------
-    for body in ("gain = 0\npoles = [0]\n", "zeros = [-1]\npoles = [0]\n",
-                 "gain = 1\nzeros = [-1, -2]\npoles = [0]\n", "gain = 1\ndelay = 1\n",
-                 "num = [1, 2, 1]\nden = [1, 0]\n", "gain = 1\nnum = [1]\nden = [1, 1]\n",
-                 "num = [1]\n", 'name = ""\ngain = 1\n', 'name = "  "\ngain = 1\n',
-                 'name = "\\u001b]0;pwned\\u0007"\ngain = 1\n', 'name = "\\u009b2J"\ngain = 1\n',
-                 'name = "a\\rb"\ngain = 1\n', 'name = "' + "n" * 300 + '"\ngain = 1\n',
-                 "num = [0, 0]\nden = [1]\n"):
-        add(f"compensator {body.splitlines()[0][:20]} {len(cases)}",
-            make(rest="[[compensator]]\n" + body))
-    add("compensator duplicate names", make(rest=COMP + COMP))
-    add("no compensators", make(rest=""))
-    add("name escape", make(top='name = "\\u001b[2J\\u001b[31mred"\n'))
-    add("name bell", make(top='name = "ding\\u0007"\n'))
-
-    # -- bytes: encodings, syntax -----------------------------------------------------------------
-    good = make().encode()
-    add("bytes latin-1", make(top='name = "Ofen\xe4"\n').encode("latin-1"))
-    add("bytes lone continuation", b"\x80" + good)
-    add("bytes overlong slash", b'name = "\xc0\xaf"\n' + good)
-    add("bytes encoded surrogate", b'name = "\xed\xa0\x80"\n' + good)
-    add("bytes utf-16", make().encode("utf-16"))
-    add("bytes BOM then garbage", b"\xef\xbb\xbf" + b"\x00\x01\x02")
-    add("bytes double BOM", b"\xef\xbb\xbf\xef\xbb\xbf" + good)
-    add("bytes NUL", good.replace(b"8.0", b"8\x00.0"))
-    add("bytes random", bytes(np.random.default_rng(19).integers(0, 256, 4096, dtype=np.uint8)))
-    add("bytes empty", b"")
-    add("bytes only BOM", b"\xef\xbb\xbf")
-    add("bytes over 1 MiB", good + b"#" + b"x" * (1 << 20) + b"\n")
-    add("syntax duplicate key", make(plant=PLANT + "gain = 2\n"))
-    add("syntax bare escape", b'name = "\x1b[31m"\n' + good)
-    add("syntax unterminated", make() + '\nname = "open\n')
-    return cases
-
-
-CORPUS = _corpus()
+CORPUS = hostile_files()
 
 
 def test_corpus_is_large_and_ids_unique() -> None:
@@ -478,53 +275,45 @@ def test_endless_device_is_refused() -> None:
 
 # ======================================================================================
 # (d) extreme but valid: answers agree with the scipy-only reference evaluator
-EXTREME = [
-    # (id, plant, compensator, reference grid)
-    ("roots 1e-3..1e3", Rational(gain=1.0, poles=[-1e-3, -1e3]),
-     Rational(gain=1e3, zeros=[-1e-3], poles=[0]), (1e-5, 1e5)),
-    ("gain 1e-12", Rational(gain=1e-12, poles=[-1, -2]),
-     Rational(gain=2e12, zeros=[-1], poles=[0]), (1e-4, 1e4)),
-    ("gain 1e12", Rational(gain=1e12, poles=[-1, -2]),
-     Rational(gain=2e-12, zeros=[-1], poles=[0]), (1e-4, 1e4)),
-    ("delay 100 s", Rational(gain=1.0, poles=[-0.01], delay_s=100.0),
-     Rational(gain=0.004, zeros=[-0.01], poles=[0]), (1e-5, 1.0)),
-    ("delay 1e-3 s", Rational(gain=1.0, poles=[-1.0, -10.0], delay_s=1e-3),
-     Rational(gain=5.0, zeros=[-1.0], poles=[0]), (1e-3, 1e3)),
-    ("lightly damped 1e5", Rational(gain=1e10, poles=[-0.5e3 + 1e5j, -0.5e3 - 1e5j, -1e2]),
-     Rational(gain=0.1, zeros=[-1e2], poles=[0, -5e3]), (1e-7, 1e7)),
-    ("twelve poles", Rational(gain=1.0, poles=[-1.0] * 12),
-     Rational(gain=0.5, zeros=[-1.0], poles=[0]), (1e-4, 1e2)),
-]
-
-
-def _write_study(path: Path, plant: Rational, comp: Rational) -> None:
-    def roots(rs):
-        return "[" + ", ".join(f'"{r.real!r}{r.imag:+.17g}j"' if r.imag else repr(r.real)
-                               for r in rs) + "]"
-
-    path.write_text(
-        f"[plant]\ngain = {plant.gain!r}\nzeros = {roots(plant.zeros)}\n"
-        f"poles = {roots(plant.poles)}\ndelay = {plant.delay_s!r}\n"
-        "[targets]\nintegrators = 1\n"
-        f'[[compensator]]\nname = "X"\ngain = {comp.gain!r}\nzeros = {roots(comp.zeros)}\n'
-        f"poles = {roots(comp.poles)}\n"
-    )
-
-
-@pytest.mark.parametrize(("name", "plant", "comp", "grid"), EXTREME, ids=[e[0] for e in EXTREME])
-def test_extreme_valid_loop_agrees_with_reference(name, plant, comp, grid, tmp_path,
+@pytest.mark.parametrize(("name", "plant", "comp", "grid", "step"), EXTREME,
+                         ids=[e[0] for e in EXTREME])
+def test_extreme_valid_loop_agrees_with_reference(name, plant, comp, grid, step, tmp_path,
                                                   capsys) -> None:
+    """check --json against tests/reference_loop.py (crossover, PM, Ms) and, for the
+    delay-free loops marked "scipy", the stability verdict and step figures against the
+    closed-loop polynomial's roots and scipy.signal."""
     path = tmp_path / "x.toml"
-    _write_study(path, plant, comp)
+    path.write_text(extreme_study(plant, comp))
     code = main(["check", str(path), "--json"])
     out, err = capsys.readouterr()
     assert code == 0, err
     m = json.loads(out)["designs"][0]["metrics"]
-    ref = reference_metrics(plant * comp, w_lo=grid[0], w_hi=grid[1], points=4000)
-    assert m["phase_margin_deg"] is not None and ref["phase_margin_deg"] is not None
-    assert m["phase_margin_deg"] == pytest.approx(ref["phase_margin_deg"], abs=1e-4)
-    assert m["crossover_rad_s"] == pytest.approx(ref["crossover_rad_s"], rel=1e-6)
-    assert m["sensitivity_peak"] == pytest.approx(ref["sensitivity_peak"], rel=1e-5)
-    for v in m.values():  # every number printed is finite (null where it does not exist)
-        if isinstance(v, float):
-            assert math.isfinite(v)
+    assert m["phase_margin_deg"] is not None
+    ok, why = verify_frequency(plant, comp, grid, m)
+    assert ok, why
+    if step == "scipy":
+        ok, why = verify_step_scipy(plant, comp, m)
+        assert ok, why
+
+
+# ======================================================================================
+# (e) the whole corpus through the real command line: the issue's tally
+@pytest.mark.slow
+def test_hostile_corpus_tally() -> None:
+    """Every input of tests/hostile_corpus.py under the commands it applies to, each run
+    in its own process, two at a time: at least 200 inputs, and 0 internal errors, 0
+    hangs (120 s, a hang detector), 0 blow-ups (1.5 GiB peak RSS), 0 wrong answers and
+    0 messy refusals. The table is printed (pytest -s) and in docs/hostile-input.md."""
+    env = {**os.environ, "OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1",
+           "MKL_NUM_THREADS": "1"}
+    res = subprocess.run([sys.executable, str(ROOT / "tests" / "hostile_corpus.py"), "--json"],
+                         capture_output=True, text=True, env=env, cwd=ROOT, timeout=1800)
+    assert res.stdout.strip(), res.stderr[-2000:]
+    t = json.loads(res.stdout)
+    print(format_table(t))
+    assert t["inputs"] >= 200
+    for outcome in FAILURES:
+        assert t["counts"][outcome] == 0, (outcome, t["failures"])
+    assert t["counts"]["refused"] >= 200 and t["counts"]["answered"] >= 20
+    assert t["fresh_runs"] >= 5
+    assert res.returncode == 0
