@@ -519,6 +519,10 @@ def _summary(
             f"(up to order {study.search.max_order}); {_relax_hint(study, structures, why)} "
             "(the reasons per structure follow)"
         )
+    if study.search.sample_time_s is not None:  # the sampled controller (sampled_search)
+        from explorer.sampled_search import sampling_line
+
+        lines.append(sampling_line(study))
     lines.append(f"explored {len(structures)} structures x {n_trials} trials")
     mp = study.measured
     if mp is not None:  # a measured plant: where the figures come from

@@ -226,6 +226,9 @@ class _Row:
 def _val(d: dict[str, Any], key: str, *, worst: bool = False) -> Any:
     if worst and isinstance(d.get("worst"), dict) and key in d["worst"]:
         return d["worst"][key]
+    # a sampled controller is judged on its sampled loop ([search] sample_time)
+    if isinstance(d.get("sampled_metrics"), dict) and key in d["sampled_metrics"]:
+        return d["sampled_metrics"][key]
     return d.get("metrics", {}).get(key)
 
 
@@ -445,6 +448,10 @@ def _figures(d: dict[str, Any], ref: dict[str, Any] | None = None) -> str:
             if abs(dv) > 1e-12 * max(abs(float(v)), 1.0):
                 diff = f" <span class='diff'>({dv:+.3g})</span>"
         rows.append(f"<tr><th>{label}</th><td>{_fmt(v, fmt)}{diff}</td></tr>")
+    sm = d.get("sampled_metrics")
+    if isinstance(sm, dict):  # the loop that runs ([search] sample_time)
+        for key, label, fmt in _KEY_FIGS[:4] + _KEY_FIGS[6:8]:
+            rows.append(f"<tr><th>sampled {label}</th><td>{_fmt(sm.get(key), fmt)}</td></tr>")
     return f"<table class='figs'>{''.join(rows)}</table>"
 
 

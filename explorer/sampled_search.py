@@ -52,7 +52,8 @@ from explorer.sampled_batch import (
 from explorer.sampled_step import MAX_SAMPLES, STEP_KEYS, sampled_step_metrics
 
 __all__ = ["CORRECTIONS", "design_plant", "sampled_plant", "sampled_balance",
-           "sampled_readings", "sampled_record", "SAMPLED_KEYS", "judged_metrics"]
+           "sampled_readings", "sampled_record", "SAMPLED_KEYS", "judged_metrics",
+           "sampling_line"]
 
 #: Most correction passes of the balancing targets (step 2).
 CORRECTIONS = 4
@@ -244,6 +245,30 @@ def sampled_record(study: Any, comp: Rational, metrics: dict[str, Any]) -> dict[
     if note:
         extra["sampled_note"] = note
     return {"extra": extra, "judged": judged_metrics(metrics, sm)}
+
+
+def sampling_line(study: Any) -> str:
+    """The summary line of a sampled study: T, τc, ωc·T at the target crossover (the
+    fastest end of a range) and the phase the hold and delay cost there, with a warning
+    when ωc·T exceeds explorer.sampled.WC_T_WARN_RAD (common practice)."""
+    from explorer.sampled import WC_T_WARN_RAD
+
+    T = float(study.search.sample_time_s)
+    tc = float(study.search.compute_delay_s)
+    head = f"sampled controller: T = {T:g} s" + (f", computation delay {tc:g} s" if tc else "")
+    wc = study.targets.crossover_rad_s
+    if isinstance(wc, tuple):
+        wc = wc[1]
+    if not isinstance(wc, (int, float)):
+        return head + "; every design judged on its sampled loop"
+    wt = float(wc) * T
+    cost = math.degrees(float(wc) * (T / 2.0 + tc))
+    line = (f"{head}; ωc·T = {wt:.3g} rad at the target crossover, about {cost:.2g}° of "
+            "phase to the hold and delay (ωc·(T/2 + τc)), which the search balances for")
+    if wt > WC_T_WARN_RAD:
+        line += (f" — T is long for this crossover (ωc·T > {WC_T_WARN_RAD:g} rad, common "
+                 "practice): shorten it or lower the crossover")
+    return line
 
 
 def judged_metrics(metrics: dict[str, Any], sampled: dict[str, Any] | None) -> dict[str, Any]:

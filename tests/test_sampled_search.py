@@ -196,3 +196,16 @@ def test_short_sample_time_tends_to_continuous(tmp_path: Path) -> None:
         assert abs(gaps[-1][0] - math.degrees(0.8 * T / 2)) < 0.25 * math.degrees(0.8 * T / 2) + 0.02
     assert gaps[1][0] < gaps[0][0] / 4 and gaps[1][1] < gaps[0][1] / 4
     assert gaps[1][0] < 0.2
+
+
+def test_summary_line_states_the_rule() -> None:
+    """ωc·T and the hold's cost ωc·(T/2 + τc) in degrees; a warning past 0.5 rad
+    (explorer.sampled.WC_T_WARN_RAD, common practice)."""
+    from explorer.sampled_search import sampling_line
+
+    ok = sampling_line(parse_study({**BASE, "search": {"sample_time": 0.1,
+                                                       "compute_delay": 0.02}}))
+    assert "ωc·T = 0.08 rad" in ok and f"{math.degrees(0.8 * 0.07):.2g}°" in ok
+    assert "long" not in ok
+    slow = sampling_line(parse_study({**BASE, "search": {"sample_time": 1.0}}))
+    assert "ωc·T = 0.8 rad" in slow and "T is long for this crossover" in slow
