@@ -900,8 +900,15 @@ def _measured_marks(md: pd.DataFrame, x: Any, band: tuple[float, float]) -> tupl
     pts = alt.Chart(md).mark_point(color=_INK, size=28, filled=False)
     mag = pts.encode(y="mag_db:Q", **enc)
     ph = pts.encode(y="phase_deg:Q", **enc)
-    lim = _vrule(list(band), "measured band", dash=(1, 2))
-    return mag + lim, ph + lim
+    df = pd.DataFrame({"v": list(band), "label": ["measured band: low end",
+                                                   "measured band: high end"]})
+    lim = alt.Chart(df).mark_rule(color=_INK, strokeDash=[1, 2], strokeWidth=1.4).encode(
+        x="v:Q", tooltip=["label:N", alt.Tooltip("v:Q", format=".4g")])
+    # the label inside the band, at the top of its high end (clear of the target marks)
+    text = alt.Chart(df.iloc[1:].assign(label="measured band")).mark_text(
+        align="right", baseline="top", dx=-4, dy=4, color=_INK, fontSize=11
+    ).encode(x="v:Q", y=alt.value(0), text="label:N")
+    return mag + lim + text, ph + lim + text
 
 
 def plant_chart(pf: pd.DataFrame, study: Study) -> alt.VConcatChart:
