@@ -274,15 +274,15 @@ MAX_DELAY_SAMPLES = 10_000
 
 def _check_sampling_domain(plant_delay_s: float, T: float, compute_delay_s: float) -> None:
     """The sample time and the computation delay inside the study file's numerical domain
-    (docs/study-file.md): T and a nonzero computation delay in [1e-8, 1e8] s, and the
-    whole delay at most MAX_DELAY_SAMPLES samples."""
+    (docs/study-file.md, as `[search] sample_time`): π/T in [1e-8, 1e8] rad/s, a nonzero
+    computation delay in [1e-8, 1e8] s, the whole delay at most MAX_DELAY_SAMPLES samples."""
     from explorer.errors import LoopscoutError
     from explorer.study import FREQ_MAX, FREQ_MIN
 
+    if not FREQ_MIN <= math.pi / T <= FREQ_MAX:
+        raise LoopscoutError(f"`--sample-time` {T:.6g} s puts π/T outside [{FREQ_MIN:g}, "
+                             f"{FREQ_MAX:g}] rad/s (the study file's numerical domain)")
     lo, hi = 1.0 / FREQ_MAX, 1.0 / FREQ_MIN
-    if not lo <= T <= hi:
-        raise LoopscoutError(f"`--sample-time` {T:.6g} s is outside [{lo:g}, {hi:g}] s "
-                             "(the study file's numerical domain)")
     if compute_delay_s and not lo <= compute_delay_s <= hi:
         raise LoopscoutError(f"`--compute-delay` {compute_delay_s:.6g} s is outside "
                              f"[{lo:g}, {hi:g}] s (or 0)")
