@@ -42,6 +42,7 @@ def _datasets(spec: dict) -> list[list[dict]]:
     return list(spec.get("datasets", {}).values())
 
 
+@pytest.mark.slow
 def test_sampled_charts_present_with_their_series(sampled) -> None:
     st, ds = sampled
     specs = chart_specs(st, ds)
@@ -100,6 +101,7 @@ def test_sampled_step_frame_matches_the_record(sampled) -> None:
         assert np.allclose(np.diff(u["t_s"].to_numpy())[:-1], 0.1)
 
 
+@pytest.mark.slow
 def test_requirement_checks_and_answer_card_read_the_sampled_loop(sampled, tmp_path) -> None:
     """The requirements table judges what meets_targets judged (the sampled loop): each
     design's ✓/✗ on every row agrees with its meets_targets, and the answer card lists
