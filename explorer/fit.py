@@ -45,6 +45,8 @@ FAR_ZERO_FACTOR = 1e9
 #: A real pole below this multiple of the bottom of the band is an integrator (made
 #: exactly 0: VF reflects a pole at the origin to a tiny negative value).
 INTEGRATOR_TOL = 1e-6
+#: A fitted delay whose phase at the top of the band is below this (rad) is taken as 0.
+NEGLIGIBLE_DELAY_RAD = 1e-6
 _ORDER_FLOOR = 1e-3
 _ORDER_SLACK = 1.5
 
@@ -389,6 +391,13 @@ def fit_model(
     _, pr = fit_at(n, tau, 12)
     model, folded = _to_rational(pr[0], pr[1], pr[2], tau, w_hi, w_lo)
     model, simplified = _simplify(model, w, f, weight, w_lo, w_hi)
+    if 0.0 < model.delay_s and model.delay_s * w_hi < NEGLIGIBLE_DELAY_RAD:
+        # a delay the data cannot see (rounding of the search, or a far zero folded in):
+        # 0, not a 1e-17 s delay whose 1/τ would leave the numerical domain
+        simplified = [*simplified, f"delay {model.delay_s:.3g} s (phase "
+                                   f"{model.delay_s * w_hi:.2g} rad at the top of the band) "
+                                   "taken as 0"]
+        model = Rational(gain=model.gain, zeros=model.zeros, poles=model.poles)
     errs = _errors(model.freqresp(w), f)
     notes: list[str] = [
         f"vector fitting (relaxed), {n} poles, delay {tau:.6g} s chosen by a grid and a "

@@ -367,3 +367,31 @@ def test_search_constraints_and_record_check_agree_on_data(
     (tmp_path / "hopper_tight.toml").write_text(text)
     monkeypatch.setattr(agree, "STUDIES", tmp_path)
     agree.test_batch_constraints_and_record_check_agree("hopper_tight")
+
+
+def test_unstable_plant_on_data_needs_its_declared_pole(tmp_path: Path) -> None:
+    """An open-loop unstable plant (invented: a levitated load, 2/((s − 1)(s + 5)))
+    stabilised by a lead: with unstable_poles = 1 the data give the model's verdict
+    (closed-form check: the closed-loop characteristic polynomial's roots, numpy);
+    declared 0, the Nyquist count calls the same loop unstable — the data cannot
+    show the pole, which is why the key is required."""
+    model = Rational(gain=2.0, poles=(1.0, -5.0))
+    lead = Rational(gain=60.0, zeros=(-1.5,), poles=(-15.0,))
+    num = np.polymul([lead.gain * model.gain], np.poly(lead.zeros))
+    den = np.polymul(np.poly(model.poles), np.poly(lead.poles))
+    roots = np.roots(np.polyadd(den, num))
+    assert np.all(roots.real < 0)  # the true closed loop is stable
+    _write_sweep(tmp_path / "sweep.csv", model, _grid(20, 1e-2, 1e3))
+    out = {}
+    for n in (1, 0):
+        path = tmp_path / f"u{n}.toml"
+        path.write_text(f'[plant]\ndata = "sweep.csv"\nunstable_poles = {n}\n'
+                        "[targets]\nintegrators = 0\n")
+        rec = evaluated_record(load_study(path), lead, name="lead", origin="given",
+                               structure="lead")
+        out[n] = rec
+    assert out[1]["metrics"]["closed_loop_stable"] is True
+    assert out[1]["metrics"]["closed_loop_rhp_poles"] == 0
+    assert out[0]["metrics"]["closed_loop_stable"] is False
+    ref = _reference(model * lead)
+    _within_bound(out[1], ref, "phase_margin_deg")
