@@ -20,7 +20,7 @@ import numpy as np
 from explorer.errors import LoopscoutError
 from explorer.evaluate import evaluated_record, given_designs
 from explorer.json_text import json_text
-from explorer.loop import Rational
+from explorer.loop import Rational, root_from_json
 from explorer.recommend import drop_near_duplicates, practical_misses, recommend
 from explorer.report import write_report
 from explorer.sampled_search import judged_metrics
@@ -286,8 +286,8 @@ def _refined(
                     state="REFINED",
                     feasible=True,
                     gain=rec["gain"],
-                    zeros=tuple(complex(*z) for z in rec["zeros"]),
-                    poles=tuple(complex(*q) for q in rec["poles"]),
+                    zeros=tuple(root_from_json(z) for z in rec["zeros"]),
+                    poles=tuple(root_from_json(q) for q in rec["poles"]),
                     metrics=rec["metrics"],
                     constraints={},
                     reason=None,

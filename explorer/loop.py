@@ -31,6 +31,7 @@ __all__ = [
     "feedback_sign",
     "hidden_unstable_mask",
     "ROOT_TOL",
+    "root_from_json",
 ]
 
 #: Two roots closer than this (relative to their size) count as equal; a root whose
@@ -224,6 +225,21 @@ def root_to_json(r: complex) -> float | str:
     if r.imag == 0:
         return float(r.real)
     return f"{r.real:.17g}{r.imag:+.17g}j"
+
+
+def root_from_json(value: object) -> complex:
+    """The root :func:`root_to_json` wrote: a number, or a complex string (``"-2+3j"``;
+    spaces ignored). Also reads an ``[re, im]`` pair, the form trial records stored
+    before December 2026, so an older exploration still resumes. Raises ValueError."""
+    if isinstance(value, complex):
+        return value
+    if isinstance(value, (list, tuple)) and len(value) == 2:
+        return complex(float(value[0]), float(value[1]))
+    if isinstance(value, str):
+        return complex(value.replace(" ", ""))
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return complex(float(value))
+    raise ValueError(f"{value!r} is not a root")
 
 
 def _count_at_origin(roots: Sequence[complex]) -> int:

@@ -22,6 +22,7 @@ from explorer.caution import CAUTION
 from explorer.cli_explore import _COLUMNS as TERMINAL_COLUMNS
 from explorer.errors import LoopscoutError
 from explorer.evaluate import CROSSOVER_REL_TOL, METRIC_UNITS, PHASE_MARGIN_TOL_DEG
+from explorer.loop import root_from_json
 from explorer.study import LIMIT_KEYS, Study
 
 __all__ = [
@@ -111,11 +112,9 @@ def script_json(obj: Any) -> str:
 
 
 def _root(v: Any) -> complex:
-    if isinstance(v, complex):
-        return v
     try:
-        return complex(v.replace(" ", "")) if isinstance(v, str) else complex(float(v))
-    except (TypeError, ValueError, AttributeError):
+        return root_from_json(v)
+    except (TypeError, ValueError):
         raise LoopscoutError(f"compensator root {v!r} is not a number or complex string") from None
 
 

@@ -36,7 +36,7 @@ from optuna.trial import TrialState
 from explorer import metric_registry as _registry
 from explorer.errors import LoopscoutError
 from explorer.evaluate import CROSSOVER_REL_TOL, PHASE_MARGIN_TOL_DEG
-from explorer.loop import Rational, hidden_unstable_mask
+from explorer.loop import Rational, hidden_unstable_mask, root_from_json, root_to_json
 from explorer.plant_source import balance_plant, frequency_batch
 from explorer.structures import Structure, balance
 from explorer.study import LIMIT_KEYS, Targets, Variation
@@ -475,19 +475,16 @@ def _distributions(s: Structure, problem: Problem) -> dict[str, BaseDistribution
     return d
 
 
-def _root_json(r: complex) -> list[float]:
-    return [float(r.real), float(r.imag)]
-
-
 def row_design(res: dict[str, Any], i: int) -> dict[str, Any]:
     """Row ``i`` of an ``evaluate_batch`` result as the stored design record (JSON
-    types: gain, zeros and poles as [re, im] pairs, metrics with None for NaN)."""
+    types: gain, zeros and poles as in a DESIGN (explorer.loop.root_to_json), metrics
+    with None for NaN)."""
     return {
         "gain": None if not np.isfinite(res["gain"][i]) else float(res["gain"][i]),
-        "zeros": [_root_json(r) for r in res["zeros"][i]]
+        "zeros": [root_to_json(complex(r)) for r in res["zeros"][i]]
         if np.all(np.isfinite(res["zeros"][i]))
         else [],
-        "poles": [_root_json(r) for r in res["poles"][i]]
+        "poles": [root_to_json(complex(r)) for r in res["poles"][i]]
         if np.all(np.isfinite(res["poles"][i]))
         else [],
         "metrics": {
@@ -690,8 +687,8 @@ def load_records(studies: list[optuna.Study], trials: int) -> list[TrialRecord]:
                     state=t.state.name,
                     feasible=feasible,
                     gain=rec["gain"],
-                    zeros=tuple(complex(*r) for r in rec["zeros"]),
-                    poles=tuple(complex(*r) for r in rec["poles"]),
+                    zeros=tuple(root_from_json(r) for r in rec["zeros"]),
+                    poles=tuple(root_from_json(r) for r in rec["poles"]),
                     metrics=rec["metrics"],
                     constraints=cons,
                     reason=t.user_attrs.get("fail_reason") or rec.get("reason"),
