@@ -249,6 +249,10 @@ def test_a_reverse_acting_family_behaves_like_its_mirror():
     for k, v in a["worst"].items():
         assert b["worst"][k] == pytest.approx(v, rel=1e-9, abs=1e-12), k
     assert a["worst_member"] == b["worst_member"]
+    # the step figures' refinement over the box took the same path
+    ra, rb = a["worst_basis"]["time_refinement"], b["worst_basis"]["time_refinement"]
+    assert ra["members_simulated"] == rb["members_simulated"] > 27
+    assert ra["worst_at"] == rb["worst_at"]
 
 
 def test_batch_equals_one_by_one():
