@@ -12,19 +12,11 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
+from explorer.metric_registry import RANKED_COLUMNS
+
 __all__ = ["register", "ranked_table"]
 
-_COLUMNS = (
-    ("order", "order", "{:d}"),
-    ("crossover_rad_s", "wc rad/s", "{:.4g}"),
-    ("phase_margin_deg", "PM deg", "{:.1f}"),
-    ("gain_margin_db", "GM dB", "{:.1f}"),
-    ("sensitivity_peak", "Ms", "{:.3f}"),
-    ("noise_gain", "noise gain", "{:.3g}"),
-    ("iae_load", "IAE load", "{:.3g}"),
-    ("overshoot_pct", "overshoot %", "{:.1f}"),
-    ("settling_time_s", "settling s", "{:.3g}"),
-)
+_COLUMNS = RANKED_COLUMNS
 
 
 def register(sub: Any, caution: str) -> None:

@@ -28,6 +28,7 @@ __all__ = [
     "MARGIN_KEYS",
     "WORST_KEYS",
     "WORST_TIME_KEYS",
+    "RANKED_COLUMNS",
 ]
 
 
@@ -147,3 +148,18 @@ WORST_KEYS: tuple[str, ...] = tuple(
                                          m.bound == "lower")))
 #: Their step-response part.
 WORST_TIME_KEYS: tuple[str, ...] = tuple(k for k in WORST_KEYS if BY_KEY[k].domain == "time")
+
+#: The ranked design table, the same in the terminal (``explore``) and in the report:
+#: (key, column heading, number format). ``order`` is the design's, the rest METRICS
+#: keys or extras.
+RANKED_COLUMNS: tuple[tuple[str, str, str], ...] = (
+    ("order", "order", "{:d}"),
+    ("crossover_rad_s", "wc rad/s", "{:.4g}"),
+    ("phase_margin_deg", "PM deg", "{:.1f}"),
+    ("gain_margin_db", "GM dB", "{:.1f}"),
+    ("sensitivity_peak", "Ms", "{:.3f}"),
+    ("noise_gain", "noise gain", "{:.3g}"),
+    ("iae_load", "IAE load", "{:.3g}"),
+    ("overshoot_pct", "overshoot %", "{:.1f}"),
+    ("settling_time_s", "settling s", "{:.3g}"),
+)

@@ -19,10 +19,10 @@ from dataclasses import dataclass
 from typing import Any
 
 from explorer.caution import CAUTION
-from explorer.cli_explore import _COLUMNS as TERMINAL_COLUMNS
 from explorer.errors import LoopscoutError
 from explorer.evaluate import CROSSOVER_REL_TOL, METRIC_UNITS, PHASE_MARGIN_TOL_DEG
 from explorer.loop import root_from_json
+from explorer.metric_registry import RANKED_COLUMNS as TERMINAL_COLUMNS
 from explorer.study import LIMIT_KEYS, Study
 
 __all__ = [

@@ -74,3 +74,12 @@ def test_limit_keys_and_ranges_agree() -> None:
     # a limit on a key the registry marks unlimited is refused by the study reader
     unlimited = [m.key for m in metric_registry.METRICS if m.bound is None]
     assert "crossover_rad_s" in unlimited and "crossover_rad_s" not in study.LIMIT_KEYS
+
+
+def test_ranked_table_columns_are_registered_metrics() -> None:
+    from explorer import cli_explore, report_page
+
+    for key, _, _ in metric_registry.RANKED_COLUMNS:
+        assert key == "order" or key in metric_registry.BY_KEY, key
+    # the terminal and the report show the same columns in the same order
+    assert cli_explore._COLUMNS == report_page.TERMINAL_COLUMNS == metric_registry.RANKED_COLUMNS
