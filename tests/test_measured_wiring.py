@@ -395,3 +395,28 @@ def test_unstable_plant_on_data_needs_its_declared_pole(tmp_path: Path) -> None:
     assert out[0]["metrics"]["closed_loop_stable"] is False
     ref = _reference(model * lead)
     _within_bound(out[1], ref, "phase_margin_deg")
+
+
+@pytest.mark.parametrize("other", [
+    Rational(gain=1.2, poles=(-1.0, -1.2), delay_s=0.3),  # more lag: the delay shrinks
+    Rational(gain=1.2, poles=(-1.0, -1.2)),  # more lag, no delay: a far zero is added
+    Rational(gain=0.9, poles=(-1.0, -0.9), delay_s=0.1),  # less lag: the delay grows
+])
+def test_hand_plant_matches_the_data_at_the_crossover(other: Rational) -> None:
+    """The model the hand designs are placed on equals the data's interpolant at ωc
+    in magnitude and phase (mod 360°), whatever model it started from (closed form:
+    the sampled model's own value at a measured point)."""
+    from explorer.plant_source import hand_plant, measured_plant
+
+    true = Rational(gain=1.0, poles=(-1.0, -1.0), delay_s=0.2)
+    w = _grid(20, 1e-2, 1e2)
+    mp = measured_plant(MeasuredResponse.from_model(true, w))
+    wc = float(w[30])  # a measured point: the interpolant is the data there
+    hp, step = hand_plant(other, mp, wc)
+    assert step is not None and "match the data" in step
+    want = complex(true.freqresp(np.array([wc]))[0])
+    got = complex(hp.freqresp(np.array([wc]))[0])
+    assert abs(got) == pytest.approx(abs(want), rel=1e-12)
+    dphi = float(hp.phase_rad(np.array([wc]))[0] - true.phase_rad(np.array([wc]))[0])
+    assert abs(math.remainder(dphi, 2 * math.pi)) < 1e-9
+    assert hp.delay_s >= 0.0
