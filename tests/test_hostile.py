@@ -8,7 +8,10 @@ the independent scipy-only evaluator ``tests/reference_loop.py``.
 (b) Hypothesis-generated TOML documents fed to ``parse_study``: a Study or a
     StudyFileError, nothing else;
 (c) a FIFO and /dev/zero as the study file (subprocess with a timeout as a guard only);
-(d) extreme valid loops: `check --json` against ``reference_loop.reference_metrics``.
+(d) extreme valid loops: `check --json` against ``reference_loop.reference_metrics`` and,
+    for the delay-free ones marked so, scipy.signal step figures;
+(e) the whole corpus of tests/hostile_corpus.py through the real command line, each run
+    its own process, tallied (slow): the issue's done-when (docs/hostile-input.md).
 """
 
 from __future__ import annotations
