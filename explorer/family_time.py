@@ -207,7 +207,8 @@ def box_time_worst(plant: Rational, v: Variation, comp: Rational,
     def worst_now() -> np.ndarray:
         vals = np.array(list(cache.values()))
         allv = np.vstack([vals, ext])
-        return np.where(np.isnan(allv).any(axis=0), np.nan, np.nanmax(allv, axis=0))
+        return np.where(np.isnan(allv).any(axis=0), np.nan,
+                        np.max(np.where(np.isnan(allv), -np.inf, allv), axis=0))
 
     # the whole box as the first cells' parent: the secants of the 3^D lattice
     f0 = corner_values(lo, hi)

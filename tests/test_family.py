@@ -784,3 +784,20 @@ def test_one_axis_refined_worst_is_within_the_tolerance_of_a_dense_line(axis):
         assert x <= top[k] + max(a, r * top[k]), (k, x, top[k])
         if got.converged:
             assert x >= top[k] - max(a, r * top[k]), (k, x, top[k])
+
+
+def test_a_figure_null_on_the_box_is_null_in_the_worst_and_the_rest_still_refined():
+    """A proportional controller leaves a load offset, so the load IAE is null for every
+    member (docs/interface.md): the refined worst IAE is null, overshoot and settling
+    time are still refined, and no numpy warning escapes."""
+    import warnings
+
+    from explorer.family_time import box_time_worst
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        got = box_time_worst(KILN, Variation(gain=(0.6, 1.4), delay_s=(4.5, 9.0)),
+                             Rational(gain=2.0))
+    assert got.values["iae_load"] is None and got.at["iae_load"] is None
+    assert got.values["overshoot_pct"] > 0 and got.values["settling_time_s"] > 0
+    assert got.to_dict()["worst_at"]["iae_load"] is None
