@@ -214,7 +214,30 @@ def _asymptote_scales(loops: LoopBatch) -> tuple[np.ndarray, np.ndarray]:
         w_lo = np.where(m0 != 0, np.exp(log_k0 / np.where(m0 != 0, m0, 1.0)), np.nan)
         rd = float(loops.relative_degree)
         w_hi = np.exp(np.log(np.abs(loops.gain)) / rd) if rd > 0 else np.full(loops.n, np.nan)
+    if rd == 0:
+        # biproper: |L|² ≈ K²(1 + (Σ|z|² − Σ|p|²)/ω²) far above the roots, so with |K|
+        # near 1 the crossover lies at ω² = K²·D/(1 − K²), arbitrarily far above them
+        # (K = 1.0000003 on (s+1)/(s+10): 1.34e4 rad/s, beyond a grid over the roots)
+        w_hi = np.fmax(w_hi, _second_order_crossing(
+            loops.gain ** 2, np.sum(zm**2, axis=1) - np.sum(pm**2, axis=1)))
+    if np.any(m0 == 0):
+        # no loop integrator: |L|² ≈ K0²(1 + ω²(Σ1/|z|² − Σ1/|p|²)) far below the
+        # nonzero roots; with |K0| near 1 the crossover lies arbitrarily far below them
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            inv = (np.sum(np.where(zm > 0, 1.0 / np.where(zm > 0, zm, 1.0) ** 2, 0.0), axis=1)
+                   - np.sum(np.where(pm > 0, 1.0 / np.where(pm > 0, pm, 1.0) ** 2, 0.0), axis=1))
+            k0sq = np.exp(2.0 * log_k0)
+            w2 = (1.0 - k0sq) / (k0sq * inv)
+            w_low = np.where((m0 == 0) & np.isfinite(w2) & (w2 > 0), np.sqrt(w2), np.nan)
+        w_lo = np.fmin(w_lo, w_low)
     return w_lo, w_hi
+
+
+def _second_order_crossing(k2: np.ndarray, d: np.ndarray) -> np.ndarray:
+    """ω with k2·(1 + d/ω²) = 1 (NaN where there is none)."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        w2 = k2 * d / (1.0 - k2)
+        return np.where(np.isfinite(w2) & (w2 > 0), np.sqrt(w2), np.nan)
 
 
 def _monotone_from(loops: LoopBatch, hi: np.ndarray) -> np.ndarray:

@@ -481,3 +481,17 @@ def test_loopbatch_stack_mixed_designs() -> None:
         one = metrics_of(loop)
         assert both["phase_margin_deg"][i] == pytest.approx(one["phase_margin_deg"], rel=1e-12)
         assert both["sensitivity_peak"][i] == pytest.approx(one["sensitivity_peak"], rel=1e-12)
+
+
+@pytest.mark.parametrize(("gain", "zero", "pole"), [
+    (1.0000002744895709, -1.0, -10.0),  # |L(∞)| just above 1: crossover far above the roots
+    (0.10000003, -10.0, -1.0),  # |L(0)| just above 1: crossover far below the roots
+])
+def test_biproper_loop_near_unity_finds_the_far_crossover(gain, zero, pole):
+    """Closed form: |K(jω − z)/(jω − p)| = 1 at ω² = (K²z² − p²)/(1 − K²). The grid used
+    to cover the roots only (found by the engine/oracle comparison of test_balance)."""
+    loop = Rational(gain=gain, zeros=(zero,), poles=(pole,))
+    k2 = gain * gain
+    wc = math.sqrt((k2 * zero**2 - pole**2) / (1.0 - k2))
+    m = frequency_metrics(loop, Rational(gain=1.0))
+    assert m["crossovers_rad_s"] == pytest.approx([wc], rel=1e-6)
