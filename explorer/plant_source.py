@@ -29,7 +29,7 @@ import numpy as np
 
 from explorer.fit import FitResult, fit_model
 from explorer.loop import Rational
-from explorer.measured import MeasuredResponse, _estimate_integrators, _Plant
+from explorer.measured import MeasuredResponse, _estimate_integrators, _interpolant, _Plant
 
 __all__ = [
     "MeasuredPlant",
@@ -73,7 +73,7 @@ class MeasuredPlant:
         return _estimate_integrators(self.data)
 
     def interpolant(self) -> _Plant:
-        return _Plant(self.data, self.plant_integrators)
+        return _interpolant(self.data, self.plant_integrators)
 
     def to_dict(self) -> dict[str, Any]:
         """The study echo's ``plant`` for a measured plant."""
