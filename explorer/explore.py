@@ -523,6 +523,10 @@ def _summary(
         from explorer.sampled_search import sampling_line
 
         lines.append(sampling_line(study))
+    if study.variation is None and answer_lines:
+        # a model is one operating point: say so where the answer is read
+        lines.append("the answer holds for the nominal plant; a [variation] section checks "
+                     "it over ranges of gain, delay and time constants (docs/study-file.md)")
     lines.append(f"explored {len(structures)} structures x {n_trials} trials")
     mp = study.measured
     if mp is not None:  # a measured plant: where the figures come from

@@ -212,3 +212,14 @@ def test_hand_design_above_max_order_is_polished_in_its_own_structure(tmp_path: 
     assert polished[0]["metrics"]["sensitivity_peak"] <= pb["metrics"]["sensitivity_peak"]
     # the extra structure is not searched, so not counted
     assert "explored 6 structures x 16 trials" in res.summary
+
+
+def test_the_summary_says_when_the_answer_holds_for_the_nominal_plant_only() -> None:
+    from explorer.explore import _summary
+    from explorer.study import load_study
+
+    root = Path(__file__).resolve().parent.parent / "studies"
+    one = _summary(load_study(root / "kiln_damper.toml"), [], [], {}, 0, ["answer: x"])
+    assert any("holds for the nominal plant" in line for line in one)
+    fam = _summary(load_study(root / "kiln_family.toml"), [], [], {}, 0, ["answer: x"])
+    assert not any("holds for the nominal plant" in line for line in fam)
