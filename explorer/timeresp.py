@@ -359,15 +359,12 @@ def _crossover_range(loops: LoopBatch) -> tuple[np.ndarray, np.ndarray]:
     roots = np.concatenate([loops.zeros, loops.poles], axis=1)
     mags = np.abs(roots)
     pos = mags[(mags > 0) & np.isfinite(mags)]
-    scales = list(pos)
     tau = float(np.max(loops.delay_s)) if loops.n else 0.0
-    if tau > 0:
-        scales.append(1.0 / tau)
-    scales += _asymptotic_crossovers(loops)
-    if not scales:
-        scales = [1.0]
-    lo = math.log10(min(scales)) - 3.0
-    hi = math.log10(max(scales)) + 3.0
+    scales = np.concatenate([pos, [1.0 / tau] if tau > 0 else [], _asymptotic_crossovers(loops)])
+    if scales.size == 0:
+        scales = np.ones(1)
+    lo = math.log10(float(np.min(scales))) - 3.0
+    hi = math.log10(float(np.max(scales))) + 3.0
     w = np.logspace(lo, hi, max(int(24 * (hi - lo)), 48))
     nodelay = LoopBatch(loops.gain, loops.zeros, loops.poles, np.zeros(loops.n))
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
@@ -426,23 +423,22 @@ def _gain_scale(
     return np.exp2(lg)
 
 
-def _asymptotic_crossovers(loops: LoopBatch) -> list[float]:
+def _asymptotic_crossovers(loops: LoopBatch) -> np.ndarray:
     """Where the asymptotes cross |L| = 1: |gain|^(1/r) above every root (relative degree
     r > 0) and |K0|^(1/m) below every nonzero root (m loop integrators, K0 the gain with
     the origin removed). A large compensator gain moves the crossover far above the
     loop's roots (kiln plant × 1e8: 652 rad/s, roots at 0.02 and 0.1 rad/s); the grid of
     :func:`_crossover_range` must reach it or the horizon and the step follow the roots
     (8/0.02 s at a 2e-4 s step: 1.7e6 steps, 5 GB at × 1e10)."""
-    out: list[float] = []
     nz, npl = loops.zeros.shape[1], loops.poles.shape[1]
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         lg = np.log(np.abs(loops.gain))
-        if npl > nz:
-            out += list(np.exp(lg / (npl - nz)))
+        above = np.exp(lg / (npl - nz)) if npl > nz else np.zeros(0)
         m, k0 = _origin_split(loops.gain, loops.zeros, loops.poles)
         lk = np.log(np.abs(k0))
-        out += list(np.exp(lk[m > 0] / m[m > 0]))
-    return [w for w in out if math.isfinite(w) and 1e-200 < w < 1e200]
+        below = np.exp(lk[m > 0] / m[m > 0])
+    out = np.concatenate([above, below])
+    return out[np.isfinite(out) & (out > 1e-200) & (out < 1e200)]
 
 
 def _nonzero_root_range(roots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -543,11 +539,15 @@ def _deviation(
     xss = np.zeros((bsz, n, 2))
     ok = np.isfinite(yf) & np.isfinite(uss) & np.isfinite(lss)
     with np.errstate(all="ignore"):
-        for i in np.nonzero(ok)[0]:
-            try:
-                xss[i] = np.linalg.solve(a[i], -bm[i])
-            except np.linalg.LinAlgError:
-                ok[i] = False
+        rows = np.nonzero(ok)[0]
+        try:  # one batched solve; a singular row (rare) sends the batch row by row
+            xss[rows] = np.linalg.solve(a[rows], -bm[rows])
+        except np.linalg.LinAlgError:
+            for i in rows:
+                try:
+                    xss[i] = np.linalg.solve(a[i], -bm[i])
+                except np.linalg.LinAlgError:
+                    ok[i] = False
         ok &= np.all(np.isfinite(xss.reshape(bsz, -1)), axis=1)
         ul = np.einsum("bi,bi->b", ux, xss[:, :, 1]) + ue[:, 1]  # u's final value, load step
     r = np.nonzero(ok)[0]
