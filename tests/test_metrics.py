@@ -495,3 +495,49 @@ def test_biproper_loop_near_unity_finds_the_far_crossover(gain, zero, pole):
     wc = math.sqrt((k2 * zero**2 - pole**2) / (1.0 - k2))
     m = frequency_metrics(loop, Rational(gain=1.0))
     assert m["crossovers_rad_s"] == pytest.approx([wc], rel=1e-6)
+
+
+@pytest.mark.parametrize("delay_s", [0.0, 0.5])
+def test_every_figure_scales_as_theory_says(delay_s):
+    """The same loop s times faster (every root × s, the delay ÷ s, gains × s^(poles −
+    zeros)): frequencies × s, times and the load IAE ÷ s, the integral gain × s, every
+    ratio (margins, peaks, overshoot, noise figures) unchanged. The gain moved from
+    plant to compensator (P·a, C/a): the loop and its figures unchanged, the control
+    signal and the compensator's gains ÷ a, the load response × a."""
+    from explorer.evaluate import design_metrics
+
+    plant = Rational(gain=2.0, poles=(-1.0, -2.0), delay_s=delay_s)
+    comp = Rational(gain=9.6 if delay_s else 30.0, zeros=(-0.8, -1.25), poles=(0.0, -10.0))
+
+    def faster(r, s):
+        k = len(r.poles) - len(r.zeros)
+        return Rational(gain=r.gain * s**k, zeros=tuple(z * s for z in r.zeros),
+                        poles=tuple(p * s for p in r.poles), delay_s=r.delay_s / s)
+
+    base = design_metrics(plant, comp)
+    assert base["closed_loop_stable"] and base["settling_time_s"] is not None
+    per_s = {"crossover_rad_s", "phase_crossover_rad_s", "complementary_peak_rad_s",
+             "sensitivity_peak_rad_s", "integral_gain"}
+    times = {"delay_margin_s", "settling_time_s", "rise_time_s", "iae_load"}
+
+    def check(got, factor):
+        for k, v in base.items():
+            if v is None or isinstance(v, bool):
+                assert got[k] == v, k
+            elif isinstance(v, list):
+                assert got[k] == pytest.approx([x * factor(k) for x in v], rel=1e-8), k
+            elif k == "overshoot_pct":
+                assert got[k] == pytest.approx(v, abs=1e-6), k
+            else:
+                assert got[k] == pytest.approx(v * factor(k), rel=1e-8), k
+
+    for s in (1e-3, 2.0**7, 1e3):
+        check(design_metrics(faster(plant, s), faster(comp, s)),
+              lambda k, s=s: s if k in per_s or k == "crossovers_rad_s" else
+              1.0 / s if k in times else 1.0)
+    for a in (1e-9, 1e9):
+        moved = (Rational(gain=plant.gain * a, poles=plant.poles, delay_s=delay_s),
+                 Rational(gain=comp.gain / a, zeros=comp.zeros, poles=comp.poles))
+        check(design_metrics(*moved),
+              lambda k, a=a: 1.0 / a if k in ("peak_control", "hf_gain", "integral_gain",
+                                             "noise_gain") else a if k == "iae_load" else 1.0)
