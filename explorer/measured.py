@@ -267,6 +267,9 @@ class _Plant:
         base = -0.5 * math.pi * plant_integrators
         k = round((float(self.phase[0]) - base) / math.pi)
         self.phase0 = base + k * math.pi
+        # at the bottom of the band: the slope of ln|P̂| in ln ω and the magnitude error
+        self.slope_lo = float(self.pm(self.x_lo, 1))
+        self.err_mag_lo = float(self.err(np.array([self.x_lo]))[0][0])
 
     def eval(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """ln|P̂| and ∠P̂ (rad) at x (any shape), extrapolated below the band."""
@@ -481,9 +484,8 @@ def loop_metrics_on_data_batch(
             return loop(rows, x)[1] - _lev
 
         xp = _bisect(ph_f, pr, x_all[pr, pk], x_all[pr, pk + 1])
-        lm_p = lnmag_f(pr, xp)
     else:
-        xp = lm_p = np.zeros(0)
+        xp = np.zeros(0)
     signed = dk[pr, pk] if pr.size else np.zeros(0)
 
     # ---- the passage from −jε to +jε (an arc of m0·π clockwise at infinity for m0
@@ -512,18 +514,63 @@ def loop_metrics_on_data_batch(
                          np.concatenate([xin, xin]))
     ms, ms_x, mt, mt_x = both[:n], both_x[:n], both[n:], both_x[n:]
 
+    # ---- what the per-design assembly reads at its events, evaluated as batches: the
+    # loop, its slopes in ln ω and the error estimate at every gain crossover, every
+    # phase crossover and both peaks
+    at_g = _local(loop, plant, gr, xg)
+    at_p = _local(loop, plant, pr, xp)
+    at_k = _local(loop, plant, np.concatenate([rows_all, rows_all]),
+                  np.concatenate([ms_x, mt_x]))
+    by_g, by_p = _groups(gr, n), _groups(pr, n)
+
     hf = comps.relative_degree
     out: list[dict[str, Any]] = []
     for i in range(n):
         out.append(_assemble(
-            i, data, plant, comps, loop,
-            xg[gr == i], xp[pr == i], lm_p[pr == i], signed[pr == i],
+            i, data, plant, comps,
+            _Events(at_g, by_g[i]), _Events(at_p, by_p[i]), signed[by_p[i]],
             bool(below_cross[i]), int(arc[i]), int(p_rhp[i]), int(n_rhp_c[i]), int(m0[i]),
-            (ms[i], ms_x[i]), (mt[i], mt_x[i]), lm_in[i], lm_lo[i], ph_lo[i],
+            (ms[i], ms_x[i]), (mt[i], mt_x[i]), _Events(at_k, np.array([i, n + i])),
+            lm_in[i], lm_lo[i], ph_lo[i],
             n_int, n_int_est, unstable_poles,
             hf,
         ))
     return out
+
+
+_H = 1e-6  # step in ln ω of the central differences (slopes at an event)
+
+
+def _local(loop, plant: _Plant, rows: np.ndarray, x: np.ndarray) -> dict[str, np.ndarray]:
+    """At points (rows[k], x[k]): ln|L|, ∠L, |d ln|L|/dx|, |d∠L/dx| (central differences
+    in x = ln ω) and the interpolation error estimate (Np, rad), as arrays."""
+    if rows.size == 0:
+        z = np.zeros(0)
+        return {"x": z, "lm": z, "ph": z, "smag": z, "sph": z, "em": z, "ep": z}
+    lm, ph = loop(rows, x)
+    a1, p1 = loop(rows, x + _H)
+    a0, p0 = loop(rows, x - _H)
+    em, ep = plant.err(x)
+    return {"x": x, "lm": lm, "ph": ph, "smag": np.abs(a1 - a0) / (2 * _H),
+            "sph": np.abs(p1 - p0) / (2 * _H), "em": em, "ep": ep}
+
+
+def _groups(rows: np.ndarray, n: int) -> list[np.ndarray]:
+    """Indices of the entries of each design 0..n-1 in ``rows`` (in their order)."""
+    order = np.argsort(rows, kind="stable")
+    cuts = np.searchsorted(rows[order], np.arange(n + 1))
+    return [order[cuts[i]:cuts[i + 1]] for i in range(n)]
+
+
+class _Events:
+    """The :func:`_local` values of one design's events (a view by index)."""
+
+    def __init__(self, at: dict[str, np.ndarray], idx: np.ndarray) -> None:
+        self.at = at
+        self.idx = idx
+
+    def __getitem__(self, key: str) -> np.ndarray:
+        return self.at[key][self.idx]
 
 
 def _arc_count(start: np.ndarray, end: np.ndarray) -> np.ndarray:
@@ -564,15 +611,15 @@ def _peak(dist, d: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _assemble(
-    i: int, data: MeasuredResponse, plant: _Plant, comps: LoopBatch, loop,
-    xg: np.ndarray, xp: np.ndarray, lm_p: np.ndarray, signed: np.ndarray,
+    i: int, data: MeasuredResponse, plant: _Plant, comps: LoopBatch,
+    gain_x: _Events, phase_x: _Events, signed: np.ndarray,
     below_cross: bool, arc: int, p_rhp: int, n_rhp_c: int, m0: int,
-    ms_pk: tuple[float, float], mt_pk: tuple[float, float], lm_row: np.ndarray,
-    lm_low_row: np.ndarray, ph_low_row: np.ndarray,
+    ms_pk: tuple[float, float], mt_pk: tuple[float, float], peaks: _Events,
+    lm_row: np.ndarray, lm_low_row: np.ndarray, ph_low_row: np.ndarray,
     n_int: int, n_int_est: bool, unstable_poles: int, rel_deg: int,
 ) -> dict[str, Any]:
     wlo, whi = data.band_rad_s
-    rows = np.full(1, i)
+    xp, lm_p = phase_x["x"], phase_x["lm"]
     outside: list[str] = []
     assumptions: list[str] = [
         f"plant integrators: {n_int}" + (" (estimated from the slope of the lowest three "
@@ -590,8 +637,9 @@ def _assemble(
     ]
     l_top = math.exp(float(lm_row[-1]))
     l_bot = math.exp(float(lm_row[0]))
-    # ---- gain crossovers
-    wc = np.exp(np.sort(xg))
+    # ---- gain crossovers (in increasing order)
+    g_order = np.argsort(gain_x["x"])
+    wc = np.exp(gain_x["x"][g_order])
     known = True
     if l_top >= 1.0:
         known = False
@@ -618,9 +666,7 @@ def _assemble(
     floors: dict[str, float] = {"phase_margin_deg": -math.inf, "delay_margin_s": -math.inf,
                                 "gain_margin_db": -math.inf}
     if wc.size and known:
-        xs = np.log(wc)
-        r = np.full(wc.size, i)
-        _, ph = loop(r, xs)
+        ph = gain_x["ph"][g_order]
         pm = np.degrees(ph) + 180.0
         pm = pm - 360.0 * np.ceil((pm - 180.0) / 360.0)
         j = int(np.argmin(pm))
@@ -629,12 +675,9 @@ def _assemble(
         dms = np.where(pm <= 0, 0.0, np.radians(pm) / wc)
         res["delay_margin_s"] = float(np.min(dms))
         # error propagation at the chosen crossover
-        em, ep = (float(v[0]) for v in plant.err(xs[j:j + 1]))
-        h = 1e-6
-        a1, p1 = loop(rows, xs[j:j + 1] + h)
-        a0, p0 = loop(rows, xs[j:j + 1] - h)
-        smag = abs(float(a1[0] - a0[0])) / (2 * h)
-        sph = abs(float(p1[0] - p0[0])) / (2 * h)
+        k = int(g_order[j])
+        em, ep = float(gain_x["em"][k]), float(gain_x["ep"][k])
+        smag, sph = float(gain_x["smag"][k]), float(gain_x["sph"][k])
         dx = em / max(smag, 1e-12)
         pm_err_rad = ep + sph * dx
         err["crossover_rad_s"] = float(wc[j] * math.expm1(dx))
@@ -673,12 +716,9 @@ def _assemble(
         else:
             res["gain_margin_db"] = gm
             res["phase_crossover_rad_s"] = math.exp(xj)
-            em, ep = (float(v[0]) for v in plant.err(np.array([xj])))
-            h = 1e-6
-            a1, p1 = loop(rows, np.array([xj + h]))
-            a0, p0 = loop(rows, np.array([xj - h]))
-            smag = abs(float(a1[0] - a0[0])) / (2 * h)
-            sph = abs(float(p1[0] - p0[0])) / (2 * h)
+            k = int(np.flatnonzero(gm_cand)[j])
+            em, ep = float(phase_x["em"][k]), float(phase_x["ep"][k])
+            smag, sph = float(phase_x["smag"][k]), float(phase_x["sph"][k])
             dx = ep / max(sph, 1e-12)
             err["phase_crossover_rad_s"] = math.exp(xj) * math.expm1(dx)
             err["gain_margin_db"] = _DB * (em + smag * dx)
@@ -688,13 +728,13 @@ def _assemble(
         outside.append(f"no phase crossover with |L| < 1 in the band; above it the margin "
                        f"is at least {top_margin:.3g} dB under the assumptions")
     # ---- peaks: the refined in-band peak, then what lies outside the band
-    for key, (pk, xk), inv in (("sensitivity_peak", ms_pk, False),
-                               ("complementary_peak", mt_pk, True)):
+    for kk, (key, (pk, xk), inv) in enumerate((("sensitivity_peak", ms_pk, False),
+                                               ("complementary_peak", mt_pk, True))):
         if not np.isfinite(pk):
             outside.append(f"{key}: the loop passes through -1 in the band")
             continue
-        lmag_k = math.exp(float(loop(rows, np.array([xk]))[0][0]))
-        em, ep = (float(v[0]) for v in plant.err(np.array([xk])))
+        lmag_k = math.exp(float(peaks["lm"][kk]))
+        em, ep = float(peaks["em"][kk]), float(peaks["ep"][kk])
         rel = em + ep
         e_pk = pk * pk * (rel / lmag_k if inv else rel * lmag_k)
         value, at = float(pk), math.exp(xk)
@@ -789,8 +829,8 @@ def _below_band_peak(plant: _Plant, n_int: int, lm_low: np.ndarray, ph_low: np.n
     # departs from it by about half its residual slope there (its ln|P| is quadratic
     # in ω near 0): that, plus the interpolation estimate, bounds the extrapolated |L|,
     # and so what the stretch below the band can hold
-    slope = abs(float(plant.pm(plant.x_lo, 1)) + n_int)
-    e_lo = 0.5 * slope + float(plant.err(np.array([plant.x_lo]))[0][0])
+    slope = abs(plant.slope_lo + n_int)
+    e_lo = 0.5 * slope + plant.err_mag_lo
     l0 = math.exp(float(lm_low[k]))  # |L| where the extrapolated peak is
     return sup, sup * sup * (e_lo / l0 if inv else e_lo * l0)
 
