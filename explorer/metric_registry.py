@@ -122,7 +122,7 @@ _DOMAIN_RANK = {"frequency": 0, "stability": 0, "controller": 1, "time": 2}
 #: The ``[limits]`` keys → "upper" or "lower" (upper bounds first: peaks, controller,
 #: step figures; then the margins).
 LIMIT_KEYS: dict[str, str] = {
-    m.key: m.bound
+    m.key: str(m.bound)
     for m in sorted((m for m in METRICS if m.bound is not None),
                     key=lambda m: (m.bound == "lower", _DOMAIN_RANK[m.domain]))
 }
