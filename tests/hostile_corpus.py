@@ -318,6 +318,17 @@ EXTREME: list[tuple[str, Rational, Rational, tuple[float, float], str]] = [
 # left out to keep the tally near 3 min: explore on "lightly damped 1e5" takes minutes,
 # docs/hostile-input.md)
 EXPLORED = ("gain 1e-12",)
+# extreme loops whose report is written (about 6 s each): the page holds the design and
+# the safety caution
+REPORTED = ("lightly damped 1e5", "kiln x 1e10 no delay", "time scale 1e-4")
+
+
+def _verify_page(run_dir: Path) -> Verdict:
+    from explorer.caution import CAUTION
+
+    page = (run_dir / "r.html").read_text(encoding="utf-8")
+    ok = CAUTION.split(".")[0] in page and '"X"' in page
+    return ok, "" if ok else "the page lacks the design or the caution"
 
 
 def _root_list(rs: tuple[complex, ...]) -> str:
@@ -731,6 +742,11 @@ def all_cases() -> list[Case]:
                           argv=("balance", _STUDY, "--json"),
                           files=(("study.toml", text.encode()),), expect="answer-or-cannot",
                           verify=_verify_claims_of(plant, grid)))
+        if name in REPORTED:
+            cases.append(Case(id=f"extreme: {name} × report", input=f"extreme: {name}",
+                              argv=("report", _STUDY, "--out", "{dir}/r.html"),
+                              files=(("study.toml", text.encode()),), expect="answer",
+                              verify=_verify_page))
         if name in EXPLORED:
             cases.append(Case(id=f"extreme: {name} × explore", input=f"extreme: {name}",
                               argv=(*_command_argv("explore"), "--json"),
