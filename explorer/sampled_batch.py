@@ -31,6 +31,7 @@ from explorer.sampled import (
 )
 
 __all__ = [
+    "plant_evaluator",
     "DiscreteBatch",
     "discretize_batch",
     "poly_rows",
@@ -207,6 +208,40 @@ def _grid(sp: SampledPlant, dc: DiscreteBatch, cont: LoopBatch,
     return np.unique(np.concatenate([g, [wn]]))
 
 
+#: The modal form of H(z) is used when the eigenvector matrix of Φ is conditioned better
+#: than this (relative error about cond·eps); else the linear solve per point.
+MODAL_COND_MAX = 1e6
+
+
+def plant_evaluator(sp: SampledPlant) -> Any:
+    """H(z) of the sampled plant as a vectorised function of z: the modal (partial
+    fraction) form Σ rᵢ(z)/(z − λᵢ) over the eigenvalues λᵢ of Φ when its eigenvector
+    matrix is well conditioned (cond < MODAL_COND_MAX) — a few array operations per
+    call instead of one linear solve per point — else SampledPlant.at_z. Same function
+    of z (tests/test_sampled_batch.py compares the two)."""
+    n = sp.n
+    if n == 0:
+        return sp.at_z
+    lam, V = np.linalg.eig(sp.phi)
+    if not np.all(np.isfinite(V)) or np.linalg.cond(V) >= MODAL_COND_MAX:
+        return sp.at_z
+    cv = sp.c[0].astype(complex) @ V
+    W = np.linalg.solve(V, np.concatenate([sp.gamma0, sp.gamma1], axis=1).astype(complex))
+    r0, r1 = cv * W[:, 0], cv * W[:, 1]
+    dp = float(sp.dmat[0, 0])
+    frac = sp.eps_s > 0
+    d = sp.d
+
+    def at_z(z: np.ndarray) -> np.ndarray:
+        z = np.asarray(z, complex).ravel()
+        zinv = 1.0 / z
+        inv = 1.0 / (z[:, None] - lam[None, :])
+        val = inv @ r0 + zinv * (inv @ r1) + dp * (zinv if frac else 1.0)
+        return val * zinv ** d
+
+    return at_z
+
+
 def _bisect_pairs(f: Any, rows: np.ndarray, a: np.ndarray, b: np.ndarray,
                   fa: np.ndarray) -> np.ndarray:
     sa = np.sign(fa)
@@ -258,13 +293,14 @@ def sampled_metrics_batch(sp: SampledPlant, dc: DiscreteBatch, comp_gain: np.nda
     m = ok.size
     grid = _grid(sp, d, cont, np.array([np.nan]))
     zg = np.exp(1j * grid * T)
-    Hg = sp.at_z(zg)
+    H = plant_evaluator(sp)
+    Hg = H(zg)
 
     def loop_at(rows: np.ndarray, w: np.ndarray) -> np.ndarray:
         z = np.exp(1j * w * T)
         sub = DiscreteBatch(gain=d.gain[rows], zeros=d.zeros[rows], poles=d.poles[rows],
                             sample_time_s=T, valid=d.valid[rows])
-        return sub.at_z(z[:, None])[:, 0] * sp.at_z(z)
+        return sub.at_z(z[:, None])[:, 0] * H(z)
 
     L = d.at_z(np.broadcast_to(zg, (m, grid.size))) * Hg[None, :]
     with np.errstate(divide="ignore"):
@@ -433,7 +469,7 @@ def _argument_count(sp: SampledPlant, d: DiscreteBatch, grid: np.ndarray) -> np.
         theta = np.concatenate([theta, (ang[:, None] + offs[None, :]).ravel()])
     theta = np.unique(theta[(theta >= 0) & (theta <= math.pi)])
     z = rho * np.exp(1j * theta)
-    f = 1.0 + d.at_z(np.broadcast_to(z, (m, z.size))) * sp.at_z(z)[None, :]
+    f = 1.0 + d.at_z(np.broadcast_to(z, (m, z.size))) * plant_evaluator(sp)(z)[None, :]
     arg = np.unwrap(np.angle(f), axis=1)
     winding = np.round((arg[:, -1] - arg[:, 0]) / math.pi).astype(int)
     return p_out - winding
