@@ -168,6 +168,32 @@ def plant_factored(study: Study) -> str:
     return txt
 
 
+def _data_assumptions(study: Study, designs: Sequence[dict[str, Any]]) -> str:
+    """A measured plant's assumptions as list items (docs/measured-data.md): where the
+    figures come from, and what the data cannot show (from the first design that
+    lists them; the Nyquist count, per design, is left out). Empty for a model."""
+    mp = getattr(study, "measured", None)
+    if mp is None:
+        return ""
+    lo, hi = mp.data.band_rad_s
+    items = [
+        f"the plant is the measured sweep {mp.shown} ({lo:.4g} to {hi:.4g} rad/s): every "
+        "frequency figure is read on the data, with an interpolation error bound per "
+        "figure in designs.json (interpolation_error); nothing beyond the band is measured",
+        ("step and load responses come from the model fitted to the sweep (vector "
+         f"fitting; relative RMS error {100 * mp.fit.rel_rms:.2g} % over the band)"
+         if mp.fit.time_from_fit else
+         "no step or load responses: the model fitted to the sweep is poor"),
+    ]
+    listed = next((d.get("assumptions") for d in designs if d.get("assumptions")), None)
+    items += [a for a in (listed or []) if not str(a).startswith("Nyquist count")]
+    low = mp.data.low_coherence_rows()
+    if low:
+        items.append(f"{len(low)} measured point(s) with coherence below 0.6 "
+                     "(hollow squares in the plant chart)")
+    return "".join(f"<li>{html.escape(str(a))}</li>" for a in items)
+
+
 def _plant_facts(study: Study) -> list[str]:
     p = study.plant
     facts = []
@@ -765,7 +791,7 @@ double-click clears.</p>
 {'<ul class="sub">' + note_html + '</ul>' if note_html else ''}
 {key_html}<div class="charts">{design_charts}</div></section>
 <section id="assumptions"><h2>Assumptions</h2><ul>
-<li>linear time-invariant plant model as given in the study</li>
+<li>linear time-invariant plant model as given in the study</li>{_data_assumptions(study, designs)}
 <li>the transport delay is exact in the frequency domain and a sampled transport delay \
 in the step responses{html.escape(fold_txt)}</li>
 <li>unit steps on the reference and at the plant input (load), applied at t = 0</li>

@@ -420,3 +420,17 @@ def test_hand_plant_matches_the_data_at_the_crossover(other: Rational) -> None:
     dphi = float(hp.phase_rad(np.array([wc]))[0] - true.phase_rad(np.array([wc]))[0])
     assert abs(math.remainder(dphi, 2 * math.pi)) < 1e-9
     assert hp.delay_s >= 0.0
+
+
+def test_report_page_lists_the_data_assumptions(tmp_path: Path) -> None:
+    from explorer.report_page import _data_assumptions
+
+    data_study, model_study = _studies(tmp_path, 20)
+    st = load_study(data_study)
+    rec = evaluated_record(st, PI, name="PI", origin="given", structure="PI")
+    page = _data_assumptions(st, [rec])
+    for text in ("measured sweep sweep.csv", "fitted to the sweep", "plant integrators",
+                 "open-loop right-half-plane poles", "below the band", "above the band"):
+        assert text in page, text
+    assert "Nyquist count" not in page
+    assert _data_assumptions(load_study(model_study), []) == ""
