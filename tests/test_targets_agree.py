@@ -37,7 +37,7 @@ NEAR = 1e-6
 
 def _designs(study_name: str, seed: int):
     study = load_study(STUDIES / f"{study_name}.toml")
-    if getattr(study, "plant_data", None) is not None or study.variation is not None:
+    if study.measured is not None or study.variation is not None:
         pytest.skip("measured or family plant: checked elsewhere")
     problem = make_problem(study)
     rng = np.random.default_rng(seed)
