@@ -29,7 +29,8 @@ from explorer.tune import constraint_names, evaluate_batch
 STUDIES = Path(__file__).resolve().parent.parent / "studies"
 #: The bundled model-plant studies without a plant family (the family has its own
 #: worst-case checks in tests/test_family.py) and without a measured plant.
-CASES = ["kiln_damper", "conveyor_speed", "drum_level", "mixer_cooling", "balance_platform"]
+CASES = ["kiln_damper", "conveyor_speed", "drum_level", "mixer_cooling", "balance_platform",
+         "conveyor_plc"]
 N_PER_STRUCTURE = 6
 #: relative closeness to a bound inside which the two engines may round differently
 NEAR = 1e-6
