@@ -372,6 +372,13 @@ def _closed_loop_poles(plant: Rational, comp: Rational) -> np.ndarray:
     return np.roots(np.polyadd(den, num))
 
 
+def _time_scaled(r: Rational, s: float) -> Rational:
+    """r(σ/s): every root × s, the delay ÷ s — the same loop s times faster."""
+    k = len(r.poles) - len(r.zeros)
+    return Rational(gain=r.gain * s**k, zeros=tuple(z * s for z in r.zeros),
+                    poles=tuple(p * s for p in r.poles), delay_s=r.delay_s / s)
+
+
 def verify_frequency(plant: Rational, comp: Rational, grid: tuple[float, float],
                      metrics: dict[str, Any]) -> Verdict:
     """Crossover, phase margin and Ms against tests/reference_loop.py (scipy only)."""
@@ -379,7 +386,13 @@ def verify_frequency(plant: Rational, comp: Rational, grid: tuple[float, float],
 
     if not _finite_numbers(metrics):
         return False, "a printed number is not finite"
-    ref = reference_metrics(plant * comp, w_lo=grid[0], w_hi=grid[1], points=4000)
+    # the reference runs on the loop time-scaled to a crossover near 1 rad/s (its root
+    # refinement has absolute tolerances); frequencies are scaled back
+    w0 = math.sqrt(grid[0] * grid[1])
+    loop = _time_scaled(plant * comp, 1.0 / w0)
+    ref = reference_metrics(loop, w_lo=grid[0] / w0, w_hi=grid[1] / w0, points=4000)
+    if ref.get("crossover_rad_s") is not None:
+        ref["crossover_rad_s"] *= w0
     pairs = (("phase_margin_deg", 1e-4, "abs"), ("crossover_rad_s", 1e-6, "rel"),
              ("sensitivity_peak", 1e-5, "rel"))
     for key, tol, kind in pairs:
@@ -458,7 +471,9 @@ class Case:
     input: str  # the input it exercises (one input may run under several commands)
     argv: tuple[str, ...]
     files: tuple[tuple[str, bytes], ...] = ()
-    expect: str = "refuse"  # "refuse" | "answer" | "answer-or-cannot"
+    # "refuse" | "answer" | "answer-or-cannot" | "answer-or-refuse" (a random document:
+    # inside the domain it must be answered correctly, outside refused cleanly)
+    expect: str = "refuse"
     verify: Callable[[dict[str, Any], Path], Verdict] | None = None
     fresh: bool = False  # a fresh interpreter instead of a fork
     setup: str = ""  # "fifo": make {dir}/study.toml a FIFO
@@ -752,6 +767,10 @@ def all_cases() -> list[Case]:
                               argv=(*_command_argv("explore"), "--json"),
                               files=(("study.toml", text.encode()),), expect="answer-or-cannot",
                               verify=_verify_claims_of(plant, grid)))
+    for name, text, plant, comp in random_documents():
+        cases.append(Case(id=f"{name} × check", input=name, argv=("check", _STUDY, "--json"),
+                          files=(("study.toml", text.encode()),), expect="answer-or-refuse",
+                          verify=_verify_random(plant, comp), group="random"))
     return cases + _found_cases()
 
 
@@ -858,7 +877,7 @@ def _classify(r: Result, run_dir: Path) -> None:
         elif c.expect == "answer":
             r.outcome, r.why = "wrong answer", "a valid input refused: " + lines[0]
         else:
-            r.outcome = "refused" if c.expect == "refuse" else "cannot"
+            r.outcome = "cannot" if c.expect == "answer-or-cannot" else "refused"
             r.why = lines[0]
         return
     # exit 0
@@ -979,7 +998,7 @@ def main(argv: list[str] | None = None) -> int:
 
     ap = argparse.ArgumentParser(description="the hostile-input tally (issue 19)")
     ap.add_argument("--json", action="store_true", help="print the tally as JSON")
-    ap.add_argument("--group", choices=("all", "corpus", "found"), default="all")
+    ap.add_argument("--group", choices=("all", "corpus", "found", "random"), default="all")
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--progress", action="store_true")
     args = ap.parse_args(argv)
@@ -996,6 +1015,106 @@ def main(argv: list[str] | None = None) -> int:
         print(format_table(t))
         print(f"total {t['total_wall_s']:.0f} s on {args.jobs} jobs")
     return 1 if any(t["counts"][o] for o in FAILURES) else 0
+
+
+
+# ======================================================================================
+# Random study documents (seeded): refused in one line, or answered correctly
+# ======================================================================================
+def _random_roots(rng: np.random.Generator, n: int, lo: float, hi: float) -> list[complex]:
+    out: list[complex] = []
+    while len(out) < n:
+        mag = 10.0 ** rng.uniform(lo, hi)
+        if len(out) + 2 <= n and rng.random() < 0.4:
+            zeta = rng.uniform(0.01, 0.95)
+            re, im = -zeta * mag, mag * math.sqrt(1 - zeta * zeta)
+            out += [complex(re, im), complex(re, -im)]
+        else:
+            out.append(complex(-mag if rng.random() < 0.85 else mag, 0.0))
+    return out
+
+
+def random_documents(n: int = 60, seed: int = 19) -> list[tuple[str, str, Rational, Rational]]:
+    """(id, study text, plant, compensator): root magnitudes drawn over 1e±5 rad/s, plant
+    gains over 1e±40, delays over 1e±4 s, so that part falls outside the numerical
+    domain (spans, delays) and part inside."""
+    rng = np.random.default_rng(seed)
+    docs = []
+    for i in range(n):
+        npl = int(rng.integers(0, 7))
+        plant = Rational(gain=float((-1) ** rng.integers(0, 2) * 10.0 ** rng.uniform(-40, 40)),
+                         zeros=tuple(_random_roots(rng, int(rng.integers(0, npl + 1)), -5, 5)),
+                         poles=tuple(_random_roots(rng, npl, -5, 5)),
+                         delay_s=0.0 if rng.random() < 0.5 else float(10.0 ** rng.uniform(-4, 4)))
+        nc = int(rng.integers(1, 4))
+        comp = Rational(gain=float(10.0 ** rng.uniform(-10, 10)),
+                        zeros=tuple(_random_roots(rng, int(rng.integers(0, nc + 1)), -4, 4)),
+                        poles=(0.0, *_random_roots(rng, nc - 1, -4, 4)))
+        docs.append((f"random {i:02d}", extreme_study(plant, comp), plant, comp))
+    return docs
+
+
+def _direct(loop: Rational, w: float) -> tuple[float, float, complex]:
+    """ln|L(jω)|, phase (deg, unwrapped sum of root angles) and L(jω), root by root."""
+    s = 1j * w
+    lm = math.log(abs(loop.gain)) + sum(math.log(abs(s - z)) for z in loop.zeros) \
+        - sum(math.log(abs(s - p)) for p in loop.poles)
+    ph = sum(np.angle(s - z) for z in loop.zeros) - sum(np.angle(s - p) for p in loop.poles) \
+        - w * loop.delay_s + (math.pi if loop.gain < 0 else 0.0)
+    return lm, math.degrees(ph), complex(math.exp(lm) * np.exp(1j * ph))
+
+
+def verify_attained(plant: Rational, comp: Rational, m: dict[str, Any]) -> Verdict:
+    """Checks that hold for any loop, however extreme: every reported crossover has
+    |L| = 1 and the phase margin is 180° + its phase (mod 360°), both evaluated root by
+    root here; the reference's crossovers (magnitude only, on the loop time-scaled to
+    its crossover) are the reported ones; Ms is attained at the reported frequency and
+    no point of the reference's dense grid exceeds it (a grid can miss a narrow peak,
+    never exceed the true one)."""
+    from reference_loop import reference_metrics
+
+    if not _finite_numbers(m):
+        return False, "a printed number is not finite"
+    loop = plant * comp
+    wcs = m["crossovers_rad_s"]
+    for w in wcs:
+        if abs(_direct(loop, w)[0]) > 1e-8:
+            return False, f"|L| ≠ 1 at the reported crossover {w}"
+    if m["crossover_rad_s"] is not None:
+        ph = _direct(loop, m["crossover_rad_s"])[1]
+        if abs((m["phase_margin_deg"] - 180.0 - ph + 180.0) % 360.0 - 180.0) > 1e-6 * max(
+                1.0, abs(ph)):
+            return False, f"phase margin {m['phase_margin_deg']} vs phase {ph} at wc"
+    roots = [abs(r) for r in (*loop.zeros, *loop.poles) if r] + list(wcs)
+    w0 = m["crossover_rad_s"] or (math.sqrt(min(roots) * max(roots)) if roots else 1.0)
+    lo, hi = (min(roots) / w0 / 1e3, max(roots) / w0 * 1e3) if roots else (1e-3, 1e3)
+    scaled = _time_scaled(Rational(gain=loop.gain, zeros=loop.zeros, poles=loop.poles),
+                          1.0 / w0)
+    ref = reference_metrics(scaled, w_lo=min(lo, 1e-3), w_hi=max(hi, 1e3), points=2000)
+    got = sorted(w / w0 for w in wcs)
+    want = sorted(ref["crossovers_rad_s"])
+    if len(got) != len(want) or any(abs(a - b) > 1e-6 * b for a, b in zip(got, want,
+                                                                          strict=True)):
+        return False, f"crossovers {got} vs reference {want} (× {w0:g} rad/s)"
+    if m["sensitivity_peak_rad_s"] is not None:
+        w = m["sensitivity_peak_rad_s"]
+        val = _direct(loop, w)[2]
+        at = 1.0 / abs(1.0 + val)
+        # the phase of e^{-jωτ} is known to ωτ·2⁻⁵² rad only: at ωτ = 1e12 rad (a
+        # crossover of 5e13 rad/s behind 18 ms) Ms is rounding-limited; the bound allows
+        # for that conditioning (docs/hostile-input.md, "Left")
+        dphi = 8.0 * 2.0**-52 * (w * loop.delay_s + len(loop.zeros) + len(loop.poles))
+        if abs(at - m["sensitivity_peak"]) > (1e-6 + 10.0 * at * abs(val) * dphi) * at:
+            return False, f"Ms {m['sensitivity_peak']} not attained ({at})"
+    if loop.delay_s == 0 and ref["sensitivity_peak"] > m["sensitivity_peak"] * (1 + 1e-6):
+        return False, f"Ms {m['sensitivity_peak']} below the reference {ref['sensitivity_peak']}"
+    return True, ""
+
+
+def _verify_random(plant: Rational, comp: Rational):
+    def check(run_dir: Path) -> Verdict:
+        return verify_attained(plant, comp, _json_out(run_dir)["designs"][0]["metrics"])
+    return check
 
 
 if __name__ == "__main__":
