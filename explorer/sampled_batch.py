@@ -244,14 +244,31 @@ def plant_evaluator(sp: SampledPlant) -> Any:
 
 def _bisect_pairs(f: Any, rows: np.ndarray, a: np.ndarray, b: np.ndarray,
                   fa: np.ndarray) -> np.ndarray:
-    sa = np.sign(fa)
+    """The root of f(rows, ·) in each bracket [a, b] (f(a), f(b) of opposite signs), to
+    machine precision: the Illinois variant of regula falsi (Dowell & Jarratt, BIT 11,
+    1971), every fourth step a bisection so the bracket at least halves; stops when
+    every bracket is down to a few ulps (at most _BISECT_ITERS steps)."""
     a, b = a.copy(), b.copy()
-    for _ in range(_BISECT_ITERS):
-        m = 0.5 * (a + b)
-        same = np.sign(f(rows, m)) == sa
-        a = np.where(same, m, a)
-        b = np.where(same, b, m)
-    return 0.5 * (a + b)
+    fa = np.asarray(fa, float).copy()
+    fb = f(rows, b)
+    for it in range(_BISECT_ITERS):
+        scale = np.maximum(np.abs(a), np.abs(b))
+        if np.all((np.abs(b - a) <= 4e-16 * scale) | (fb == 0) | ~np.isfinite(fb)):
+            break
+        mid = 0.5 * (a + b)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            c = b - fb * (b - a) / (fb - fa)
+        lo, hi = np.minimum(a, b), np.maximum(a, b)
+        use = (it % 4 != 3) & np.isfinite(c) & (c > lo) & (c < hi)
+        c = np.where(use, c, mid)
+        fc = f(rows, c)
+        flip = np.sign(fc) != np.sign(fb)
+        # opposite signs at c and b: the bracket becomes [b, c]; same sign: [a, c] with
+        # f(a) halved (the Illinois step that stops one end from sticking)
+        a = np.where(flip, b, a)
+        fa = np.where(flip, fb, np.where(use, 0.5 * fa, fa))
+        b, fb = c, fc
+    return np.where(np.abs(fa) < np.abs(fb), a, b)
 
 
 def _per_row_min(rows: np.ndarray, vals: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
