@@ -1059,8 +1059,9 @@ class _Sim:
 # ======================================================================================
 # Settledness and metrics
 # ======================================================================================
-def _check(tr: _Traj, rows: _Rows, band: float) -> tuple[np.ndarray, np.ndarray]:
-    """Cheap, sample-based test of each row on this horizon: (settled, diverged).
+def _check(tr: _Traj, rows: _Rows, band: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Cheap, sample-based test of each row on this horizon: (settled, diverged, yu), yu:
+    settled but for the load-error integral.
 
     Settled: no sample outside the band after 45 % of the horizon; the control
     signal's tail (second half) can no longer raise its peak; the load-error integral
@@ -1113,15 +1114,19 @@ def _check(tr: _Traj, rows: _Rows, band: float) -> tuple[np.ndarray, np.ndarray]
     lfz = np.where(np.isfinite(rows.lss), rows.lss, 0.0)
     dl = np.maximum(np.abs(l0 - lfz[:, None]), np.abs(l1 - lfz[:, None]))
     decaying = np.ones(bsz, dtype=bool)
+    decaying_yu = decaying
     diverged = ~tr.finite
-    for dev in (dy, du, dl):
+    for i, dev in enumerate((dy, du, dl)):
         w1, w3, w4 = wmax(dev, first), wmax(dev, third), wmax(dev, fourth)
         decaying &= (w4 < w3) | (w4 <= 1e-10 * np.maximum(w1, 1e-300))
+        if i == 1:
+            decaying_yu = decaying.copy()
         # relative to the first half's deviation (an absolute floor of 1 called a
         # control signal of size 1e12 diverged: plant gain 1e-12, compensator 1e12)
         diverged |= w4 > 1e8 * np.maximum(w1, 1e-300)
-    settled = y_settled & u_settled & l_settled & (decaying | ~rows.check_decay) & tr.finite
-    return settled & ~diverged, diverged
+    yu = y_settled & u_settled & (decaying_yu | ~rows.check_decay) & tr.finite & ~diverged
+    settled = yu & l_settled & (decaying | ~rows.check_decay)
+    return settled, diverged, yu
 
 
 def _metrics(tr: _Traj, sel: np.ndarray, rows: _Rows, band: float) -> dict[str, np.ndarray]:
@@ -1320,16 +1325,21 @@ def _run_chunk(plan: _Plan, idx: np.ndarray, band: float) -> dict[str, np.ndarra
     while active.size:
         sim.advance(t_end)
         tr = sim.traj()
-        settled, diverged = _check(tr, rows, band)
+        settled, diverged, yu = _check(tr, rows, band)
         done = settled | diverged | (sim.k >= _MAX_INTERVALS) | (doublings >= _MAX_DOUBLINGS)
         doublings += 1
-        keep = np.nonzero(settled)[0]
+        # given up with y and u settled but the load integral still running (a slow
+        # mode seen only by the load: a PI zero on a 1e-4 rad/s pole behind a 1 s
+        # delay): every figure but iae_load, which is None
+        part = done & ~settled & yu
+        keep = np.nonzero(settled | part)[0]
         if keep.size:
             met = _metrics(tr, keep, rows.take(keep), band)
+            met["iae_load"] = np.where(part[keep], np.nan, met["iae_load"])
             for k in METRIC_KEYS:
                 res[k][active[keep]] = met[k]
         # rows that never settled keep only their final value
-        gone = np.nonzero(done & ~settled & ~diverged)[0]
+        gone = np.nonzero(done & ~settled & ~part & ~diverged)[0]
         res["final_value"][active[gone]] = rows.yf[gone]
         more = np.nonzero(~done)[0]
         active = active[more]
@@ -1503,8 +1513,9 @@ def step_metrics(
     None when the load error does not vanish). Every key is None when the closed loop
     is unstable (``stable=False``, or found unstable when ``stable`` is None: exact
     eigenvalues without delay, a non-decaying response with delay); all but
-    ``final_value`` are None when the response has not settled within the horizon
-    cap (2¹⁷ steps). Overshoot, settling and rise are None for a zero final value.
+    ``final_value`` are None when y or u has not settled within the horizon cap (2¹⁷
+    steps); ``iae_load`` alone is None when only the load-error integral has not
+    converged by then. Overshoot, settling and rise are None for a zero final value.
 
     ``dt_s`` fixes the step (with delay, the largest τ/N not above it).
     Raises :class:`~explorer.errors.DesignError` for an improper compensator.
@@ -1549,7 +1560,7 @@ def simulate_steps(
         for _ in range(_MAX_DOUBLINGS):
             sim.advance(t_end)
             tr = sim.traj()
-            settled, diverged = _check(tr, plan.rows, 0.02)
+            settled, diverged, _ = _check(tr, plan.rows, 0.02)
             if settled[0] or diverged[0] or sim.k >= _MAX_INTERVALS:
                 break
             t_end *= 2.0
