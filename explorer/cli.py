@@ -272,6 +272,10 @@ _TABLE_ROWS = _table_rows()
 
 #: Figures that read as robustness margins only when the closed loop is stable.
 _MARGIN_KEYS = MARGIN_KEYS
+#: Rows of the sampled loop in a design table (a study with [search] sample_time).
+_SAMPLED_ROWS = ("crossover_rad_s", "phase_margin_deg", "gain_margin_db", "delay_margin_s",
+                 "sensitivity_peak", "closed_loop_stable", "overshoot_pct", "settling_time_s",
+                 "iae_load")
 UNSTABLE_MARGIN_NOTE = (
     "* closed loop unstable: these figures are distances of the Nyquist curve from -1, "
     "not margins of a working loop"
@@ -305,6 +309,17 @@ def _design_table(designs: list[dict[str, Any]]) -> str:
                 _fmt_value(key, d["worst"].get(key)) if "worst" in d else "" for d in designs
             ]])
         rows.append(["worst-Ms member", *[_member(d.get("worst_member")) for d in designs]])
+    if any(d.get("sampled_metrics") for d in designs):
+        # the loop that runs, the one meets_targets judges (docs/explore.md)
+        t = next(d.get("sample_time_s") for d in designs if d.get("sampled_metrics"))
+        for key in _SAMPLED_ROWS:
+            label, unit = METRIC_UNITS.get(key, (key, ""))
+            name = f"sampled {label} [{unit}]" if unit and unit != "-" else f"sampled {label}"
+            rows.append([name, *[
+                _fmt_value(key, (d.get("sampled_metrics") or {}).get(key))
+                if d.get("sampled_metrics") else "" for d in designs
+            ]])
+        rows.append(["sample time [s]", *[f"{t:g}" for _ in designs]])
     rows.append(["meets targets", *[_fmt_value("", d["meets_targets"]) for d in designs]])
     table = [head, *rows]
     widths = [max(len(r[i]) for r in table) for i in range(len(head))]

@@ -13,6 +13,7 @@ import argparse
 from typing import Any
 
 from explorer.metric_registry import RANKED_COLUMNS
+from explorer.sampled_search import judged_metrics
 
 __all__ = ["register", "ranked_table"]
 
@@ -79,11 +80,12 @@ def _cell(v: Any, fmt: str) -> str:
 
 
 def ranked_table(designs: list[dict[str, Any]]) -> str:
-    """One row per design (ranked), metrics with units in the header."""
+    """One row per design (ranked), metrics with units in the header. With a sample
+    time the loop figures are the sampled loop's, the ones the ranking used."""
     head = ["design", "origin", "structure", *[h for _, h, _ in _COLUMNS], "meets", "pareto"]
     rows = []
     for d in designs:
-        m = {**d["metrics"], "order": d["order"]}
+        m = {**judged_metrics(d["metrics"], d.get("sampled_metrics")), "order": d["order"]}
         rows.append(
             [
                 d["name"],
@@ -100,6 +102,10 @@ def ranked_table(designs: list[dict[str, Any]]) -> str:
         for r in [head, *rows]
     ]
     lines.insert(1, "  ".join("-" * w for w in widths))
+    t = next((d.get("sample_time_s") for d in designs if d.get("sampled_metrics")), None)
+    if t is not None:
+        lines.insert(0, f"loop figures of the sampled loop (T = {t:g} s, hold and delays "
+                        "included); noise gain of C(s)")
     return "\n".join(lines)
 
 

@@ -23,6 +23,7 @@ from explorer.errors import LoopscoutError
 from explorer.evaluate import CROSSOVER_REL_TOL, METRIC_UNITS, PHASE_MARGIN_TOL_DEG
 from explorer.loop import root_from_json
 from explorer.metric_registry import RANKED_COLUMNS as TERMINAL_COLUMNS
+from explorer.sampled_search import judged_metrics
 from explorer.study import LIMIT_KEYS, Study
 
 __all__ = [
@@ -592,7 +593,7 @@ def _ranked_html(
     rows = []
     for d in designs:
         name = str(d["name"])
-        m = {**d["metrics"], "order": d.get("order")}
+        m = {**judged_metrics(d["metrics"], d.get("sampled_metrics")), "order": d.get("order")}
         cls = ("rec " if name == rec else "") + ("ok" if d.get("meets_targets") else "miss")
         cells = "".join(f"<td class='n'>{_cell(m.get(k), f)}</td>" for k, _, f in TERMINAL_COLUMNS)
         why = "; ".join(readable(w) for w in d.get("misses") or [])
