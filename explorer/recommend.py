@@ -204,6 +204,10 @@ def recommend(
     m = _fig(best)
     reasons = [f"order {low} is the lowest that meets every target, requirement and limit"
                + (" and rejects a constant load at the plant input" if rejecting else "")]
+    low_any = min(d["order"] for d in pool)
+    if rejecting and low_any < low:
+        reasons.append(f"order {low_any} designs meet them too but leave an offset under a "
+                       "constant load at the plant input")
     if not practical:
         reasons.append("no design keeps the practical limit "
                        f"(poles within {max_pole_ratio:g}× the crossover): "
@@ -238,6 +242,7 @@ def recommend(
     lines = [f"answer: order {low} suffices — {best['name']}{whose} is recommended",
              f"  why: {why}"]
     seen = {best["name"]}
+    alternatives: list[dict[str, str]] = []
     for phrase, key, sense in _CRITERIA:
         have = [d for d in ok if _fig(d).get(key) is not None]
         if not have or _fig(best).get(key) is None:
@@ -246,9 +251,11 @@ def recommend(
         if alt["name"] in seen or _fig(alt)[key] == _fig(best)[key]:
             continue
         seen.add(alt["name"])
-        lines.append(f"  {phrase}: {alt['name']} — "
-                     f"{_tradeoff(best, alt, key, sense, searched_wc)}")
-    answer: dict[str, Any] = {"design": best["name"], "order": low, "why": why}
+        trade = _tradeoff(best, alt, key, sense, searched_wc)
+        lines.append(f"  {phrase}: {alt['name']} — {trade}")
+        alternatives.append({"criterion": phrase, "design": alt["name"], "trade_off": trade})
+    answer: dict[str, Any] = {"design": best["name"], "order": low, "why": why,
+                              "alternatives": alternatives}
     if wm:
         answer["worst_member"] = wm
     return answer, lines

@@ -517,16 +517,27 @@ def _answer_html(
             f"{html.escape(rec)}</h2>{_design_head(d)}"
             f"<p class='why'>{html.escape(why)}</p>{_figures(d)}</div>"
         )
-        alts = [x for x in designs if x.get("meets_targets") and str(x["name"]) != rec][:2]
+        # the answer's own alternatives (what each buys), else the next ranked designs
+        named = [(a, by_name[str(a.get("design"))]) for a in (answer or {}).get(
+            "alternatives", []) if str(a.get("design")) in by_name][:3]
+        if named:
+            alts = [x for _, x in named]
+            roles = {str(x["name"]): (str(a.get("criterion", "alternative")),
+                                      str(a.get("trade_off", ""))) for a, x in named}
+        else:
+            alts = [x for x in designs if x.get("meets_targets") and str(x["name"]) != rec][:2]
+            roles = {}
         hand = [x for x in designs if x.get("origin") in ("hand", "phase-balanced")
                 and x not in alts and str(x["name"]) != rec][:1]
         for x in alts + hand:
-            role = "alternative" if x.get("meets_targets") else "hand design for reference"
+            role, trade = roles.get(str(x["name"]), (
+                "hand design, for reference" if x in hand else "alternative", ""))
+            buys = f"<p class='why'>{html.escape(trade)}</p>" if trade else ""
             cards.append(
                 f"<div class='card alt'><h3>{html.escape(str(x['name']))} "
-                f"<span class='role'>{role}</span></h3>{_design_head(x)}{_misses(x)}"
-                f"{_figures(x, by_name[rec])}<p class='sub'>(±: against the recommended)</p>"
-                "</div>"
+                f"<span class='role'>{html.escape(role)}</span></h3>{_design_head(x)}{buys}"
+                f"{_misses(x)}{_figures(x, by_name[rec])}"
+                "<p class='sub'>(±: against the recommended)</p></div>"
             )
     else:
         if answer is not None and answer.get("why"):
@@ -719,6 +730,10 @@ def page(
     n_meet = sum(bool(d.get("meets_targets")) for d in designs)
     orders = [int(d.get("order", 0)) for d in designs if d.get("meets_targets")]
     low_txt = f"order {min(orders)}" if orders else "none"
+    low_note = "smallest compensator order among designs meeting every target and limit"
+    if orders and answer and answer.get("order") is not None and answer["order"] > min(orders):
+        low_note += (f"; the answer is order {answer['order']}: the order-{min(orders)} "
+                     "designs leave an offset under a constant load at the plant input")
     fold_txt = ""
     if study.plant.delay_s > 0:
         from explorer.timeresp import fold_threshold_rad_s
@@ -774,8 +789,8 @@ window.addEventListener('unhandledrejection',function(e){{window.__errors.push(S
 <main>
 <section id="answer"><h2>Answer</h2>
 <p class="lowest">Lowest order that meets spec: <b id="lowest-order" \
-class="{'ok' if orders else 'none'}">{low_txt}</b> <span class="sub">(smallest compensator \
-order among designs meeting every target and limit)</span></p>
+class="{'ok' if orders else 'none'}">{low_txt}</b> <span class="sub">({html.escape(low_note)})\
+</span></p>
 {_answer_html(designs, answer, summary, recommended)}</section>
 <section id="plant"><h2>Plant</h2><div class="plant"><div>
 <p class="formula">P(s) = {html.escape(plant_factored(study))}</p><ul>{facts}</ul></div>

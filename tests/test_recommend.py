@@ -119,3 +119,18 @@ def test_an_alternative_without_load_rejection_says_so() -> None:
     assert answer["design"] == "I-type"
     (line,) = [x for x in lines if x.strip().startswith("lowest Ms: P-type")]
     assert "an offset under a constant load" in line and "24× the noise gain" in line
+
+
+def test_the_answer_says_why_a_lower_order_was_passed_over_and_lists_its_alternatives() -> None:
+    offset = _d("offset", order=1, ms=1.2, iae=None, ts=20.0)
+    pid = _d("pid", order=2, ms=1.5, noise=3.0)
+    quiet = _d("quiet", order=2, ms=1.8, noise=0.5, ratio=1.2)
+    answer, lines = recommend([offset, pid, quiet], max_pole_ratio=20.0, searched_wc=False)
+    assert answer["design"] == "pid" and answer["order"] == 2
+    assert "order 1 designs meet them too but leave an offset" in answer["why"]
+    # one entry per alternative line, in the same order, naming the same design
+    alt_lines = [ln.strip() for ln in lines[2:]]
+    assert len(answer["alternatives"]) == len(alt_lines) >= 2
+    for a, ln in zip(answer["alternatives"], alt_lines, strict=True):
+        assert ln == f"{a['criterion']}: {a['design']} — {a['trade_off']}"
+    assert {a["design"] for a in answer["alternatives"]} >= {"offset", "quiet"}

@@ -381,6 +381,19 @@ def test_recommended_first_with_reasons_and_summary(kiln, tmp_path):
     assert "class='rec ok'" in text or "class='rec miss'" in text  # the row is highlighted
 
 
+def test_the_answers_alternatives_are_the_cards_beside_it(kiln, tmp_path):
+    study, ds = kiln
+    name, other = ds[1]["name"], ds[2]["name"]
+    answer = {"design": name, "order": ds[1]["order"], "why": "calm control",
+              "alternatives": [{"criterion": "lowest load IAE", "design": other,
+                                "trade_off": "9 % less load IAE for 30 % more noise gain"}]}
+    page = write_report(study, ds, tmp_path / "r.html", answer=answer, summary=["answer: x"])
+    text = page.read_text(encoding="utf-8")
+    card = text[text.index(f"<div class='card alt'><h3>{other}"):]
+    card = card[: card.index("(±: against the recommended)")]
+    assert "lowest load IAE" in card and "9 % less load IAE for 30 % more noise gain" in card
+
+
 def test_nothing_meets_and_empty_pages(kiln, tmp_path):
     study, ds = kiln
     missing = json.loads(json.dumps(ds))

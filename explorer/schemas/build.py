@@ -407,7 +407,15 @@ ANSWER: Schema = _obj(
     {"design": {"type": ["string", "null"], "description": "name of a listed design"},
      "order": _int("its order", null=True),
      "why": {"type": "string", "minLength": 1},
-     "worst_member": {"$ref": "#/$defs/worst_member"}},
+     "worst_member": {"$ref": "#/$defs/worst_member"},
+     "alternatives": {
+         "type": "array",
+         "description": "extension: per criterion, the design best at it and what it "
+                        "buys and costs against the answer",
+         "items": _obj({"criterion": {"type": "string", "minLength": 1},
+                        "design": {"type": "string", "minLength": 1},
+                        "trade_off": {"type": "string", "minLength": 1}},
+                       ["criterion", "design", "trade_off"])}},
     ["design", "order", "why"],
     "stable (December addition): the one recommended design and why",
 )
