@@ -393,19 +393,33 @@ JOURNAL_LOCK_SUFFIX = ".lock"
 #: A lock older than this at start-up is stale: an append holds it for milliseconds, so
 #: only a worker killed mid-append leaves it (Optuna would wait out its own 30 s grace).
 STALE_LOCK_S = 5.0
+#: A younger lock is watched this long: if the same lock (inode and time) is still held
+#: at the end, no writer is appending (a live worker releases and retakes it within
+#: milliseconds) and it is removed — a rerun right after a kill waits this, not 30 s.
+HELD_LOCK_S = 2.0
 
 
-def clear_stale_journal_lock(journal: Path) -> bool:
-    """Remove the journal's lock when it is older than STALE_LOCK_S (a worker was
-    killed while appending); True when one was removed. A fresh lock — another
-    worker appending right now — is left alone."""
+def clear_stale_journal_lock(journal: Path, *, held_s: float = HELD_LOCK_S) -> bool:
+    """Remove the journal's lock when it is stale (a worker was killed while
+    appending); True when one was removed. Stale: older than STALE_LOCK_S, or the same
+    lock still held after ``held_s`` of watching. A lock that is released or taken
+    anew meanwhile belongs to a live writer and is left alone."""
     lock = Path(str(journal) + JOURNAL_LOCK_SUFFIX)
     try:
-        age = time.time() - os.lstat(lock).st_mtime
+        st = os.lstat(lock)
     except FileNotFoundError:
         return False
-    if age < STALE_LOCK_S:
-        return False
+    if time.time() - st.st_mtime < STALE_LOCK_S:
+        ident = (st.st_ino, st.st_mtime_ns)
+        deadline = time.monotonic() + held_s
+        while time.monotonic() < deadline:
+            time.sleep(0.05)
+            try:
+                now = os.lstat(lock)
+            except FileNotFoundError:
+                return False  # released: a live writer
+            if (now.st_ino, now.st_mtime_ns) != ident:
+                return False  # taken anew: a live writer
     try:
         lock.unlink()
     except FileNotFoundError:  # its owner released it meanwhile

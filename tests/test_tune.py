@@ -249,7 +249,28 @@ def test_a_stale_journal_lock_is_cleared_at_start_and_a_fresh_one_kept(tmp_path)
     assert real.acquire()
     lock = tmp_path / ("explore.journal" + JOURNAL_LOCK_SUFFIX)
     assert os.path.lexists(lock)  # Optuna's lock is where we look for it
-    assert not clear_stale_journal_lock(journal) and os.path.lexists(lock)  # fresh: kept
+    # a live writer releases and retakes the lock within milliseconds: kept
+    import threading
+
+    stop = threading.Event()
+
+    def live_writer() -> None:
+        while not stop.is_set():
+            time.sleep(0.02)
+            real.release()
+            assert real.acquire()
+
+    t = threading.Thread(target=live_writer)
+    t.start()
+    try:
+        assert not clear_stale_journal_lock(journal, held_s=1.0)
+    finally:
+        stop.set()
+        t.join()
+    assert os.path.lexists(lock)
+    # the same fresh lock held all the while (its writer was killed): removed at once
+    assert clear_stale_journal_lock(journal, held_s=0.3) and not os.path.lexists(lock)
+    assert real.acquire()
     old = time.time() - 10 * STALE_LOCK_S
     os.utime(lock, (old, old), follow_symlinks=False)
     assert clear_stale_journal_lock(journal) and not os.path.lexists(lock)
