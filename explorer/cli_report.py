@@ -98,6 +98,9 @@ def _design_problem(d: Any) -> str:
             return f"lacks '{key}'"
     if not isinstance(d["name"], str) or not d["name"].strip():
         return "'name' must be a non-empty string"
+    if any(ord(c) < 0x20 or 0x7F <= ord(c) < 0xA0 for c in d["name"]) or len(d["name"]) > 200:
+        # the study file's rule for names: they are printed on terminals and in reports
+        return "'name' must be at most 200 characters with no control characters"
     if not isinstance(d["metrics"], dict):
         return "'metrics' must be an object"
     c = d["compensator"]

@@ -166,6 +166,8 @@ def test_control_characters_never_reach_the_terminal(tmp_path, capsys) -> None:
         b'"metrics": {}}]}',
         b'{"designs": [{"name": 5, "compensator": {"gain": 1}, "metrics": {}}]}',
         b'{"designs": [{"name": "a", "compensator": {"gain": 1}, "metrics": []}]}',
+        b'{"designs": [{"name": "a\\u001b[31mred", "compensator": {"gain": 1}, '
+        b'"metrics": {}}]}',
         b"[" * 100000 + b"]" * 100000,
         b"{",
     ],
