@@ -138,6 +138,18 @@ _CRITERIA = (  # (phrase, key, +1 lower is better / −1 higher is better)
     ("lowest load IAE", "iae_load", +1),
     ("fastest settling", "settling_time_s", +1),
 )
+#: An alternative is named only when it is at least this much better (relative) at its
+#: criterion than the answer: less than half a percent is within the figures' own
+#: rounding between a design and its mirror and buys nothing (our choice).
+MIN_BETTER = 0.005
+
+
+def _sig3(x: float) -> float:
+    """``x`` to 3 significant digits: near-ties between candidates (a design and its
+    mirror differ in the last bits) are then broken by order and name, not rounding."""
+    return float(f"{x:.3g}")
+
+
 _NOUN = {"sensitivity_peak": "Ms", "noise_gain": "noise gain", "iae_load": "load IAE",
          "settling_time_s": "settling time", "crossover_rad_s": "crossover",
          "order": "order"}
@@ -247,8 +259,9 @@ def recommend(
         have = [d for d in ok if _fig(d).get(key) is not None]
         if not have or _fig(best).get(key) is None:
             continue
-        alt = min(have, key=lambda d: (sense * _fig(d)[key], d["order"], d["name"]))
-        if alt["name"] in seen or _fig(alt)[key] == _fig(best)[key]:
+        alt = min(have, key=lambda d: (_sig3(sense * _fig(d)[key]), d["order"], d["name"]))
+        b_val, a_val = _fig(best)[key], _fig(alt)[key]
+        if alt["name"] in seen or sense * (b_val - a_val) < MIN_BETTER * abs(b_val):
             continue
         seen.add(alt["name"])
         trade = _tradeoff(best, alt, key, sense, searched_wc)
