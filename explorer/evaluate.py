@@ -56,15 +56,9 @@ def design_metrics(plant: Rational, comp: Rational) -> dict[str, Any]:
     and ``final_value``. Time-domain keys are None when the closed loop is unstable."""
     from explorer.timeresp import step_metrics
 
-    out = frequency_metrics(plant, comp)
-    # a right-half-plane (or origin) cancellation: L hides a mode the loop keeps
-    out["hidden_unstable_mode"] = bool(hidden_unstable_mask(
-        plant, np.array([comp.zeros], complex), np.array([comp.poles], complex))[0])
-    if out["hidden_unstable_mode"]:
-        out["closed_loop_stable"] = False
-    wc = out.get("crossover_rad_s")
-    out["noise_gain"], out["noise_gain_ratio"] = noise_figures(comp, wc)
-    out["pole_ratio"] = pole_ratio(comp, wc)
+    # the hidden-mode check (a right-half-plane or origin cancellation: L hides a mode
+    # the loop keeps), the noise figures and the pole ratio
+    out = _with_compensator_figures(plant, comp, frequency_metrics(plant, comp))
     stable = bool(out["closed_loop_stable"])
     if stable:
         tm = step_metrics(plant, comp, stable=True)

@@ -678,6 +678,26 @@ def closed_loop_matrix(sp: SampledPlant, comp: DiscreteCompensator) -> np.ndarra
     return F
 
 
+def contour_angles(grid_rad_s: np.ndarray, sample_time_s: float,
+                   open_poles: np.ndarray) -> np.ndarray:
+    """Angles θ in [0, π] (rad) of the half circle the argument count walks: the
+    frequency grid (ω·T), a log run from 0 up to its first point, and fine points
+    around every open-loop pole within 1e-3 of the unit circle."""
+    T = sample_time_s
+    theta = np.concatenate([
+        [0.0],
+        np.logspace(-14, 0, 200) * float(grid_rad_s[0]) * T,
+        np.asarray(grid_rad_s, float).ravel() * T,
+        [math.pi],
+    ])
+    near = open_poles[np.abs(np.abs(open_poles) - 1.0) < 1e-3]
+    if near.size:
+        ang = np.abs(np.angle(near))
+        offs = np.concatenate([-np.logspace(-14, -2, 60), [0.0], np.logspace(-14, -2, 60)])
+        theta = np.concatenate([theta, (ang[:, None] + offs[None, :]).ravel()])
+    return np.unique(theta[(theta >= 0) & (theta <= math.pi)])
+
+
 def closed_loop_roots_outside(sp: SampledPlant, comp: DiscreteCompensator,
                               grid_rad_s: np.ndarray) -> int:
     """Roots of the closed-loop characteristic polynomial
@@ -695,20 +715,7 @@ def closed_loop_roots_outside(sp: SampledPlant, comp: DiscreteCompensator,
     open_poles = np.concatenate([np.array(comp.poles, complex),
                                  np.exp(np.array(sp.plant.poles, complex) * T)])
     p_out = int(np.sum(np.abs(open_poles) >= rho))
-    theta = np.concatenate([
-        [0.0],
-        np.logspace(-14, 0, 200) * float(grid_rad_s[0]) * T,
-        np.asarray(grid_rad_s, float) * T,
-        [math.pi],
-    ])
-    # fine points around every open-loop pole close to the circle
-    near = open_poles[np.abs(np.abs(open_poles) - 1.0) < 1e-3]
-    if near.size:
-        ang = np.abs(np.angle(near))
-        offs = np.concatenate([-np.logspace(-14, -2, 60), [0.0], np.logspace(-14, -2, 60)])
-        theta = np.concatenate([theta, (ang[:, None] + offs[None, :]).ravel()])
-    theta = np.unique(theta[(theta >= 0) & (theta <= math.pi)])
-    z = rho * np.exp(1j * theta)
+    z = rho * np.exp(1j * contour_angles(grid_rad_s, T, open_poles))
     f = 1.0 + comp.at_z(z) * sp.at_z(z)
     arg = np.unwrap(np.angle(f))
     half = (arg[-1] - arg[0]) / math.pi

@@ -28,6 +28,7 @@ from explorer.sampled import (
     STABILITY_TOL,
     SampledPlant,
     _golden_max,
+    contour_angles,
 )
 
 __all__ = [
@@ -476,16 +477,8 @@ def _argument_count(sp: SampledPlant, d: DiscreteBatch, grid: np.ndarray) -> np.
     m = d.n
     plant_poles = np.exp(np.array(sp.plant.poles, complex) * T)
     p_out = np.sum(np.abs(d.poles) >= rho, axis=1) + int(np.sum(np.abs(plant_poles) >= rho))
-    theta = np.concatenate([[0.0], np.logspace(-14, 0, 200) * float(grid[0]) * T,
-                            grid * T, [math.pi]])
-    near = np.concatenate([d.poles.ravel(), plant_poles])
-    near = near[np.abs(np.abs(near) - 1.0) < 1e-3]
-    if near.size:
-        ang = np.abs(np.angle(near))
-        offs = np.concatenate([-np.logspace(-14, -2, 60), [0.0], np.logspace(-14, -2, 60)])
-        theta = np.concatenate([theta, (ang[:, None] + offs[None, :]).ravel()])
-    theta = np.unique(theta[(theta >= 0) & (theta <= math.pi)])
-    z = rho * np.exp(1j * theta)
+    z = rho * np.exp(1j * contour_angles(grid, T, np.concatenate([d.poles.ravel(),
+                                                                  plant_poles])))
     f = 1.0 + d.at_z(np.broadcast_to(z, (m, z.size))) * plant_evaluator(sp)(z)[None, :]
     arg = np.unwrap(np.angle(f), axis=1)
     winding = np.round((arg[:, -1] - arg[:, 0]) / math.pi).astype(int)
