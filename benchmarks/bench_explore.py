@@ -23,10 +23,10 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
-from explorer.explore import explore
-from explorer.loop import Rational
-from explorer.structures import candidate_structures
-from explorer.study import Variation, load_study, parse_study
+from explorer.core.loop import Rational
+from explorer.design.structures import candidate_structures
+from explorer.model.study import Variation, load_study, parse_study
+from explorer.search.exploration import explore
 
 STUDY = {
     "name": "Dome drive on a flexible mount (benchmark)",

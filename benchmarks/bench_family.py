@@ -11,7 +11,7 @@
 
 printing each run's wall time, its ratio to the nominal run of the same session, and
 the time spent in the box refinement of the step figures
-(explorer.family_time.box_time_worst: calls, members simulated, seconds). The
+(explorer.evaluation.family_time.box_time_worst: calls, members simulated, seconds). The
 nominal run is repeated at the end: the spread of the two nominal times says how
 noisy the machine was. A benchmark run on demand, never a test.
 """
@@ -25,9 +25,9 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
-import explorer.family_time as family_time
-from explorer.explore import explore
-from explorer.study import Variation, load_study
+import explorer.evaluation.family_time as family_time
+from explorer.model.study import Variation, load_study
+from explorer.search.exploration import explore
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from bench_explore import _members  # noqa: E402  (the same made-up members)
@@ -52,7 +52,7 @@ def main() -> None:
     v = study.variation
     if v is None or v.gain is None or v.delay_s is None:
         raise SystemExit(f"{path}: needs a [variation] with a gain and a delay range")
-    family_time.box_time_worst = _timed  # explorer.family imports it at call time
+    family_time.box_time_worst = _timed  # explorer.evaluation.family imports it at call time
     box = Variation(gain=v.gain, delay_s=v.delay_s)
     runs = [("nominal plant", replace(study, variation=None)),
             ("study as written", study),

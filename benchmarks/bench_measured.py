@@ -1,5 +1,5 @@
-"""Benchmark: loop metrics on a measured sweep (explorer.measured) against the same
-designs on the model fitted to it (explorer.metrics), in the same run.
+"""Benchmark: loop metrics on a measured sweep (explorer.frequency.on_data) against the same
+designs on the model fitted to it (explorer.frequency.metrics), in the same run.
 
 Workload: the bundled, invented hopper-gate sweep (studies/hopper_gate.toml, 43
 points); lead compensators around the study's crossover, drawn at random.
@@ -21,9 +21,9 @@ from pathlib import Path
 
 import numpy as np
 
-from explorer.measured import loop_metrics_on_data_batch
-from explorer.metrics import frequency_metrics_batch
-from explorer.study import load_study
+from explorer.frequency.metrics import frequency_metrics_batch
+from explorer.frequency.on_data import loop_metrics_on_data_batch
+from explorer.model.study import load_study
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -4,7 +4,7 @@ Workload: order-3 compensators (an integrator, two real zeros, two real filter
 poles — a PID with a derivative filter) on an order-3 plant with a transport delay
 (a kiln-damper-like process), random designs around a sensible tuning.
 
-* batch: :func:`explorer.metrics.frequency_metrics_batch` (crossovers, PM, GM, delay
+* batch: :func:`explorer.frequency.metrics.frequency_metrics_batch` (crossovers, PM, GM, delay
   margin, Ms, Mt, Nyquist stability) over all designs at once.
 * plain: a Python loop over designs, each evaluated with ``scipy.signal.freqresp``
   on a 1,000-point log grid, ``np.unwrap`` for the phase, ``scipy.optimize.brentq``
@@ -24,8 +24,8 @@ import time
 import numpy as np
 from scipy import optimize, signal
 
-from explorer.loop import Rational
-from explorer.metrics import frequency_metrics_batch
+from explorer.core.loop import Rational
+from explorer.frequency.metrics import frequency_metrics_batch
 
 PLANT = Rational(gain=0.6, poles=(-0.25, -1.0, -3.0), delay_s=0.8)
 

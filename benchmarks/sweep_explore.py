@@ -117,8 +117,8 @@ def draw_study(k: int, rng: np.random.Generator) -> dict[str, Any]:
 
 
 def _answer(study: Any, trials: int) -> tuple[Any, Any] | str:
-    from explorer.errors import LoopscoutError
-    from explorer.explore import explore
+    from explorer.core.errors import LoopscoutError
+    from explorer.search.exploration import explore
 
     with tempfile.TemporaryDirectory() as tmp:
         try:
@@ -129,9 +129,9 @@ def _answer(study: Any, trials: int) -> tuple[Any, Any] | str:
 
 
 def run_case(args: tuple[int, dict[str, Any], int, bool]) -> dict[str, Any]:
-    from explorer.evaluate import evaluated_record
-    from explorer.loop import Rational
-    from explorer.study import parse_study
+    from explorer.core.loop import Rational
+    from explorer.evaluation.records import evaluated_record
+    from explorer.model.study import parse_study
 
     k, data, trials, twins = args
     study = parse_study(data)

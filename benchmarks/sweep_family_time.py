@@ -1,4 +1,4 @@
-"""On-demand check of the box refinement of the step figures (explorer.family_time)
+"""On-demand check of the box refinement of the step figures (explorer.evaluation.family_time)
 on many random gain × delay families, against an independent simulation of a
 15 × 15 grid of each box (tests/test_family.py: _foh_grid, scipy zpk2ss + expm with a
 first-order hold of the delayed input).
@@ -20,8 +20,9 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from test_family import _arrays, _foh_grid, _random_family  # noqa: E402
 
-from explorer.family import family_worst_batch, scaled_plant  # noqa: E402
-from explorer.family_time import TIME_TOLERANCES, box_time_worst  # noqa: E402
+from explorer.evaluation.family import family_worst_batch  # noqa: E402
+from explorer.evaluation.family_time import TIME_TOLERANCES, box_time_worst  # noqa: E402
+from explorer.model.family_members import scaled_plant  # noqa: E402
 
 
 def main() -> int:

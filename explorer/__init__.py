@@ -1,10 +1,12 @@
 """loopscout: explore compensator structures for one feedback loop.
 
-The numerical core (:mod:`explorer.loop`, :mod:`explorer.metrics`,
-:mod:`explorer.timeresp`, :mod:`explorer.specs`) is pure functions on numpy arrays.
+Layers, lowest first (docs/architecture.md): :mod:`explorer.core`, :mod:`explorer.model`,
+:mod:`explorer.frequency`, :mod:`explorer.time_domain`, :mod:`explorer.design`,
+:mod:`explorer.evaluation`, :mod:`explorer.outputs`, :mod:`explorer.search`,
+:mod:`explorer.cli`. The numerical core is pure functions on numpy arrays.
 """
 
-from explorer.loop import LoopBatch, Rational
+from explorer.core.loop import LoopBatch, Rational
 
 __all__ = ["LoopBatch", "Rational"]
 __version__ = "0.1.0"

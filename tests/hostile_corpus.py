@@ -55,7 +55,7 @@ ROOT = HERE.parent
 if str(HERE) not in sys.path:
     sys.path.insert(0, str(HERE))
 
-from explorer.loop import Rational  # noqa: E402
+from explorer.core.loop import Rational  # noqa: E402
 
 HANG_LIMIT_S = 120.0
 RSS_BUDGET = 3 << 29  # 1.5 GiB
@@ -324,7 +324,7 @@ REPORTED = ("lightly damped 1e5", "kiln x 1e10 no delay", "time scale 1e-4")
 
 
 def _verify_page(run_dir: Path) -> Verdict:
-    from explorer.caution import CAUTION
+    from explorer.core.caution import CAUTION
 
     page = (run_dir / "r.html").read_text(encoding="utf-8")
     ok = CAUTION.split(".")[0] in page and '"X"' in page
@@ -439,7 +439,7 @@ def verify_step_scipy(plant: Rational, comp: Rational, metrics: dict[str, Any]) 
 def verify_claims(plant: Rational, grid: tuple[float, float], out: dict[str, Any]) -> Verdict:
     """Every design the output says meets its targets: stable, no hidden unstable mode,
     and crossover / phase margin / Ms as the scipy reference recomputes them."""
-    from explorer.loop import Rational as R
+    from explorer.core.loop import Rational as R
 
     for d in out.get("designs", []):
         if not d.get("meets_targets"):
@@ -827,7 +827,7 @@ def _fork_run(argv: list[str], run_dir: Path) -> int:
         sys.stderr = io.TextIOWrapper(io.FileIO(2, "w", closefd=False), encoding="utf-8",
                                       write_through=True)
         sys.argv = ["loopscout", *argv]
-        from explorer.cli import main
+        from explorer.cli.app import main
 
         code = main(argv)
     except SystemExit as exc:
@@ -894,10 +894,11 @@ def _classify(r: Result, run_dir: Path) -> None:
 def run_cases(cases: list[Case], jobs: int = 2, hang_limit_s: float = HANG_LIMIT_S,
               progress: bool = False) -> list[Result]:
     """Run every case (``jobs`` at a time) and classify it."""
-    for mod in ("explorer.cli", "explorer.cli_balance", "explorer.cli_explore",
-                "explorer.cli_report", "explorer.cli_implement", "explorer.explore",
-                "explorer.balance", "explorer.report", "explorer.tune", "explorer.sampled",
-                "explorer.evaluate", "explorer.study"):
+    for mod in ("explorer.cli.app", "explorer.cli.balance", "explorer.cli.explore",
+                "explorer.cli.report", "explorer.cli.implement", "explorer.search.exploration",
+                "explorer.design.hand_designs", "explorer.outputs.report", "explorer.search.tune",
+                "explorer.frequency.sampled",
+                "explorer.evaluation.records", "explorer.model.study"):
         __import__(mod)
     results: list[Result] = []
     with tempfile.TemporaryDirectory(prefix="hostile-") as tmp:

@@ -5,8 +5,8 @@ clustered on lightly damped roots), refines each by brentq, and counts the clock
 encirclements of −1 from the exact continuous phase, delay included: Z = P + N
 (H. Nyquist, "Regeneration theory", Bell Syst. Tech. J. 11, 1932; Åström & Murray,
 *Feedback Systems*, 2008, §9.2). It shares only the loop's evaluation
-(explorer.loop) with the package; the package's figures come from the batch engine
-(explorer.metrics), and tests/test_balance.py checks the two agree.
+(explorer.core.loop) with the package; the package's figures come from the batch engine
+(explorer.frequency.metrics), and tests/test_balance.py checks the two agree.
 """
 
 from __future__ import annotations
@@ -16,9 +16,9 @@ import math
 import numpy as np
 from scipy.optimize import brentq
 
-from explorer.balance import LoopCheck
-from explorer.errors import DesignError
-from explorer.loop import ROOT_TOL, Rational
+from explorer.core.errors import DesignError
+from explorer.core.loop import ROOT_TOL, Rational
+from explorer.design.hand_designs import LoopCheck
 
 
 def _on_axis(r: complex) -> bool:
@@ -150,7 +150,7 @@ def check_loop(loop: Rational) -> LoopCheck:
         pms.append(pmv)
 
     # Nyquist count
-    # strictly Re > 0, the same split as the phase branches of explorer.loop
+    # strictly Re > 0, the same split as the phase branches of explorer.core.loop
     n_rhp = sum(1 for p in loop.poles if p.real > 0)
     n_cw = 0
     marginal = False

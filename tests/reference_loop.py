@@ -1,6 +1,6 @@
 """An independent reference evaluator for loop metrics, built only from scipy.
 
-It shares no code with :mod:`explorer.metrics`: the rational part comes from
+It shares no code with :mod:`explorer.frequency.metrics`: the rational part comes from
 ``scipy.signal.freqresp`` on the zeros-poles-gain form, the delay is applied as
 exp(−jωτ), events are located on a dense log grid (``points`` per decade) and refined
 by ``scipy.optimize.brentq``; peaks by ``scipy.optimize.minimize_scalar`` around the
@@ -14,7 +14,7 @@ import math
 import numpy as np
 from scipy import optimize, signal
 
-from explorer.loop import Rational
+from explorer.core.loop import Rational
 
 
 def _response(loop: Rational):

@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from explorer.explore import explore
-from explorer.loop import Rational
-from explorer.study import load_study, parse_study
+from explorer.core.loop import Rational
+from explorer.model.study import load_study, parse_study
+from explorer.search.exploration import explore
 
 ROOT = Path(__file__).resolve().parents[1]
 BUNDLED = sorted((ROOT / "studies").glob("*.toml"))
@@ -83,7 +83,7 @@ def test_bundled_study_and_its_reverse_acting_twin_get_the_same_practical_answer
 def _step_reference(plant: Rational, comp: Rational) -> tuple[float, float]:
     """Overshoot (%) and last exit from the ±2 % band (s) of the unit reference step,
     from scipy.signal's closed loop T = L/(1+L) on a fine grid (delay-free loops only;
-    shares no code with explorer.timeresp)."""
+    shares no code with explorer.time_domain.timeresp)."""
     num, den = signal.zpk2tf(list(plant.zeros) + list(comp.zeros),
                              list(plant.poles) + list(comp.poles), plant.gain * comp.gain)
     num = np.real(num)
@@ -123,7 +123,7 @@ def test_every_design_claiming_targets_meets_the_requirements(tmp_path: Path) ->
 def test_overshoot_requirement_is_a_claim_condition() -> None:
     """meets_targets fails a design whose step overshoots the requirement even when the
     derived loop targets hold (docs/interface.md, 'Requirements are checked')."""
-    from explorer.evaluate import meets_targets
+    from explorer.evaluation.records import meets_targets
 
     study = parse_study({
         "plant": {"gain": 1.0, "poles": [-1.0, -2.0]},

@@ -1,8 +1,8 @@
-"""Tests of explorer.balance against references we did not write.
+"""Tests of explorer.design.hand_designs against references we did not write.
 
 Sources named beside each check:
 - "independent": computed here with plain numpy/scipy, sharing no code with
-  explorer.balance or explorer.loop: the loop as a product of factors (or
+  explorer.design.hand_designs or explorer.core.loop: the loop as a product of factors (or
   ``np.polyval`` on expanded polynomials, ``scipy.signal.freqs_zpk`` for delay-free
   loops), crossovers and phase margins on a dense log grid (np.angle/np.unwrap),
   closed-loop stability from the roots of the closed-loop polynomial (delay-free) or
@@ -27,7 +27,9 @@ from hypothesis import strategies as st
 from nyquist_oracle import check_loop
 from scipy import signal
 
-from explorer.balance import (
+from explorer.core.errors import DesignError
+from explorer.core.loop import Rational
+from explorer.design.hand_designs import (
     MAX_LEAD_BOOST_DEG,
     PI_ZERO_RATIO,
     BalanceResult,
@@ -39,9 +41,7 @@ from explorer.balance import (
     phase_balanced,
     pi_plus_lead,
 )
-from explorer.errors import DesignError
-from explorer.loop import Rational
-from explorer.study import Targets
+from explorer.model.study import Targets
 
 #: The package's loop check (the batch engine) and the independent oracle: both must
 #: agree with the outside references below.
@@ -682,6 +682,10 @@ def test_engine_and_oracle_agree(loop):
     ref = check_loop(loop)
     assume(all(abs(m) > 0.05 for m in ref.phase_margins_deg))  # not near marginal
     assume(loop.n_integrators != 0 or abs(1.0 + loop.dc_gain()) > 1e-3)
+    # |L(0)| within 1e-6 of 1: a crossover near ω = 0 whose very existence hangs on the
+    # last digits (hypothesis found 1/(s + 0.999999999999986): the engine's crossover at
+    # 1.67e-7 rad/s is right, the oracle's grid does not resolve it); not a comparison
+    assume(loop.n_integrators != 0 or abs(abs(loop.dc_gain()) - 1.0) > 1e-6)
     assume(ref.closed_loop_rhp_poles >= 0)  # the oracle's own count is consistent
     if loop.delay_s == 0:  # closed-loop poles (almost) on the axis: marginal, no verdict
         num = loop.gain * np.poly(loop.zeros) if loop.zeros else np.array([loop.gain])
@@ -715,13 +719,13 @@ def test_hand_designs_labels():
 
 
 # ---------------------------------------------------------------------------------------
-# overshoot trim (needs explorer.timeresp)
+# overshoot trim (needs explorer.time_domain.timeresp)
 def test_overshoot_trim_standard_second_order_loop():
     # Standard loop k/(s(s+1)) = ωn²/(s(s + 2ζωn)): ωn = √k, ζ = 1/(2√k). Overshoot
     # Mp = exp(−ζπ/√(1−ζ²)) (Ogata 5e Ch. 5, docs/references.md §1) → for 20 %: ζ = 0.4559,
     # k = 1/(4ζ²); docs/references.md §1 [RECOMP] row 20 %: ωc/ωn = 0.8168, PM = 48.15°.
-    pytest.importorskip("explorer.timeresp")
-    from explorer.balance import trim_gain_for_overshoot
+    pytest.importorskip("explorer.time_domain.timeresp")
+    from explorer.design.hand_designs import trim_gain_for_overshoot
 
     plant = Rational(gain=1.0, poles=(0.0, -1.0))
     res = trim_gain_for_overshoot(plant, Rational(gain=1.0), 20.0)

@@ -11,10 +11,10 @@ import numpy as np
 import pytest
 
 from explorer.cli import main
-from explorer.evaluate import METRIC_KEYS
-from explorer.loop import Rational
-from explorer.metrics import frequency_metrics
-from explorer.study import load_study
+from explorer.core.loop import Rational
+from explorer.evaluation.records import METRIC_KEYS
+from explorer.frequency.metrics import frequency_metrics
+from explorer.model.study import load_study
 
 ROOT = Path(__file__).resolve().parents[1]
 STUDIES = sorted((ROOT / "studies").glob("*.toml"))
@@ -53,8 +53,8 @@ def test_check_json_follows_interface(path: Path, capsys: pytest.CaptureFixture[
         # the numbers are the metric engine's, not a re-typed copy
         if study.measured is None:
             fm = frequency_metrics(study.plant, entry.compensator)
-        else:  # a measured plant: read on the data (explorer.measured)
-            from explorer.measured import loop_metrics_on_data
+        else:  # a measured plant: read on the data (explorer.frequency.on_data)
+            from explorer.frequency.on_data import loop_metrics_on_data
 
             fm = loop_metrics_on_data(study.measured.data, entry.compensator,
                                       unstable_poles=study.measured.unstable_poles,
@@ -230,7 +230,7 @@ def test_a_missing_dependency_is_named_not_called_a_defect(capsys, monkeypatch) 
     real_import = builtins.__import__
 
     def no_altair(name, *args, **kwargs):
-        if name == "explorer.report" or name.startswith("altair"):
+        if name == "explorer.outputs.report" or name.startswith("altair"):
             raise ModuleNotFoundError(f"No module named {name!r}", name="altair")
         return real_import(name, *args, **kwargs)
 

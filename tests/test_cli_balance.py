@@ -9,10 +9,10 @@ from pathlib import Path
 import pytest
 
 from explorer.cli import main
-from explorer.evaluate import meets_targets
-from explorer.loop import Rational
-from explorer.metrics import frequency_metrics
-from explorer.study import load_study
+from explorer.core.loop import Rational
+from explorer.evaluation.records import meets_targets
+from explorer.frequency.metrics import frequency_metrics
+from explorer.model.study import load_study
 
 ROOT = Path(__file__).resolve().parents[1]
 

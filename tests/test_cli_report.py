@@ -8,9 +8,9 @@ from pathlib import Path
 import pytest
 
 from explorer.cli import main
-from explorer.cli_report import load_exploration
-from explorer.evaluate import given_designs
-from explorer.study import load_study
+from explorer.cli.report import load_exploration
+from explorer.evaluation.records import given_designs
+from explorer.model.study import load_study
 
 ROOT = Path(__file__).resolve().parents[1]
 KILN = ROOT / "studies" / "kiln_damper.toml"

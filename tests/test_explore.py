@@ -10,10 +10,10 @@ from pathlib import Path
 
 import pytest
 
-from explorer.evaluate import design_metrics, meets_targets
-from explorer.explore import explore
-from explorer.loop import Rational
-from explorer.study import parse_study
+from explorer.core.loop import Rational
+from explorer.evaluation.records import design_metrics, meets_targets
+from explorer.model.study import parse_study
+from explorer.search.exploration import explore
 
 ROOT = Path(__file__).resolve().parents[1]
 STUDY = {
@@ -215,8 +215,8 @@ def test_hand_design_above_max_order_is_polished_in_its_own_structure(tmp_path: 
 
 
 def test_the_summary_says_when_the_answer_holds_for_the_nominal_plant_only() -> None:
-    from explorer.explore import _summary
-    from explorer.study import load_study
+    from explorer.model.study import load_study
+    from explorer.search.exploration import _summary
 
     root = Path(__file__).resolve().parent.parent / "studies"
     one = _summary(load_study(root / "kiln_damper.toml"), [], [], {}, 0, ["answer: x"])

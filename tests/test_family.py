@@ -1,4 +1,4 @@
-"""Worst case over a plant family (explorer.family, docs/metrics.md "Worst case over a
+"""Worst case over a plant family (explorer.evaluation.family, docs/metrics.md "Worst case over a
 plant family").
 
 References: the brute-force grids below are plain numpy (the loop evaluated from its
@@ -21,18 +21,17 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from explorer.cli import main
-from explorer.evaluate import evaluated_record
-from explorer.family import (
+from explorer.core.loop import Rational, feedback_sign
+from explorer.evaluation.family import (
     TIME_SCALE_DIST_TOL,
     box_worst_batch,
     family_worst_batch,
-    sampled_members,
-    scaled_plant,
     sector_distance,
 )
-from explorer.loop import Rational, feedback_sign
-from explorer.metrics import frequency_metrics
-from explorer.study import Variation, parse_study
+from explorer.evaluation.records import evaluated_record
+from explorer.frequency.metrics import frequency_metrics
+from explorer.model.family_members import sampled_members, scaled_plant
+from explorer.model.study import Variation, parse_study
 
 ROOT = Path(__file__).resolve().parents[1]
 KILN = Rational(gain=0.005, poles=(-0.02, -0.1), delay_s=6.0)
@@ -343,7 +342,7 @@ def test_report_draws_the_family_bands_and_member_steps():
     """The report of a family study has the band and step charts of the shown design;
     the bands hold the nominal curves, and the upper |S| edge is the box worst (its
     maximum equals the design's worst Ms within the report grid's resolution)."""
-    from explorer.report import chart_specs, family_frame, family_step_frame
+    from explorer.outputs.report import chart_specs, family_frame, family_step_frame
 
     s = parse_study(tomllib.loads((ROOT / "studies" / "kiln_family.toml").read_text()))
     rec = evaluated_record(s, s.compensators[0].compensator, name="PI cautious",
@@ -369,7 +368,7 @@ def test_explore_answer_holds_on_every_member_and_beats_the_hand_design(tmp_path
     answer is stable and within every limit on every member — re-checked here on a
     plain-numpy grid of the box (Ms) and by the exact engine at the corners and the
     listed member — and its worst Ms beats the phase-balanced hand design's."""
-    from explorer.explore import explore
+    from explorer.search.exploration import explore
 
     path = ROOT / "studies" / "kiln_family.toml"
     s = parse_study(tomllib.loads(path.read_text()))
@@ -419,7 +418,7 @@ def test_check_and_balance_report_the_worst_beside_the_nominal(capsys):
 def test_worst_margins_are_never_better_than_any_member(plant, kc, zi, glo, ghi, dlo, ddel):
     """The worst phase, gain and delay margins over the gain × delay box are no larger
     than those of any member of a 7 × 7 grid of the box, each computed by the
-    one-plant engine (explorer.metrics, its own reference: docs/metrics.md), and the
+    one-plant engine (explorer.frequency.metrics, its own reference: docs/metrics.md), and the
     family is stable only if every grid member is."""
     d0 = plant.delay_s
     v = Variation(gain=(glo, ghi), delay_s=(d0 * dlo, d0 + ddel))
@@ -448,7 +447,7 @@ def test_gain_phase_boxes_hold_every_member_of_a_gain_delay_box():
     contains (∠L, |L|) of every member of a plain-numpy grid of the kiln family's gain
     × delay box (phase continued from the nominal by −ω·Δτ, gain shifted by 20·log10 g:
     the loop algebra, no explorer code), and the boxes are drawn in the report."""
-    from explorer.report import chart_specs, family_frame, family_gain_phase_frame
+    from explorer.outputs.report import chart_specs, family_frame, family_gain_phase_frame
 
     s = parse_study(tomllib.loads((ROOT / "studies" / "kiln_family.toml").read_text()))
     rec = evaluated_record(s, s.compensators[0].compensator, name="PI cautious",
@@ -572,14 +571,14 @@ def _resonant_family() -> tuple[Rational, Variation, Rational]:
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, "resonant"])
 def test_refined_step_worst_is_never_better_than_a_dense_grid(seed):
     """Random gain × delay families and one whose worst lies inside the box: the refined
-    worst overshoot, settling time and load IAE (explorer.family_time) are never below
+    worst overshoot, settling time and load IAE (explorer.evaluation.family_time) are never below
     the worst of a 15 × 15 grid of the box simulated independently (_foh_grid: scipy
     zpk2ss + expm, first-order hold), and for the continuous figures (overshoot, IAE)
     no higher than the grid's worst by more than the tolerance plus the grid's own
     resolution (the largest difference between grid neighbours). The 3 × 3 start
     alone misses the resonant family's worst IAE and settling time (checked: the
     refinement is what finds them)."""
-    from explorer.family_time import TIME_TOLERANCES, box_time_worst
+    from explorer.evaluation.family_time import TIME_TOLERANCES, box_time_worst
 
     plant, v, comp = _resonant_family() if seed == "resonant" else _random_family(seed)
     fw = family_worst_batch(plant, v, *_arrays([comp]))
@@ -609,9 +608,9 @@ def test_refined_step_worst_is_never_better_than_a_dense_grid(seed):
 
 
 def test_the_independent_simulation_agrees_with_the_engine():
-    """The brute-force simulator above against explorer.timeresp on three members of a
+    """The brute-force simulator above against explorer.time_domain.timeresp on three members of a
     family (two different methods: agreement to the stated numerical slack)."""
-    from explorer.timeresp import step_metrics
+    from explorer.time_domain.timeresp import step_metrics
 
     plant, v, comp = _random_family(1)
     plants = [scaled_plant(plant, g, d, 1.0) for g, d in
@@ -629,7 +628,7 @@ def test_refined_step_worst_with_a_time_scale_is_never_better_than_a_grid():
     """Gain × delay × time scale (the kiln with σ 0.8…1.25): the refined worst step
     figures are never below the worst of a 7 × 7 × 5 grid of the box simulated
     independently (_foh_grid)."""
-    from explorer.family_time import box_time_worst
+    from explorer.evaluation.family_time import box_time_worst
 
     v = Variation(gain=(0.7, 1.3), delay_s=(5.0, 7.0), time_scale=(0.8, 1.25))
     got = box_time_worst(KILN, v, PI)
@@ -645,8 +644,8 @@ def test_the_refined_worst_is_a_simulated_member_and_says_how_it_was_found():
     """Each refined worst value is that of a real member: the member it names,
     simulated on its own plant (g·P(σs)·e^(−sτ), no gain folding), gives the same
     figure; worst_basis states the refinement (members simulated, within the cap)."""
-    from explorer.family_time import MAX_TIME_POINTS, box_time_worst
-    from explorer.timeresp import step_metrics
+    from explorer.evaluation.family_time import MAX_TIME_POINTS, box_time_worst
+    from explorer.time_domain.timeresp import step_metrics
 
     v = Variation(gain=(0.6, 1.4), delay_s=(4.5, 9.0))
     got = box_time_worst(KILN, v, PI_LEAD)
@@ -670,7 +669,7 @@ def test_the_refined_worst_is_a_simulated_member_and_says_how_it_was_found():
 def test_a_member_cap_is_reported_and_never_claims_convergence(monkeypatch):
     """With the cap on simulated members hit, worst_basis says so and does not claim
     convergence (the worst found is still a simulated member's)."""
-    import explorer.family_time as ft
+    import explorer.evaluation.family_time as ft
 
     monkeypatch.setattr(ft, "MAX_TIME_POINTS", 12)
     v = Variation(gain=(0.6, 1.4), delay_s=(4.5, 9.0))
@@ -687,7 +686,7 @@ def test_done_when_explore_answer_holds_on_a_dense_grid_with_a_time_limit(tmp_pa
     the box simulated independently (_foh_grid: overshoot), the plain-numpy |S| grid
     and the exact engine at the corners and the listed member — and its worst case
     beats the phase-balanced hand design's (Ms and overshoot)."""
-    from explorer.explore import explore
+    from explorer.search.exploration import explore
 
     d = tomllib.loads((ROOT / "studies" / "kiln_family.toml").read_text())
     d["limits"]["overshoot_pct"] = 30.0
@@ -725,8 +724,8 @@ def test_a_limit_broken_inside_the_box_only_fails_the_reported_check():
     limit, the refined worst over the box does not, and the reported record misses
     the limit there — so explore cannot recommend it (explore's designs are these
     records)."""
-    from explorer.family import search_time_members
-    from explorer.timeresp import step_metrics
+    from explorer.model.family_members import search_time_members
+    from explorer.time_domain.timeresp import step_metrics
 
     d = {"name": "dome drive", "plant": {"gain": 1.0, "poles": [-3.0, "-0.23+0.97j",
                                                                "-0.23-0.97j"], "delay": 0.5},
@@ -754,11 +753,11 @@ def test_one_axis_refined_worst_is_within_the_tolerance_of_a_dense_line(axis):
     """A family along one axis (gain ×0.6…1.4, delay 4.5…9 s or time scale 0.8…1.25
     of the kiln under PI, whose settling time jumps along each): when the refinement
     says it converged, its worst is within the tolerance of the worst of 161 members
-    evenly spread over the range (each simulated by explorer.timeresp on its own
+    evenly spread over the range (each simulated by explorer.time_domain.timeresp on its own
     plant: dense brute force); either way it is not above that worst by more than the
     tolerance (it is a simulated member's value, and the line is dense)."""
-    from explorer.family_time import TIME_TOLERANCES, box_time_worst
-    from explorer.timeresp import step_metrics_batch
+    from explorer.evaluation.family_time import TIME_TOLERANCES, box_time_worst
+    from explorer.time_domain.timeresp import step_metrics_batch
 
     v = {"gain": Variation(gain=(0.6, 1.4)), "delay": Variation(delay_s=(4.5, 9.0)),
          "time_scale": Variation(time_scale=(0.8, 1.25))}[axis]
@@ -792,7 +791,7 @@ def test_a_figure_null_on_the_box_is_null_in_the_worst_and_the_rest_still_refine
     time are still refined, and no numpy warning escapes."""
     import warnings
 
-    from explorer.family_time import box_time_worst
+    from explorer.evaluation.family_time import box_time_worst
 
     with warnings.catch_warnings():
         warnings.simplefilter("error")

@@ -1,4 +1,4 @@
-"""explorer.farroots: far roots replaced by their delay equivalents.
+"""explorer.time_domain.farroots: far roots replaced by their delay equivalents.
 
 Reference: the exact frequency responses of the original factors, evaluated here
 with numpy (np.polyval on np.poly of the roots), against the first-order Taylor
@@ -12,8 +12,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from explorer.farroots import FOLD_MIN_DAMPING, fold_far_roots
-from explorer.loop import Rational
+from explorer.core.loop import Rational
+from explorer.time_domain.farroots import FOLD_MIN_DAMPING, fold_far_roots
 
 W_FAR = 100.0  # rad/s
 

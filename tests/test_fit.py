@@ -1,4 +1,4 @@
-"""The rational-with-delay fit (explorer/fit.py, docs/measured-data.md).
+"""The rational-with-delay fit (explorer/model/fit.py, docs/measured-data.md).
 
 Reference: data sampled from known models (the truth is the model itself); the fit's
 reported error is re-checked with scipy.signal.freqresp on the fitted zeros-poles-gain
@@ -15,10 +15,11 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from explorer.fit import POOR_FIT_REL_RMS, fit_model, vector_fit
-from explorer.loop import Rational
-from explorer.measured import MeasuredResponse, loop_metrics_on_data, read_sweep
-from explorer.metrics import frequency_metrics
+from explorer.core.loop import Rational
+from explorer.frequency.metrics import frequency_metrics
+from explorer.frequency.on_data import loop_metrics_on_data
+from explorer.model.fit import POOR_FIT_REL_RMS, fit_model, vector_fit
+from explorer.model.sweep import MeasuredResponse, read_sweep
 
 W = np.logspace(-2, 2, 81)  # 20 points per decade
 
@@ -144,7 +145,7 @@ def test_bundled_example_is_what_its_script_writes() -> None:
 
 def test_bundled_example_fit_and_metrics() -> None:
     """The fit recovers the invented model within the data's noise (about 1 %), and
-    the metrics on the data agree with the true model's (explorer.metrics) within the
+    the metrics on the data agree with the true model's (explorer.frequency.metrics) within the
     interpolation bound plus 1 % (the bound covers interpolation, not measurement
     noise: docs/measured-data.md)."""
     gen = _generator()

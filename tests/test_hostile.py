@@ -4,7 +4,7 @@ the numerical domain (docs/study-file.md, "Numerical domain") get answers that a
 the independent scipy-only evaluator ``tests/reference_loop.py``.
 
 (a) a corpus of hostile study files generated here from templates, run in-process through
-    ``explorer.cli.main`` (one subprocess per case would take minutes);
+    ``explorer.cli.app.main`` (one subprocess per case would take minutes);
 (b) Hypothesis-generated TOML documents fed to ``parse_study``: a Study or a
     StudyFileError, nothing else;
 (c) a FIFO and /dev/zero as the study file (subprocess with a timeout as a guard only);
@@ -40,10 +40,10 @@ from hostile_corpus import (
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from explorer import study as study_mod
 from explorer.cli import main
-from explorer.errors import StudyFileError
-from explorer.study import parse_study
+from explorer.core.errors import StudyFileError
+from explorer.model import study as study_mod
+from explorer.model.study import parse_study
 
 ROOT = Path(__file__).resolve().parents[1]
 

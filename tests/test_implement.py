@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from explorer.caution import CAUTION
 from explorer.cli import main
-from explorer.metrics import frequency_metrics
-from explorer.study import load_study
+from explorer.core.caution import CAUTION
+from explorer.frequency.metrics import frequency_metrics
+from explorer.model.study import load_study
 
 ROOT = Path(__file__).resolve().parents[1]
 CONVEYOR = str(ROOT / "studies" / "conveyor_speed.toml")

@@ -2,7 +2,7 @@
 the time unit or the plant's gain units.
 
 - Negating the plant gain: the compensator sign that makes negative feedback
-  (explorer.loop.feedback_sign) flips with it, and C·P is the same loop.
+  (explorer.core.loop.feedback_sign) flips with it, and C·P is the same loop.
 - Scaling time: P_a(s) = P(s/a) has roots × a, delay ÷ a and gain × a^(n_p − n_z);
   with the crossover × a every frequency-domain figure is the same and every time ÷ a.
 - Scaling the plant gain by g: every compensator gain ÷ g, the same loop.
@@ -20,10 +20,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from explorer.explore import explore, make_problem
-from explorer.structures import candidate_structures
-from explorer.study import parse_study
-from explorer.tune import evaluate_batch
+from explorer.design.structures import candidate_structures
+from explorer.model.study import parse_study
+from explorer.search.exploration import explore, make_problem
+from explorer.search.tune import evaluate_batch
 
 
 @st.composite

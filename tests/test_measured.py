@@ -1,8 +1,9 @@
 """Measured frequency response as the plant: reading/validation of the sweep CSV and
-loop metrics on data (explorer/measured.py, docs/measured-data.md).
+loop metrics on data (explorer/model/sweep.py, explorer/frequency/on_data.py,
+docs/measured-data.md).
 
 Reference values: every metric on sampled data is compared with the same loop's
-metrics from the analytic model — explorer.metrics.frequency_metrics (itself checked
+metrics from the analytic model — explorer.frequency.metrics.frequency_metrics (itself checked
 against closed forms and scipy in tests/test_metrics.py) and, independently, the
 scipy-only evaluator tests/reference_loop.py. The allowed error is the module's own
 interpolation error estimate (plus 1e-9 relative for the reference's precision), and
@@ -18,18 +19,17 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from explorer.errors import StudyFileError
-from explorer.loop import Rational
-from explorer.measured import (
+from explorer.core.errors import StudyFileError
+from explorer.core.loop import Rational
+from explorer.frequency.metrics import frequency_metrics
+from explorer.frequency.on_data import loop_metrics_on_data, loop_metrics_on_data_batch
+from explorer.model.sweep import (
     LOW_COHERENCE,
     MIN_POINTS,
     MeasuredResponse,
-    loop_metrics_on_data,
-    loop_metrics_on_data_batch,
     parse_sweep,
     read_sweep,
 )
-from explorer.metrics import frequency_metrics
 
 sys.path.insert(0, str(Path(__file__).parent))
 from reference_loop import reference_metrics  # noqa: E402
@@ -66,7 +66,7 @@ def _close(got: float, want: float, bound: float) -> bool:
 
 @pytest.mark.parametrize("name", list(CASES))
 def test_metrics_within_error_estimate(name: str) -> None:
-    """Source: explorer.metrics.frequency_metrics on the analytic loop."""
+    """Source: explorer.frequency.metrics.frequency_metrics on the analytic loop."""
     plant, comp, up = CASES[name]
     ref = frequency_metrics(plant, comp)
     bounds: dict[str, list[float]] = {}
@@ -107,7 +107,7 @@ def test_every_case_reports_its_main_metrics() -> None:
 
 def test_against_scipy_reference_evaluator() -> None:
     """Source: tests/reference_loop.py (scipy.signal.freqresp, brentq), independent of
-    explorer.metrics."""
+    explorer.frequency.metrics."""
     plant, comp, _ = CASES["lag with delay"]
     ref = reference_metrics(plant * comp, 1e-3, 1e3, 2000)
     m = loop_metrics_on_data(sweep(plant, 20), comp)
@@ -310,7 +310,7 @@ def _random_loop(rng: np.random.Generator) -> tuple[Rational, Rational, int]:
 def test_random_loops_against_model_metrics() -> None:
     """60 random loops (lags, modes ζ ≥ 0.05, 0–2 integrators, an unstable pole,
     delays; seeded), sampled at 20 points per decade over 1e-4..1e3 rad/s: the
-    Nyquist verdict equals explorer.metrics' on the model (itself checked against
+    Nyquist verdict equals explorer.frequency.metrics' on the model (itself checked against
     polynomial roots in tests/test_metrics.py), and every reported metric of a stable
     loop lies within its interpolation bound. In development 600 such loops (4 seeds)
     gave no mismatch."""

@@ -5,7 +5,7 @@ explore on the data against the same study given as the model (docs/measured-dat
 References: the frequency figures on the data are compared with
 ``tests/reference_loop.py`` (scipy.signal.freqresp + brentq on a dense grid, no code
 shared with loopscout) on the model the data were sampled from, within the
-interpolation bound the data path reports; time figures with ``explorer.timeresp``
+interpolation bound the data path reports; time figures with ``explorer.time_domain.timeresp``
 on the model (itself checked against scipy.signal in tests/test_timeresp.py).
 The scenario (a drying-drum exhaust temperature) is invented.
 """
@@ -20,10 +20,10 @@ import numpy as np
 import pytest
 
 from explorer.cli import main
-from explorer.evaluate import evaluated_record
-from explorer.loop import Rational
-from explorer.measured import MeasuredResponse
-from explorer.study import load_study
+from explorer.core.loop import Rational
+from explorer.evaluation.records import evaluated_record
+from explorer.model.study import load_study
+from explorer.model.sweep import MeasuredResponse
 from tests.reference_loop import reference_metrics
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -276,7 +276,7 @@ def test_variation_with_data_is_refused(tmp_path: Path,
 
 @pytest.mark.slow
 def test_explore_on_data_agrees_with_the_model(tmp_path: Path) -> None:
-    from explorer.explore import explore
+    from explorer.search.exploration import explore
 
     data_study, model_study = _studies(tmp_path, 20)
     res = explore(str(data_study), tmp_path / "out", trials=12, seed=3, progress=False)
@@ -330,7 +330,7 @@ def test_bundled_hopper_study_runs_through_every_command(
 
 
 def test_report_points_are_the_measured_data(tmp_path: Path) -> None:
-    from explorer.report import measured_frame, plant_chart, plant_frame
+    from explorer.outputs.report import measured_frame, plant_chart, plant_frame
 
     data_study, _ = _studies(tmp_path, 20)
     st = load_study(data_study)
@@ -406,7 +406,8 @@ def test_hand_plant_matches_the_data_at_the_crossover(other: Rational) -> None:
     """The model the hand designs are placed on equals the data's interpolant at ωc
     in magnitude and phase (mod 360°), whatever model it started from (closed form:
     the sampled model's own value at a measured point)."""
-    from explorer.plant_source import hand_plant, measured_plant
+    from explorer.evaluation.plant_source import hand_plant
+    from explorer.model.measured_plant import measured_plant
 
     true = Rational(gain=1.0, poles=(-1.0, -1.0), delay_s=0.2)
     w = _grid(20, 1e-2, 1e2)
@@ -423,7 +424,7 @@ def test_hand_plant_matches_the_data_at_the_crossover(other: Rational) -> None:
 
 
 def test_report_page_lists_the_data_assumptions(tmp_path: Path) -> None:
-    from explorer.report_page import _data_assumptions
+    from explorer.outputs.report_page import _data_assumptions
 
     data_study, model_study = _studies(tmp_path, 20)
     st = load_study(data_study)

@@ -1,4 +1,4 @@
-"""The one metric list (explorer.metric_registry): every other list of metric keys is
+"""The one metric list (explorer.core.metric_registry): every other list of metric keys is
 derived from it, and every metric is defined in the docs section its entry names."""
 
 from __future__ import annotations
@@ -8,8 +8,13 @@ from pathlib import Path
 
 import pytest
 
-from explorer import cli, evaluate, family, metric_registry, study, tune
+from explorer.cli import output as cli
+from explorer.core import metric_registry
+from explorer.evaluation import family
+from explorer.evaluation import records as evaluate
+from explorer.model import study
 from explorer.schemas import build
+from explorer.search import tune
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -77,7 +82,8 @@ def test_limit_keys_and_ranges_agree() -> None:
 
 
 def test_ranked_table_columns_are_registered_metrics() -> None:
-    from explorer import cli_explore, report_page
+    from explorer.cli import explore as cli_explore
+    from explorer.outputs import report_page
 
     for key, _, _ in metric_registry.RANKED_COLUMNS:
         assert key == "order" or key in metric_registry.BY_KEY, key

@@ -13,9 +13,9 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from reference_loop import reference_metrics
 
-from explorer.errors import DesignError
-from explorer.loop import LoopBatch, Rational
-from explorer.metrics import (
+from explorer.core.errors import DesignError
+from explorer.core.loop import LoopBatch, Rational
+from explorer.frequency.metrics import (
     compensator_metrics,
     frequency_metrics,
     frequency_metrics_batch,
@@ -504,7 +504,7 @@ def test_every_figure_scales_as_theory_says(delay_s):
     ratio (margins, peaks, overshoot, noise figures) unchanged. The gain moved from
     plant to compensator (P·a, C/a): the loop and its figures unchanged, the control
     signal and the compensator's gains ÷ a, the load response × a."""
-    from explorer.evaluate import design_metrics
+    from explorer.evaluation.records import design_metrics
 
     plant = Rational(gain=2.0, poles=(-1.0, -2.0), delay_s=delay_s)
     comp = Rational(gain=9.6 if delay_s else 30.0, zeros=(-0.8, -1.25), poles=(0.0, -10.0))

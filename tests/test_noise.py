@@ -1,4 +1,4 @@
-"""Noise figures (explorer.noise) against closed forms and a dense scipy evaluation."""
+"""Noise figures (explorer.frequency.noise) against closed forms and a dense scipy evaluation."""
 
 from __future__ import annotations
 
@@ -8,13 +8,13 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from explorer.loop import Rational
-from explorer.noise import noise_figures, pole_ratio
+from explorer.core.loop import Rational
+from explorer.frequency.noise import noise_figures, pole_ratio
 
 
 def _dense_sup(comp: Rational, wc: float) -> float:
     """sup |C(jω)| for ω ≥ ωc on a very dense grid with scipy.signal.freqs_zpk (shares
-    no code with explorer.noise), and the limit ω → ∞."""
+    no code with explorer.frequency.noise), and the limit ω → ∞."""
     w = np.geomspace(wc, wc * 1e7, 400_000)
     _, h = signal.freqs_zpk(list(comp.zeros), list(comp.poles), comp.gain, worN=w)
     hf = abs(comp.gain) if len(comp.zeros) == len(comp.poles) else 0.0

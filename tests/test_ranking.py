@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from explorer.ranking import non_dominated_fronts, rank_designs
+from explorer.search.ranking import non_dominated_fronts, rank_designs
 
 
 def test_fronts_hand_worked() -> None:

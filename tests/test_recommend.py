@@ -1,4 +1,4 @@
-"""The recommended design (explorer.recommend): the documented rule on records we
+"""The recommended design (explorer.search.recommend): the documented rule on records we
 build, its invariance under scaling, and near-duplicate removal."""
 
 from __future__ import annotations
@@ -8,7 +8,7 @@ import math
 
 import pytest
 
-from explorer.recommend import W_MS, W_NOISE, cost, drop_near_duplicates, recommend
+from explorer.search.recommend import W_MS, W_NOISE, cost, drop_near_duplicates, recommend
 
 
 def _d(name, order=2, ms=1.4, noise=3.0, ratio=2.0, iae=20.0, ts=100.0, wc=0.06,

@@ -24,14 +24,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from explorer.caution import CAUTION
-from explorer.cli import CAUTION as CLI_CAUTION
-from explorer.cli_explore import ranked_table
-from explorer.cli_report import given_designs, load_designs
-from explorer.errors import LoopscoutError
-from explorer.evaluate import evaluated_record
-from explorer.loop import Rational
-from explorer.report import (
+from explorer.cli.app import CAUTION as CLI_CAUTION
+from explorer.cli.explore import ranked_table
+from explorer.cli.report import given_designs, load_designs
+from explorer.core.caution import CAUTION
+from explorer.core.errors import LoopscoutError
+from explorer.core.loop import Rational
+from explorer.evaluation.records import evaluated_record
+from explorer.model.study import load_study, parse_study
+from explorer.outputs.report import (
     DEFAULT_MS,
     chart_specs,
     dashboard,
@@ -47,8 +48,7 @@ from explorer.report import (
     step_frame,
     write_report,
 )
-from explorer.report_page import readable, requirement_rows, requirements, script_json
-from explorer.study import load_study, parse_study
+from explorer.outputs.report_page import readable, requirement_rows, requirements, script_json
 
 STUDIES = Path(__file__).resolve().parent.parent / "studies"
 ALL_STUDIES = sorted(STUDIES.glob("*.toml"))
@@ -458,7 +458,7 @@ def test_designs_json_roundtrip(kiln, tmp_path):
 def test_log_axes_tick_at_decades_and_a_control_kick_is_clipped_and_said() -> None:
     import pandas as pd
 
-    from explorer.report import _decades, _kick_clipped_domain
+    from explorer.outputs.report import _decades, _kick_clipped_domain
 
     assert _decades(pd.Series([5e-4, 0.3, 7.0])) == [1e-4, 1e-3, 1e-2, 1e-1, 1.0, 10.0]
     t = np.linspace(0.0, 100.0, 1001)
@@ -550,7 +550,7 @@ def _title_ink(png: bytes, spec: dict) -> int:
 def test_png_and_svg_slides_carry_text(kiln, tmp_path):
     import vl_convert as vlc
 
-    from explorer.report import _theme
+    from explorer.outputs.report import _theme
 
     study, ds = kiln
     paths = export_charts(study, ds, tmp_path, formats=("png", "svg"))

@@ -27,9 +27,9 @@ from typing import Any
 
 import pytest
 
-from explorer.evaluate import given_designs
-from explorer.report import write_report
-from explorer.study import load_study
+from explorer.evaluation.records import given_designs
+from explorer.model.study import load_study
+from explorer.outputs.report import write_report
 
 ROOT = Path(__file__).resolve().parents[1]
 CHROMIUM = shutil.which("chromium") or (

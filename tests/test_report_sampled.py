@@ -1,7 +1,8 @@
-"""The report's sampled-loop charts (explorer.report_sampled, explorer.report): present
-with a sample time and absent without; their series are the sampled loop (the phase at
-the sampled crossover equals −180° + the sampled phase margin read by
-explorer.sampled.sampled_loop_metrics; the step frame's overshoot equals the sampled
+"""The report's sampled-loop charts (explorer.outputs.report_sampled,
+explorer.outputs.report): present with a sample time and absent without; their series
+are the sampled loop (the phase at the sampled crossover equals −180° + the sampled
+phase margin read by
+explorer.frequency.sampled.sampled_loop_metrics; the step frame's overshoot equals the sampled
 record's), the controller output drawn as a held staircase."""
 
 from __future__ import annotations
@@ -12,10 +13,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from explorer.evaluate import given_designs
-from explorer.report import chart_specs
-from explorer.report_sampled import sampled_loop_frame, sampled_step_frames
-from explorer.study import load_study, parse_study
+from explorer.evaluation.records import given_designs
+from explorer.model.study import load_study, parse_study
+from explorer.outputs.report import chart_specs
+from explorer.outputs.report_sampled import sampled_loop_frame, sampled_step_frames
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -106,8 +107,8 @@ def test_requirement_checks_and_answer_card_read_the_sampled_loop(sampled, tmp_p
     """The requirements table judges what meets_targets judged (the sampled loop): each
     design's ✓/✗ on every row agrees with its meets_targets, and the answer card lists
     the sampled figures."""
-    from explorer.report import write_report
-    from explorer.report_page import requirement_rows
+    from explorer.outputs.report import write_report
+    from explorer.outputs.report_page import requirement_rows
 
     st, ds = sampled
     rows = requirement_rows(st)

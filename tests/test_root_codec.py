@@ -1,4 +1,4 @@
-"""One root encoding (explorer.loop.root_to_json / root_from_json): exact round trip
+"""One root encoding (explorer.core.loop.root_to_json / root_from_json): exact round trip
 of every double, the older [re, im] trial-record form still read, bad values refused."""
 
 from __future__ import annotations
@@ -8,7 +8,7 @@ import json
 import numpy as np
 import pytest
 
-from explorer.loop import root_from_json, root_to_json
+from explorer.core.loop import root_from_json, root_to_json
 
 
 def test_round_trip_is_exact_through_json_text() -> None:

@@ -1,4 +1,4 @@
-"""explorer.sampled: discretization, sections, the exact sampled plant and the
+"""explorer.frequency.sampled: discretization, sections, the exact sampled plant and the
 sampled-loop metrics, each against something we did not write (named beside the
 check): scipy.signal (cont2discrete, sosfilt, dstep, zpk2ss), closed forms, the
 Poisson-summation (aliasing) formula of the sampled frequency response, and plain
@@ -12,10 +12,10 @@ import numpy as np
 import pytest
 from scipy import optimize, signal
 
-from explorer.errors import DesignError
-from explorer.loop import Rational
-from explorer.metrics import frequency_metrics
-from explorer.sampled import (
+from explorer.core.errors import DesignError
+from explorer.core.loop import Rational
+from explorer.frequency.metrics import frequency_metrics
+from explorer.frequency.sampled import (
     closed_loop_matrix,
     closed_loop_roots_outside,
     compensator_stages,
@@ -438,7 +438,7 @@ def test_stability_agrees_with_simulation(T: float) -> None:
 
 
 def _verdicts(plant: Rational, comp: Rational, T: float, extra_s: float) -> tuple[int, int]:
-    from explorer.sampled import _grid
+    from explorer.frequency.sampled import _grid
 
     sp = sample_plant(plant, T, extra_s)
     dc = discretize(comp, T, "tustin")

@@ -1,5 +1,5 @@
-"""Batched sampled-loop readings (explorer.sampled_batch) equal the one-design
-explorer.sampled.sampled_loop_metrics (itself checked against scipy.signal and the
+"""Batched sampled-loop readings (explorer.frequency.sampled_batch) equal the one-design
+explorer.frequency.sampled.sampled_loop_metrics (itself checked against scipy.signal and the
 ZOH formulas of Åström & Wittenmark, Computer-Controlled Systems, 3rd ed. 1997, §2.3),
 and the batched closed-loop matrices have the one-design matrix's eigenvalues."""
 
@@ -9,15 +9,19 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from explorer.loop import Rational
-from explorer.sampled import (
+from explorer.core.loop import Rational
+from explorer.frequency.sampled import (
     closed_loop_matrix,
     cont_loop_with,
     discretize,
     sample_plant,
     sampled_loop_metrics,
 )
-from explorer.sampled_batch import closed_loop_matrices, discretize_batch, sampled_metrics_batch
+from explorer.frequency.sampled_batch import (
+    closed_loop_matrices,
+    discretize_batch,
+    sampled_metrics_batch,
+)
 
 KEYS = ("crossover_rad_s", "phase_margin_deg", "gain_margin_db", "phase_crossover_rad_s",
         "delay_margin_s", "sensitivity_peak", "complementary_peak", "closed_loop_stable")
@@ -112,7 +116,7 @@ def test_stability_against_scipy_zoh_characteristic_roots() -> None:
 def test_long_delay_argument_count_agrees_with_eigenvalues() -> None:
     """Past MAX_EIG_STATES states the batch counts by the argument principle; the
     eigenvalues of the (large) one-design closed-loop matrix decide independently."""
-    from explorer.sampled import MAX_EIG_STATES
+    from explorer.frequency.sampled import MAX_EIG_STATES
 
     plant = Rational(gain=1.0, zeros=(), poles=(-0.2,), delay_s=14.0)  # a long dryer belt
     T = 0.05
@@ -172,7 +176,7 @@ def test_modal_plant_evaluator_equals_the_linear_solve(pi: int) -> None:
     """The batch's fast H(z) (partial fractions over the eigenvalues of Φ) is the
     SampledPlant's H(z) (one linear solve per point) on and off the unit circle; a
     plant with a repeated pole (defective Φ) falls back to the solve."""
-    from explorer.sampled_batch import plant_evaluator
+    from explorer.frequency.sampled_batch import plant_evaluator
 
     sp = sample_plant(PLANTS[pi], 0.05, 0.013)
     z = np.concatenate([np.exp(1j * np.linspace(1e-3, np.pi, 500)),

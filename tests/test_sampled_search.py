@@ -1,8 +1,8 @@
-"""The exploration on the sampled loop (``[search] sample_time``; explorer.sampled_search).
+"""The exploration on the sampled loop (``[search] sample_time``; explorer.design.sampled_design).
 
 Checks: bad input at the boundary (one line, exit 2); the search's batch figures against
 the one-design evaluator; every design that claims meets_targets on a sampled study
-re-checked independently — the one-design explorer.sampled.sampled_loop_metrics, and a
+re-checked independently — the one-design explorer.frequency.sampled.sampled_loop_metrics, and a
 dense brute-force evaluation of the loop built from scipy.signal.cont2discrete ("zoh"
 for the plant, "bilinear" with the prewarped step 2/c for the compensator;
 Åström & Wittenmark, Computer-Controlled Systems, 3rd ed. 1997, §2.3 for the ZOH
@@ -21,9 +21,9 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from explorer.errors import StudyFileError
-from explorer.loop import Rational
-from explorer.study import parse_study
+from explorer.core.errors import StudyFileError
+from explorer.core.loop import Rational
+from explorer.model.study import parse_study
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -85,12 +85,12 @@ def test_bad_sample_time_exit_2(tmp_path: Path) -> None:
 
 
 def test_batch_figures_equal_the_record() -> None:
-    """The search's batch readings (explorer.sampled_batch through tune.evaluate_batch)
-    equal the re-check of the same design (explorer.sampled.sampled_loop_metrics)."""
-    from explorer.evaluate import evaluated_record
-    from explorer.explore import make_problem
-    from explorer.structures import candidate_structures
-    from explorer.tune import evaluate_batch
+    """The search's batch readings (explorer.frequency.sampled_batch through tune.evaluate_batch)
+    equal the re-check of the same design (explorer.frequency.sampled.sampled_loop_metrics)."""
+    from explorer.design.structures import candidate_structures
+    from explorer.evaluation.records import evaluated_record
+    from explorer.search.exploration import make_problem
+    from explorer.search.tune import evaluate_batch
 
     st = parse_study({**BASE, "search": {"sample_time": 0.1, "compute_delay": 0.03}})
     pr = make_problem(st)
@@ -141,7 +141,7 @@ def _brute_force(plant: Rational, comp: Rational, T: float, wp: float, delay_sam
 
 @pytest.fixture(scope="module")
 def sampled_run(tmp_path_factory: pytest.TempPathFactory):
-    from explorer.explore import explore
+    from explorer.search.exploration import explore
 
     st = parse_study({**BASE, "search": {"sample_time": 0.25, "compute_delay": 0.25,
                                          "max_order": 2, "trials": 16, "seed": 4}},
@@ -154,7 +154,12 @@ def test_every_claim_holds_on_the_sampled_loop(sampled_run) -> None:
     """T = 0.25 s (ωc·T = 0.2 rad) and one period of computation delay: every design
     claiming meets_targets has a stable sampled loop with PM ≥ target − 0.05°, by the
     one-design evaluator and by the scipy-only brute force."""
-    from explorer.sampled import cont_loop_with, discretize, sample_plant, sampled_loop_metrics
+    from explorer.frequency.sampled import (
+        cont_loop_with,
+        discretize,
+        sample_plant,
+        sampled_loop_metrics,
+    )
 
     st, res = sampled_run
     ok = [d for d in res.designs if d["meets_targets"]]
@@ -181,7 +186,7 @@ def test_every_claim_holds_on_the_sampled_loop(sampled_run) -> None:
 def test_short_sample_time_tends_to_continuous(tmp_path: Path) -> None:
     """As T → 0 the answer's sampled figures tend to its continuous ones (the loop
     L(e^{jωT}) → L(jω) for ωT → 0): the gap shrinks about in proportion to T."""
-    from explorer.explore import explore
+    from explorer.search.exploration import explore
 
     gaps = []
     for T in (0.04, 0.005):
@@ -201,8 +206,8 @@ def test_short_sample_time_tends_to_continuous(tmp_path: Path) -> None:
 
 def test_summary_line_states_the_rule() -> None:
     """ωc·T and the hold's cost ωc·(T/2 + τc) in degrees; a warning past 0.5 rad
-    (explorer.sampled.WC_T_WARN_RAD, common practice)."""
-    from explorer.sampled_search import sampling_line
+    (explorer.frequency.sampled.WC_T_WARN_RAD, common practice)."""
+    from explorer.design.sampled_design import sampling_line
 
     ok = sampling_line(parse_study({**BASE, "search": {"sample_time": 0.1,
                                                        "compute_delay": 0.02}}))

@@ -1,4 +1,4 @@
-"""The sampled loop's step responses (explorer.sampled_step) against an independent
+"""The sampled loop's step responses (explorer.time_domain.sampled_step) against an independent
 simulation: the continuous plant discretised by scipy.signal.cont2discrete ("zoh")
 on a sub-step that divides the period and the delays, the controller run as its
 direct-form difference equation in a plain loop (Åström & Wittenmark,
@@ -13,10 +13,10 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from explorer.loop import Rational
-from explorer.sampled import discretize
-from explorer.sampled_batch import discretize_batch
-from explorer.sampled_step import sampled_step_metrics, simulate_sampled
+from explorer.core.loop import Rational
+from explorer.frequency.sampled import discretize
+from explorer.frequency.sampled_batch import discretize_batch
+from explorer.time_domain.sampled_step import sampled_step_metrics, simulate_sampled
 
 
 def _reference(plant: Rational, comp_d, T: float, tc: float, K: int, M: int, load: bool):
@@ -81,8 +81,8 @@ def test_steps_match_substepped_zoh(tau: float, tc: float, load: bool) -> None:
 
 def test_metrics_tend_to_continuous_as_T_shrinks() -> None:
     """As T → 0 the sampled loop's overshoot and load IAE tend to the continuous loop's
-    (explorer.timeresp, an independent method: Hermite-cubic delayed simulation)."""
-    from explorer.timeresp import step_metrics
+    (explorer.time_domain.timeresp, an independent method: Hermite-cubic delayed simulation)."""
+    from explorer.time_domain.timeresp import step_metrics
 
     plant = Rational(gain=0.05 / 0.375, zeros=(), poles=(-1 / 3, -2.0, -4.0), delay_s=0.1)
     comp = Rational(gain=60.0, zeros=(-1 / 3,), poles=(0.0,))

@@ -7,7 +7,7 @@ import json
 from pathlib import Path
 
 from explorer.cli import main
-from explorer.cli_explore import ranked_table
+from explorer.cli.explore import ranked_table
 
 STUDY = Path(__file__).resolve().parent.parent / "studies" / "conveyor_plc.toml"
 

@@ -18,9 +18,9 @@ import jsonschema
 import pytest
 
 from explorer.cli import main
-from explorer.explore import explore
 from explorer.schemas import COMMANDS, load_schema
 from explorer.schemas.build import STABLE_METRICS, render, schemas
+from explorer.search.exploration import explore
 
 ROOT = Path(__file__).resolve().parents[1]
 STUDIES = sorted(p.name for p in (ROOT / "studies").glob("*.toml"))
@@ -269,7 +269,7 @@ def test_renamed_or_retyped_metric_fails(key: str, checked: dict[str, Any]) -> N
 
 
 def test_metric_keys_match_the_evaluator() -> None:
-    from explorer.evaluate import METRIC_KEYS
+    from explorer.evaluation.records import METRIC_KEYS
 
     assert tuple(STABLE_METRICS) == METRIC_KEYS
 

@@ -1,4 +1,4 @@
-"""Tests of explorer.specs against published relations and independent computation.
+"""Tests of explorer.model.specs against published relations and independent computation.
 
 Sources named beside each check:
 - "recomputed": the numbers of docs/references.md §1, recomputed there with plain
@@ -22,7 +22,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import optimize, signal
 
-from explorer import specs
+from explorer.model import specs
 
 # --------------------------------------------------------------------------------------
 # docs/references.md §1, "Numbers [RECOMP, ωn = 1]" (recomputed):

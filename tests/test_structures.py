@@ -1,14 +1,14 @@
 """Structures and the phase/gain elimination, checked against a direct evaluation of
-L(jωc) = C(jωc)·P(jωc)·e^{−jωcθ} with numpy (closed form, independent of explorer.loop)."""
+L(jωc) = C(jωc)·P(jωc)·e^{−jωcθ} with numpy (closed form, independent of explorer.core.loop)."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from explorer.loop import Rational
-from explorer.structures import balance, candidate_structures
-from explorer.study import SearchOptions, Targets
+from explorer.core.loop import Rational
+from explorer.design.structures import balance, candidate_structures
+from explorer.model.study import SearchOptions, Targets
 
 
 def _direct(

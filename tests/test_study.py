@@ -1,10 +1,10 @@
-"""Tests of explorer.study: the TOML study-file loader.
+"""Tests of explorer.model.study: the TOML study-file loader.
 
 What is checked against what:
 - polynomial (``num``/``den``) input against ``numpy.roots``, ``scipy.signal.tf2zpk``
   and ``numpy.polyval`` (outside references), and closed-form roots of factored
   polynomials;
-- overshoot/settling-time targets against :mod:`explorer.specs` and against the
+- overshoot/settling-time targets against :mod:`explorer.model.specs` and against the
   closed forms ζ = −ln Mp/√(π² + ln² Mp), ωc/ωn = √(√(1+4ζ⁴) − 2ζ²), σ = 4/ts
   (Ogata, *Modern Control Engineering* 5e, Ch. 5/7; Nise, *Control Systems
   Engineering*, Ch. 4/10; chapter numbers from memory), with the recomputed table of
@@ -31,9 +31,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import signal
 
-from explorer import specs
-from explorer.errors import LoopscoutError, StudyFileError
-from explorer.study import (
+from explorer.core.errors import LoopscoutError, StudyFileError
+from explorer.model import specs
+from explorer.model.study import (
     LIMIT_KEYS,
     NamedCompensator,
     SearchOptions,

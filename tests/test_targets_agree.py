@@ -1,7 +1,8 @@
 """One meaning of "meets the targets": the search's batch constraints
-(explorer.tune.evaluate_batch) and the record's check (explorer.evaluate.meets_targets
-on explorer.evaluate.design_metrics, the path of every reported DESIGN) must agree on
-random designs of every candidate structure of the bundled studies.
+(explorer.search.tune.evaluate_batch) and the record's check
+(explorer.evaluation.records.meets_targets on
+explorer.evaluation.records.design_metrics, the path of every reported DESIGN) must
+agree on random designs of every candidate structure of the bundled studies.
 
 The two paths compute the same loop with different code (the batch engine over many
 designs; the one-design record), so they can disagree only at a bound itself. A
@@ -19,12 +20,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from explorer.evaluate import evaluated_record
-from explorer.explore import make_problem
-from explorer.loop import Rational
-from explorer.structures import candidate_structures
-from explorer.study import load_study
-from explorer.tune import constraint_names, evaluate_batch
+from explorer.core.loop import Rational
+from explorer.design.structures import candidate_structures
+from explorer.evaluation.records import evaluated_record
+from explorer.model.study import load_study
+from explorer.search.exploration import make_problem
+from explorer.search.tune import constraint_names, evaluate_batch
 
 STUDIES = Path(__file__).resolve().parent.parent / "studies"
 #: The bundled model-plant studies without a plant family (the family has its own

@@ -1,4 +1,4 @@
-"""Tests of explorer.timeresp against references we did not write.
+"""Tests of explorer.time_domain.timeresp against references we did not write.
 
 Sources named beside each check:
 - "scipy": delay-free closed loops built from np.poly of the roots and simulated with
@@ -31,9 +31,9 @@ import numpy as np
 import pytest
 from scipy import integrate, optimize, signal
 
-from explorer.errors import DesignError
-from explorer.loop import Rational
-from explorer.timeresp import (
+from explorer.core.errors import DesignError
+from explorer.core.loop import Rational
+from explorer.time_domain.timeresp import (
     METRIC_KEYS,
     StepResponse,
     _realise,
@@ -681,7 +681,7 @@ def test_cascade_realisation_matches_roots_form(zeros, poles):
 
 
 # ======================================================================================
-# Far roots folded into the delay (explorer.farroots)
+# Far roots folded into the delay (explorer.time_domain.farroots)
 # ======================================================================================
 # A phase-balanced hand design at ωc·θ = 0.5, PM 61.3°: the balancing pole lands at
 # ~10⁴ ωc (kiln-damper scenario of our own); unfolded it needed 32768 samples per
@@ -734,8 +734,8 @@ def test_far_pole_design_runs_in_bounded_memory():
     del resource
     code = (
         "import resource; resource.setrlimit(resource.RLIMIT_AS, (2 << 30, 2 << 30))\n"
-        "from explorer.loop import Rational\n"
-        "from explorer.timeresp import step_metrics\n"
+        "from explorer.core.loop import Rational\n"
+        "from explorer.time_domain.timeresp import step_metrics\n"
         "m = step_metrics(Rational(gain=1.0, poles=(-1.0,), delay_s=1.0), Rational("
         "gain=2508.4648325840662, zeros=(-1.0,), poles=(-5016.929640252499, 0.0)))\n"
         "print(m['overshoot_pct'])\n"
@@ -919,8 +919,8 @@ def test_huge_compensator_gain_horizon_follows_the_crossover():
     far above the roots at 0.02 and 0.1 rad/s) sets the first horizon, not the slow
     pole, and no simulation holds more than the 2^17-interval cap (it took 35 s and
     5.2 GB at × 1e10 and was killed at × 1e12)."""
-    from explorer.metrics import frequency_metrics
-    from explorer.timeresp import _MAX_INTERVALS, _comp_arrays, _prepare
+    from explorer.frequency.metrics import frequency_metrics
+    from explorer.time_domain.timeresp import _MAX_INTERVALS, _comp_arrays, _prepare
 
     plant = Rational(gain=0.005, poles=(-0.02, -0.1))
     for k in (1e6, 1e10, 1e20):
@@ -946,8 +946,8 @@ def test_huge_compensator_gain_runs_in_bounded_memory():
     code = (
         "import resource; resource.setrlimit(resource.RLIMIT_AS, (3 << 29, 3 << 29))\n"
         "import numpy as np\n"
-        "from explorer.loop import Rational\n"
-        "from explorer.timeresp import step_metrics_batch\n"
+        "from explorer.core.loop import Rational\n"
+        "from explorer.time_domain.timeresp import step_metrics_batch\n"
         "n = 24\n"
         "m = step_metrics_batch(Rational(gain=0.005, poles=(-0.02, -0.1)),\n"
         "    0.85e10 * (1 + 0.01 * np.arange(n)), np.full((n, 1), -0.02), np.zeros((n, 1)))\n"

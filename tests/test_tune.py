@@ -13,9 +13,9 @@ from pathlib import Path
 import optuna
 import pytest
 
-from explorer.structures import candidate_structures
-from explorer.study import load_study, parse_study
-from explorer.tune import study_names
+from explorer.design.structures import candidate_structures
+from explorer.model.study import load_study, parse_study
+from explorer.search.tune import study_names
 
 ROOT = Path(__file__).resolve().parents[1]
 STUDY_TOML = (
@@ -89,7 +89,7 @@ def test_sigkill_then_resume_exact_budget(tmp_path: Path) -> None:
 
 @pytest.mark.slow
 def test_rerun_adds_only_missing_trials(tmp_path: Path) -> None:
-    from explorer.explore import explore
+    from explorer.search.exploration import explore
 
     study = parse_study(
         {
@@ -116,8 +116,8 @@ def test_two_workers_on_postgres(tmp_path: Path, postgres_url: str) -> None:
     stored trials (a third run that finds nothing missing)."""
     import json
 
-    from explorer.explore import make_problem
-    from explorer.tune import create_studies, open_storage
+    from explorer.search.exploration import make_problem
+    from explorer.search.tune import create_studies, open_storage
 
     study_file = tmp_path / "s.toml"
     study_file.write_text(STUDY_TOML)
@@ -176,7 +176,7 @@ def test_two_workers_on_postgres(tmp_path: Path, postgres_url: str) -> None:
 def test_progress_line_rewrites_on_a_terminal_and_logs_stage_ends_elsewhere() -> None:
     import io
 
-    from explorer.tune import ProgressLine
+    from explorer.cli.progress import ProgressLine
 
     class Terminal(io.StringIO):
         def isatty(self) -> bool:
@@ -200,16 +200,16 @@ def test_progress_line_rewrites_on_a_terminal_and_logs_stage_ends_elsewhere() ->
 
 def test_search_never_counts_a_hidden_unstable_mode_as_stable() -> None:
     """A plant zero at s = 0 with loop type 1 asks the compensator for two
-    integrators, one of which cancels the zero (explorer.loop.hidden_unstable_mask):
+    integrators, one of which cancels the zero (explorer.core.loop.hidden_unstable_mask):
     no trial of such a structure may be feasible, although the Nyquist count of
     L = C·P alone calls many of them stable (checked here on the same rows)."""
     import numpy as np
 
-    from explorer.explore import make_problem
-    from explorer.metrics import frequency_metrics_batch
-    from explorer.structures import balance, candidate_structures
-    from explorer.study import parse_study
-    from explorer.tune import evaluate_batch
+    from explorer.design.structures import balance, candidate_structures
+    from explorer.frequency.metrics import frequency_metrics_batch
+    from explorer.model.study import parse_study
+    from explorer.search.exploration import make_problem
+    from explorer.search.tune import evaluate_batch
 
     study = parse_study({"plant": {"gain": 1.0, "zeros": [0.0], "poles": [-1.0, -2.0]},
                          "targets": {"crossover": 1.0, "phase_margin": 45, "integrators": 1},
@@ -241,7 +241,7 @@ def test_a_stale_journal_lock_is_cleared_at_start_and_a_fresh_one_kept(tmp_path)
 
     from optuna.storages.journal import JournalFileSymlinkLock
 
-    from explorer.tune import JOURNAL_LOCK_SUFFIX, STALE_LOCK_S, clear_stale_journal_lock
+    from explorer.search.tune import JOURNAL_LOCK_SUFFIX, STALE_LOCK_S, clear_stale_journal_lock
 
     journal = tmp_path / "explore.journal"
     journal.write_text("")

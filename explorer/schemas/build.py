@@ -140,7 +140,7 @@ WORST: Schema = _obj(
 )
 
 #: extension beside "worst": the family member where Ms is worst (factors null for a
-#: listed member) and what the worst values were taken over (explorer/family.py)
+#: listed member) and what the worst values were taken over (explorer/evaluation/family.py)
 WORST_MEMBER: Schema = _obj(
     {"gain_factor": _num("factor on the plant gain", exclusiveMinimum=0),
      "delay_s": _num("the member's delay", minimum=0),
@@ -191,7 +191,7 @@ WORST_BASIS: Schema = _obj(
 )
 
 #: extension ([search] sample_time): the design's sampled loop, what meets_targets
-#: judges (explorer/sampled_search.py; docs/explore.md "Sampled controller")
+#: judges (explorer/design/sampled_design.py; docs/explore.md "Sampled controller")
 DESIGN_SAMPLED_KEYS = ("crossover_rad_s", "crossovers_rad_s", "phase_margin_deg",
                        "gain_margin_db", "phase_crossover_rad_s", "delay_margin_s",
                        "sensitivity_peak", "complementary_peak", "closed_loop_stable",
@@ -325,7 +325,7 @@ STUDY["properties"]["plant"] = {"oneOf": [_obj(
     ["data", "points", "band_rad_s", "unstable_poles", "integrators", "fit"], closed=False,
 )]}
 
-#: the model fitted to a measured plant and its error over the band (explorer/fit.py)
+#: the model fitted to a measured plant and its error over the band (explorer/model/fit.py)
 FIT: Schema = _obj(
     {"model": _obj({"gain": {"type": "number"},
                     "zeros": {"type": "array", "items": {"$ref": "#/$defs/root"}},
@@ -463,7 +463,7 @@ SAMPLED: dict[str, Schema] = {
     "nyquist_rad_s": _num("extension: π/T", null=False, **_W),
 }
 
-#: explorer/sampled.py's stage kinds
+#: explorer/frequency/sampled.py's stage kinds
 _STAGE_KINDS = ["gain", "integrator", "pi", "pid", "washout", "rhp zero", "lead", "lag",
                 "roll-off", "notch", "peak", "second-order"]
 

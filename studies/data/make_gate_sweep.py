@@ -19,8 +19,8 @@ from pathlib import Path
 
 import numpy as np
 
-from explorer.loop import Rational
-from explorer.measured import read_sweep
+from explorer.core.loop import Rational
+from explorer.model.sweep import read_sweep
 
 K, A_RAD_S, WN_RAD_S, ZETA, DELAY_S = 40.0, 2.5, 25.0, 0.15, 0.03
 SEED = 20261204
