@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import pytest
 
 from explorer.cli import main
 from explorer.cli.report import load_exploration
+from explorer.core.json_text import json_text
 from explorer.evaluation.records import given_designs
 from explorer.model.study import load_study
 
@@ -19,7 +19,7 @@ KILN = ROOT / "studies" / "kiln_damper.toml"
 def _file(tmp_path: Path, **extra) -> Path:
     designs = given_designs(load_study(KILN))
     p = tmp_path / "designs.json"
-    p.write_text(json.dumps({"designs": designs, **extra}), encoding="utf-8")
+    p.write_text(json_text({"designs": designs, **extra}), encoding="utf-8")
     return p
 
 

@@ -97,7 +97,7 @@ def test_imports_are_at_module_top(path: Path) -> None:
 @pytest.mark.parametrize("path", _modules(), ids=lambda p: str(p.relative_to(PACKAGE)))
 def test_no_private_names_cross_modules(path: Path) -> None:
     tree = ast.parse(path.read_text(encoding="utf-8"))
-    for node, module, names in _explorer_imports(tree):
+    for node, _module, names in _explorer_imports(tree):
         private = [n for n in names if n.startswith("_")]
         assert not private, f"{path.relative_to(PACKAGE)}:{node.lineno} imports {private}"
 

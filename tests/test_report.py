@@ -29,6 +29,7 @@ from explorer.cli.explore import ranked_table
 from explorer.cli.report import given_designs, load_designs
 from explorer.core.caution import CAUTION
 from explorer.core.errors import LoopscoutError
+from explorer.core.json_text import json_text
 from explorer.core.loop import Rational
 from explorer.evaluation.records import evaluated_record
 from explorer.model.study import load_study, parse_study
@@ -58,8 +59,8 @@ ALL_STUDIES = sorted(STUDIES.glob("*.toml"))
 def kiln():
     study = load_study(STUDIES / "kiln_damper.toml")
     ds = given_designs(study)
-    ds[0]["origin"] = "hand"  # relabelled for the look: one hand design
-    ds[1]["origin"], ds[1]["pareto"] = "optimized", True
+    ds[0] = ds[0].with_changes(origin="hand")  # relabelled for the look: one hand design
+    ds[1] = ds[1].with_changes(origin="optimized", pareto=True)
     return study, ds
 
 
@@ -282,7 +283,7 @@ def test_chart_specs_layers_encodings_params(kiln):
 
 def test_pareto_has_the_ms_limit_line_and_log_axis_for_spread_values(kiln):
     study, ds = kiln
-    ds = json.loads(json.dumps(ds))
+    ds = json.loads(json_text(ds))
     for d, hf in zip(ds, (0.0, 2.0, 300.0), strict=True):
         d["metrics"]["noise_gain"] = hf
     spec = _spec(chart_specs(study, ds)["pareto_hf"])
@@ -294,7 +295,7 @@ def test_pareto_has_the_ms_limit_line_and_log_axis_for_spread_values(kiln):
 
 def test_a_chart_with_one_point_is_left_out(kiln):
     study, ds = kiln
-    one = json.loads(json.dumps(ds))
+    one = json.loads(json_text(ds))
     for d in one[1:]:
         d["metrics"]["iae_load"] = None
     charts = chart_specs(study, one)
@@ -396,7 +397,7 @@ def test_the_answers_alternatives_are_the_cards_beside_it(kiln, tmp_path):
 
 def test_nothing_meets_and_empty_pages(kiln, tmp_path):
     study, ds = kiln
-    missing = json.loads(json.dumps(ds))
+    missing = json.loads(json_text(ds))
     for d in missing:
         d["meets_targets"] = False
         d["misses"] = ["sensitivity_peak 1.9 > limit 1.7"]
@@ -419,7 +420,7 @@ def test_nothing_meets_and_empty_pages(kiln, tmp_path):
 
 def test_hostile_design_name_cannot_break_the_page(kiln, tmp_path):
     study, ds = kiln
-    ds = json.loads(json.dumps(ds))
+    ds = json.loads(json_text(ds))
     ds[0]["name"] = "<!--<script>"
     ds[1]["name"] = "</script><b>x</b>"
     page = write_report(study, ds, tmp_path / "h.html").read_text(encoding="utf-8")
@@ -442,7 +443,7 @@ def test_bad_input(tmp_path, kiln):
         load_designs(bad)
     with pytest.raises(LoopscoutError, match="--format"):
         export_charts(study, ds, tmp_path, formats=("gif",))
-    d = json.loads(json.dumps(ds[0]))
+    d = ds[0].to_json()
     d["compensator"]["zeros"] = ["abc"]
     with pytest.raises(LoopscoutError, match="not a number"):
         chart_specs(study, [d])
@@ -451,7 +452,7 @@ def test_bad_input(tmp_path, kiln):
 def test_designs_json_roundtrip(kiln, tmp_path):
     study, ds = kiln
     p = tmp_path / "designs.json"
-    p.write_text(json.dumps({"designs": ds}))
+    p.write_text(json_text({"designs": ds}))
     assert [d["name"] for d in load_designs(p)] == [d["name"] for d in ds]
 
 
@@ -625,7 +626,7 @@ def _check_rendered(dom: str) -> None:
 def test_every_bundled_study_renders_at_two_widths(path, tmp_path):
     study = load_study(path)
     ds = given_designs(study)
-    ds[0]["pareto"] = True
+    ds[0] = ds[0].with_changes(pareto=True)
     page = write_report(study, ds, tmp_path / "r.html")
     html_text = page.read_text(encoding="utf-8")
     expected = set(re.findall(r"id='chart-([a-z_]+)'", html_text))
@@ -641,7 +642,7 @@ def test_every_bundled_study_renders_at_two_widths(path, tmp_path):
 @needs_chromium
 def test_nothing_meets_empty_and_hostile_pages_render_styled(kiln, tmp_path):
     study, ds = kiln
-    hostile = json.loads(json.dumps(ds))
+    hostile = json.loads(json_text(ds))
     hostile[0]["name"], hostile[1]["name"] = "<!--<script>", "</script>"
     for d in hostile:
         d["meets_targets"] = False

@@ -87,7 +87,6 @@ _COMMAND_MODULES = (balance_cmd, explore_cmd, report_cmd, implement_cmd)
 # commands
 # --------------------------------------------------------------------------------------
 def _cmd_check(args: argparse.Namespace) -> int:
-
     study = load_study(args.study)
     if not study.compensators:
         raise LoopscoutError(f"{study.source}: no [[compensator]] entries to check")

@@ -19,6 +19,7 @@ from explorer.cli.output import (
 )
 from explorer.core.errors import LoopscoutError
 from explorer.design.hand_designs import hand_designs, trim_gain_for_overshoot
+from explorer.evaluation.design_record import DesignRecord
 from explorer.evaluation.plant_source import hand_plant
 from explorer.evaluation.records import evaluated_record, study_header
 from explorer.model.study import load_study
@@ -62,14 +63,13 @@ def register(sub: Any, caution: str) -> None:
 
 
 def _run(args: argparse.Namespace) -> int:
-
     study = load_study(args.study)
     t = study.targets
     # a crossover range, a free crossover or a missing phase margin is not bad input:
     # each hand method refuses with its reason (docs/balance.md, "Errors")
     if args.trim_overshoot is not None and not (0 < args.trim_overshoot < 100):
         raise LoopscoutError(f"--trim-overshoot must be in (0, 100) %, got {args.trim_overshoot:g}")
-    designs: list[dict[str, Any]] = []
+    designs: list[DesignRecord] = []
     refused: list[dict[str, Any]] = []
 
     wc_t = t.crossover_rad_s if isinstance(t.crossover_rad_s, (int, float)) else None

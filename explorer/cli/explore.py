@@ -10,6 +10,7 @@ DIR/report.html and the resumable trial storage DIR/explore.journal.
 from __future__ import annotations
 
 import argparse
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 from explorer.cli.output import print_json
@@ -82,7 +83,7 @@ def _cell(v: Any, fmt: str) -> str:
         return str(v)
 
 
-def ranked_table(designs: list[dict[str, Any]]) -> str:
+def ranked_table(designs: Sequence[Mapping[str, Any]]) -> str:
     """One row per design (ranked), metrics with units in the header. With a sample
     time the loop figures are the sampled loop's, the ones the ranking used."""
     head = ["design", "origin", "structure", *[h for _, h, _ in _COLUMNS], "meets", "pareto"]
@@ -113,7 +114,6 @@ def ranked_table(designs: list[dict[str, Any]]) -> str:
 
 
 def _run(args: argparse.Namespace) -> int:
-
     res = explore(
         args.study,
         args.out,

@@ -17,7 +17,7 @@ import csv
 import json
 import math
 import textwrap
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 from explorer.cli.output import factored, print_json, safe
@@ -69,7 +69,6 @@ SECTIONS_NOTE = (
 
 
 def register(sub: Any, caution: str) -> None:
-
     p = sub.add_parser(
         "implement",
         help="discrete compensator, sections and the sampled loop for one design",
@@ -118,35 +117,24 @@ def register(sub: Any, caution: str) -> None:
 
 
 # -- argument types ----------------------------------------------------------------------
-def _number(text: str, what: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"must be {what}, got {text!r}") from None
-    if not math.isfinite(v):
-        raise argparse.ArgumentTypeError(f"must be {what}, got {text!r}")
-    return v
+def _number_type(what: str, ok: Callable[[float], bool]) -> Callable[[str], float]:
+    """An argparse type: a finite number for which ``ok`` holds, else "must be
+    <what>, got '<text>'"."""
+    def parse(text: str) -> float:
+        try:
+            v = float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"must be {what}, got {text!r}") from None
+        if not (math.isfinite(v) and ok(v)):
+            raise argparse.ArgumentTypeError(f"must be {what}, got {text!r}")
+        return v
+
+    return parse
 
 
-def _positive_seconds(text: str) -> float:
-    v = _number(text, "a positive number of seconds")
-    if v <= 0:
-        raise argparse.ArgumentTypeError(f"must be a positive number of seconds, got {text!r}")
-    return v
-
-
-def _nonnegative_seconds(text: str) -> float:
-    v = _number(text, "a number of seconds >= 0")
-    if v < 0:
-        raise argparse.ArgumentTypeError(f"must be a number of seconds >= 0, got {text!r}")
-    return v
-
-
-def _positive_rad_s(text: str) -> float:
-    v = _number(text, "a positive frequency in rad/s")
-    if v <= 0:
-        raise argparse.ArgumentTypeError(f"must be a positive frequency in rad/s, got {text!r}")
-    return v
+_positive_seconds = _number_type("a positive number of seconds", lambda v: v > 0)
+_nonnegative_seconds = _number_type("a number of seconds >= 0", lambda v: v >= 0)
+_positive_rad_s = _number_type("a positive frequency in rad/s", lambda v: v > 0)
 
 
 # -- the design --------------------------------------------------------------------------
@@ -155,7 +143,6 @@ def _names(names: Sequence[str]) -> str:
 
 
 def _design_from_study(study: Any, name: str) -> Any:
-
     for entry in study.compensators:
         if entry.name == name:
             return entry.compensator
@@ -167,7 +154,6 @@ def _design_from_study(study: Any, name: str) -> Any:
 
 
 def _design_from_file(path: str, name: str) -> Any:
-
     try:
         text = read_text_file(path, "--from file")
     except StudyFileError as exc:
@@ -194,7 +180,6 @@ def _design_from_file(path: str, name: str) -> Any:
 
 
 def _compensator(obj: Any, where: str) -> Any:
-
     if not isinstance(obj, dict):
         raise LoopscoutError(f"{where} must be an object with gain, zeros and poles")
     gain = obj.get("gain")
@@ -240,7 +225,6 @@ def _compensator(obj: Any, where: str) -> Any:
 
 # -- the command ---------------------------------------------------------------------------
 def _run(args: argparse.Namespace) -> int:
-
     study = load_study(args.study)
     if args.from_file is not None:
         comp = _design_from_file(args.from_file, args.design)
@@ -268,7 +252,6 @@ def _run(args: argparse.Namespace) -> int:
     if args.csv:
         _write_csv(args.csv, obj)
     if args.json:
-
         print_json(obj)
         return 0
     _print_text(study, comp, obj)
@@ -448,7 +431,6 @@ def implementation(study: Any, comp: Any, *, name: str, sample_time_s: float,
 
 # -- output --------------------------------------------------------------------------------
 def _write_csv(path: str, obj: dict[str, Any]) -> None:
-
     try:
         with open(path, "w", newline="", encoding="utf-8") as fh:
             w = csv.writer(fh)
@@ -466,13 +448,11 @@ def _write_csv(path: str, obj: dict[str, Any]) -> None:
 
 
 def _zfactored(gain: float, zeros: Sequence[Any], poles: Sequence[Any], var: str = "z") -> str:
-
     return factored(gain, [complex(x) for x in zeros], [complex(x) for x in poles],
                      var=var, digits=6, sep=" ")
 
 
 def _print_text(study: Any, comp: Any, obj: dict[str, Any]) -> None:
-
     T = obj["sample_time_s"]
     p = study.plant
     print(safe(f"study: {study.name}  ({study.source})"))

@@ -4,6 +4,7 @@ text made safe for a terminal. Shared by every command module of :mod:`explorer.
 from __future__ import annotations
 
 import sys
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 from explorer.core.factored import factored, factored_record
@@ -93,7 +94,7 @@ def print_measured(mp: Any) -> None:
               + ", ".join(f"{w[k]:.4g}" for k in low) + " rad/s")
 
 
-def print_data_notes(designs: list[dict[str, Any]]) -> None:
+def print_data_notes(designs: Sequence[Mapping[str, Any]]) -> None:
     """Per design on a measured plant: the interpolation error bounds, what lies
     outside the band, why time figures are withheld; then, once, the assumptions (the
     same for every design but the Nyquist count, which is left out here)."""
@@ -123,7 +124,7 @@ def fmt_value(key: str, value: Any) -> str:
         return "-"
     if isinstance(value, bool):
         return "yes" if value else "NO"
-    if isinstance(value, list):
+    if isinstance(value, (list, tuple)):
         return ", ".join(f"{v:.4g}" for v in value) or "-"
     if isinstance(value, int):
         return str(value)
@@ -154,7 +155,7 @@ UNSTABLE_MARGIN_NOTE = (
 )
 
 
-def design_table(designs: list[dict[str, Any]]) -> str:
+def design_table(designs: Sequence[Mapping[str, Any]]) -> str:
     """Metrics as rows, designs as columns, with units."""
     head = ["", *[safe(str(d["name"])) for d in designs]]
     rows = [
@@ -172,7 +173,6 @@ def design_table(designs: list[dict[str, Any]]) -> str:
             for d, bad in zip(designs, unstable, strict=True)
         ]])
     if any("worst" in d for d in designs):
-
         for key in WORST_KEYS:
             label, unit = METRIC_UNITS.get(key, (key, ""))
             name = f"worst {label} [{unit}]" if unit and unit != "-" else f"worst {label}"

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -22,7 +23,7 @@ from explorer.outputs.report import export_charts, write_report
 __all__ = ["register", "load_designs", "given_designs"]
 
 
-def given_designs(study: Any) -> list[dict[str, Any]]:
+def given_designs(study: Any) -> Sequence[Mapping[str, Any]]:
     """The study's [[compensator]] entries as DESIGN records (origin "given")."""
 
     if not study.compensators:
@@ -125,7 +126,7 @@ def _design_problem(d: Any) -> str:
 
 def _inputs(
     args: argparse.Namespace,
-) -> tuple[Any, list[dict[str, Any]], dict[str, Any] | None, list[str] | None]:
+) -> tuple[Any, Sequence[Mapping[str, Any]], dict[str, Any] | None, list[str] | None]:
 
     study = load_study(args.study)
     if args.designs:
@@ -145,7 +146,6 @@ def _check_out_file(path: Path) -> None:
 
 
 def _cmd_report(args: argparse.Namespace) -> int:
-
     study, designs, answer, summary = _inputs(args)
     _check_out_file(Path(args.out))
     out = write_report(study, designs, Path(args.out), answer=answer, summary=summary)
@@ -154,7 +154,6 @@ def _cmd_report(args: argparse.Namespace) -> int:
 
 
 def _cmd_charts(args: argparse.Namespace) -> int:
-
     study, designs, answer, _ = _inputs(args)
     for p in export_charts(study, designs, Path(args.out), formats=tuple(args.format),
                            answer=answer):

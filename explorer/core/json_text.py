@@ -1,7 +1,8 @@
 """The one JSON writer of loopscout's outputs (the ``--json`` objects and
 ``designs.json``): every value made JSON-safe the same way.
 
-Non-finite floats become null (docs/interface.md: null = does not exist or infinite),
+Mappings (a frozen DESIGN record included) become objects, non-finite floats null
+(docs/interface.md: null = does not exist or infinite),
 tuples become lists, numpy scalars become Python numbers and booleans, keys become
 strings. ``allow_nan=False`` makes a value that slipped through fail loudly instead
 of writing ``NaN`` (which is not JSON)."""
@@ -10,6 +11,7 @@ from __future__ import annotations
 
 import json
 import math
+from collections.abc import Mapping
 from typing import Any
 
 __all__ = ["json_safe", "json_text"]
@@ -17,7 +19,7 @@ __all__ = ["json_safe", "json_text"]
 
 def json_safe(obj: Any) -> Any:
     """``obj`` with every value JSON-safe (see the module docstring)."""
-    if isinstance(obj, dict):
+    if isinstance(obj, Mapping):  # dicts, read-only views, DESIGN records
         return {str(k): json_safe(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
         return [json_safe(v) for v in obj]

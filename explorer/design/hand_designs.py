@@ -398,14 +398,7 @@ def phase_balanced(plant: Rational, targets: Targets, *,
     steps: list[str] = []
     cancelled: list[complex] = []
     try:
-        wc, pm, required = _validate(plant, targets)
-        target = _target_phase_deg(plant, pm)
-        steps.append(
-            f"targets: crossover {_f(wc)} rad/s, phase margin {_f(pm)}°: the loop phase at "
-            f"ωc must be {_deg(target)} and |L(jωc)| = 1"
-        )
-        sign = _gain_sign(plant)
-        steps.append(_sign_step(plant, sign))
+        wc, pm, required, target, sign = _targets_step(plant, targets, steps)
         n_add, line = _integrator_step(plant, required)
         steps.append(line)
         c_zeros: list[complex] = []
@@ -571,17 +564,25 @@ def _lead_step(boost: float, label: str) -> None:
         )
 
 
+def _targets_step(plant: Rational, targets: Targets, steps: list[str]
+                  ) -> tuple[float, float, int, float, int]:
+    """The first steps of every hand design: validated targets (ωc rad/s, PM deg,
+    required integrators), the loop phase wanted at ωc (deg) and the gain's sign."""
+    wc, pm, required = _validate(plant, targets)
+    target = _target_phase_deg(plant, pm)
+    steps.append(
+        f"targets: crossover {_f(wc)} rad/s, phase margin {_f(pm)}°: the loop phase at "
+        f"ωc must be {_deg(target)} and |L(jωc)| = 1"
+    )
+    sign = _gain_sign(plant)
+    steps.append(_sign_step(plant, sign))
+    return wc, pm, required, target, sign
+
+
 def _hand(plant: Rational, targets: Targets, name: str, build) -> HandDesign:
     steps: list[str] = []
     try:
-        wc, pm, required = _validate(plant, targets)
-        target = _target_phase_deg(plant, pm)
-        steps.append(
-            f"targets: crossover {_f(wc)} rad/s, phase margin {_f(pm)}°: the loop phase at "
-            f"ωc must be {_deg(target)} and |L(jωc)| = 1"
-        )
-        sign = _gain_sign(plant)
-        steps.append(_sign_step(plant, sign))
+        wc, pm, required, target, sign = _targets_step(plant, targets, steps)
         structure, zeros, poles = build(plant, wc, pm, required, target, sign, steps)
         comp = _set_gain(plant, sign, zeros, poles, wc)
         steps.append(f"gain: |C·P(jωc)| = 1 gives k = {_f(comp.gain)}")

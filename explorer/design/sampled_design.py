@@ -231,7 +231,6 @@ def sampled_record(study: Any, comp: Rational, metrics: dict[str, Any]) -> dict[
                 2.0 * ts if ts else 0.0)
         st = sampled_step_metrics(study.plant, dcb, tc, fv, np.array([h]), per_sample=8)
         if st["capped"][0]:
-
             cm = step_metrics(design_plant(study.plant, T, tc), comp, stable=True)
             st = {k: np.array([np.nan if cm.get(k) is None else cm[k]]) for k in STEP_KEYS}
             note = (f"step figures from the continuous loop with the delay T/2 + τc: the "

@@ -61,7 +61,12 @@ import numpy as np
 
 from explorer.core.loop import LoopBatch, Rational
 from explorer.evaluation.family_time import box_time_worst
-from explorer.frequency.metrics import design_grid, frequency_metrics, frequency_metrics_batch
+from explorer.frequency.metrics import (
+    design_grid,
+    frequency_metrics,
+    frequency_metrics_batch,
+    lower_per_row,
+)
 from explorer.model.family_members import (
     Member,
     factor_ranges,
@@ -269,13 +274,7 @@ def _refined_min(rows: _Rows, grid: np.ndarray, dist: np.ndarray, fn) -> tuple:
         c, e = c_new, e_new
     xs = np.where(fc < fe, c, e)
     fs = np.minimum(fc, fe)
-    order = np.lexsort((fs, ri))
-    rs, fs, xs = ri[order], fs[order], xs[order]
-    first = np.r_[True, rs[1:] != rs[:-1]]
-    rs, fs, xs = rs[first], fs[first], xs[first]
-    better = fs < best[rs]
-    best[rs[better]] = fs[better]
-    best_w[rs[better]] = np.exp(xs[better])
+    lower_per_row(ri, fs, xs, best, best_w)
     return best, best_w
 
 
@@ -624,7 +623,6 @@ def worst_of_design(plant: Rational, v: Variation, comp: Rational,
         for k in tkeys:
             tw[k] = None if any(x is None for x in vals[k]) else max(vals[k])  # type: ignore
         if box:
-
             refinement = box_time_worst(plant, v, comp, extra=tms)
             for k in tkeys:
                 r = refinement.values[k]

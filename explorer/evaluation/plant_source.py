@@ -65,7 +65,6 @@ def frequency_batch(plant: Rational, measured: MeasuredPlant | None, gain: np.nd
     ``floor_<key>`` for the lower-bound margins: what a NaN value is known to be at
     least (+inf: infinite; -inf: not established)."""
     if measured is None:
-
         return frequency_metrics_batch(plant, gain, zeros, poles)
 
     g = np.asarray(gain, float).ravel()

@@ -16,6 +16,7 @@ import numpy as np
 from explorer.core import metric_registry as _registry
 from explorer.core.loop import Rational, hidden_unstable_mask
 from explorer.design.sampled_design import sampled_record
+from explorer.evaluation.design_record import DesignRecord
 from explorer.evaluation.family import worst_of_design
 from explorer.evaluation.plant_source import design_figures
 from explorer.frequency.metrics import frequency_metrics
@@ -197,25 +198,12 @@ def design_record(
     pareto: bool | None = None,
     reasons: list[str] | None = None,
     extra: dict[str, Any] | None = None,
-) -> dict[str, Any]:
+) -> DesignRecord:
     """The docs/interface.md DESIGN object (plus ``misses``: the reasons, and extras)."""
-    rec: dict[str, Any] = {
-        "name": name,
-        "origin": origin,
-        "structure": structure,
-        "order": comp.order,
-        "compensator": comp.to_dict(),
-        "meets_targets": meets,
-        "pareto": pareto,
-        "metrics": metrics,
-    }
-    # the margins and peaks of an unstable loop are not robustness margins
-    rec["margins_valid"] = bool(metrics.get("closed_loop_stable"))
-    if reasons is not None:
-        rec["misses"] = reasons
-    if extra:
-        rec.update(extra)
-    return rec
+    return DesignRecord(name=name, origin=origin, structure=structure, compensator=comp,
+                        meets_targets=meets, pareto=pareto, metrics=metrics,
+                        misses=None if reasons is None else tuple(reasons),
+                        extras=dict(extra or {}))
 
 
 def evaluated_record(
@@ -226,7 +214,7 @@ def evaluated_record(
     origin: str,
     structure: str,
     extra: dict[str, Any] | None = None,
-) -> dict[str, Any]:
+) -> DesignRecord:
     """A DESIGN record of ``comp`` on the study's plant with every metric
     (:func:`design_metrics`) and the target check (:func:`meets_targets`); raises
     what ``design_metrics`` raises. A measured plant (``study.measured``) is read through
@@ -235,7 +223,6 @@ def evaluated_record(
     unknown: dict[str, str] = {}
     n_plant = study.plant.n_integrators
     if study.measured is not None:
-
         metrics, data_extra, unknown = design_figures(study.measured, comp, study.limits)
         metrics = _with_compensator_figures(study.plant, comp, metrics)
         extra = {**data_extra, **(extra or {})}
@@ -244,7 +231,6 @@ def evaluated_record(
         metrics = design_metrics(study.plant, comp)
     fam: dict[str, Any] = {}
     if study.variation is not None:
-
         fam = worst_of_design(study.plant, study.variation, comp, metrics)
     judged = metrics
     if getattr(study.search, "sample_time_s", None) is not None:
@@ -283,7 +269,7 @@ def _with_compensator_figures(plant: Rational, comp: Rational,
     return {key: out.get(key) for key in (*METRIC_KEYS, *sorted(set(out) - set(METRIC_KEYS)))}
 
 
-def given_designs(study: Study) -> list[dict[str, Any]]:
+def given_designs(study: Study) -> list[DesignRecord]:
     """The study's ``[[compensator]]`` entries as DESIGN records (origin "given"),
     each with every metric and the target check."""
     return [

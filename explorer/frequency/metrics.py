@@ -39,6 +39,7 @@ from explorer.core.errors import DesignError
 from explorer.core.loop import ROOT_TOL, LoopBatch, Rational
 
 __all__ = [
+    "lower_per_row",
     "FREQUENCY_KEYS",
     "POINTS_PER_DECADE",
     "loop_metrics_batch",
@@ -730,13 +731,7 @@ def _peak(
     ci = np.concatenate([ci, er])
     if ci.size:
         xr, fr = _peak_refine(loops, ci, x[ci, lo_k], x[ci, hi_k], x0, inverse)
-        order = np.lexsort((fr, ci))
-        cs, fs, xs = ci[order], fr[order], xr[order]
-        first = np.r_[True, cs[1:] != cs[:-1]]
-        cs, fs, xs = cs[first], fs[first], xs[first]
-        better = fs < best[cs]
-        best[cs[better]] = fs[better]
-        best_w[cs[better]] = np.exp(xs[better])
+        lower_per_row(ci, fr, xr, best, best_w)
     with np.errstate(divide="ignore"):
         peak = 1.0 / np.sqrt(best)
     return peak, best_w
@@ -847,3 +842,17 @@ def frequency_metrics(plant: Rational, comp: Rational) -> dict[str, Any]:
             out[key] = _scalar(arr[0])
     # ω at a peak may be a limit (0 or ∞): keep 0.0, null for ∞
     return out
+
+
+def lower_per_row(rows: np.ndarray, values: np.ndarray, ln_w: np.ndarray,
+                  best: np.ndarray, best_w: np.ndarray) -> None:
+    """For each row, the smallest of ``values`` (candidates of that row at ln ω
+    ``ln_w``) replaces ``best[row]`` (and ω replaces ``best_w[row]``) when lower; in
+    place. Ties between candidates go to the first in (row, value) order."""
+    order = np.lexsort((values, rows))
+    rs, fs, xs = rows[order], values[order], ln_w[order]
+    first = np.r_[True, rs[1:] != rs[:-1]]
+    rs, fs, xs = rs[first], fs[first], xs[first]
+    better = fs < best[rs]
+    best[rs[better]] = fs[better]
+    best_w[rs[better]] = np.exp(xs[better])

@@ -39,6 +39,8 @@ from explorer.core.errors import DesignError
 from explorer.core.loop import Rational
 
 __all__ = [
+    "bracketing_grid",
+    "split_delay",
     "golden_max",
     "phi_gamma",
     "METHODS",
@@ -610,16 +612,25 @@ def phi_gamma(A: np.ndarray, B: np.ndarray, t: float) -> tuple[np.ndarray, np.nd
     return E[:n, :n], E[:n, n:]
 
 
-def sample_plant(plant: Rational, sample_time_s: float, extra_delay_s: float = 0.0) -> SampledPlant:
-    """The exact ZOH discretization of ``plant`` (its delay plus ``extra_delay_s``)."""
+def split_delay(tau_s: float, sample_time_s: float) -> tuple[int, float]:
+    """A delay as d whole sample periods plus a fraction ε in [0, T): τ = d·T + ε, with
+    ε within 1e-12·T of 0 or T rounded to the whole period (an exact multiple stays
+    exact despite rounding in τ/T)."""
     T = float(sample_time_s)
-    tau = plant.delay_s + float(extra_delay_s)
-    d = int(math.floor(tau / T + 1e-12))
-    eps = tau - d * T
+    d = int(math.floor(tau_s / T + 1e-12))
+    eps = tau_s - d * T
     if eps < 1e-12 * T:
         eps = 0.0
     if eps >= T * (1 - 1e-12):
         d, eps = d + 1, 0.0
+    return d, eps
+
+
+def sample_plant(plant: Rational, sample_time_s: float, extra_delay_s: float = 0.0) -> SampledPlant:
+    """The exact ZOH discretization of ``plant`` (its delay plus ``extra_delay_s``)."""
+    T = float(sample_time_s)
+    tau = plant.delay_s + float(extra_delay_s)
+    d, eps = split_delay(tau, T)
     A, B, C, D = realize(plant.gain, plant.zeros, plant.poles)
     phi, g_full = phi_gamma(A, B, T - eps)
     if eps > 0:
@@ -739,18 +750,27 @@ def _grid(sp: SampledPlant, comp: DiscreteCompensator, cont_loop: Rational,
     mags = np.abs(roots[roots != 0])
     scales = [wn, *[x for x in extra_rad_s if x and x > 0], *mags.tolist()]
     lo = min(scales) / 300.0
-    lo = min(lo, wn * 1e-4)
-    n_log = int(math.ceil(math.log10(wn / lo) * 120)) + 2
-    u = np.linspace(0.0, 1.0, n_log)
-    log_part = lo * np.exp(np.log(wn / lo) * u)
-    # dense near π/T as well (1 − 10^-k)
-    top = wn * (1.0 - np.logspace(-9, -1, 40))
-    lin = np.linspace(0.0, wn, max(400, 16 * (sp.d + 2)) + 1)[1:]
-    parts = [log_part, top, lin]
     droots = np.concatenate([
         np.array(comp.zeros, complex), np.array(comp.poles, complex),
         np.exp(roots * T),
     ])
+    return bracketing_grid(T, lo, sp.d, droots)
+
+
+def bracketing_grid(sample_time_s: float, lo_rad_s: float, delay_samples: int,
+                    droots: np.ndarray) -> np.ndarray:
+    """The bracketing grid in (0, π/T] (rad/s): a log grid from ``lo_rad_s`` (lowered
+    to 1e-4·π/T at most), points dense near π/T (1 − 10^-k), linear points for a delay
+    of ``delay_samples`` periods, and points clustered on every discrete root
+    ``droots`` of magnitude above 0.3 (near the unit circle, where |L| and ∠L turn
+    fast)."""
+    T = sample_time_s
+    wn = math.pi / T
+    lo = min(lo_rad_s, wn * 1e-4)
+    n_log = int(math.ceil(math.log10(wn / lo) * 120)) + 2
+    parts = [lo * np.exp(np.log(wn / lo) * np.linspace(0.0, 1.0, n_log)),
+             wn * (1.0 - np.logspace(-9, -1, 40)),
+             np.linspace(0.0, wn, max(400, 16 * (delay_samples + 2)) + 1)[1:]]
     droots = droots[np.abs(droots) > 0.3]
     if droots.size:
         theta = np.abs(np.angle(droots)) / T
@@ -759,8 +779,7 @@ def _grid(sp: SampledPlant, comp: DiscreteCompensator, cont_loop: Rational,
         parts.append((theta[:, None] + width[:, None] * offs[None, :]).ravel())
     g = np.concatenate(parts)
     g = g[(g > 0) & (g < wn)]
-    g = np.unique(np.concatenate([g, [wn]]))
-    return g
+    return np.unique(np.concatenate([g, [wn]]))
 
 
 def _bisect(f: Any, a: np.ndarray, b: np.ndarray, fa: np.ndarray) -> np.ndarray:

@@ -27,6 +27,7 @@ from explorer.frequency.sampled import (
     MAX_EIG_STATES,
     STABILITY_TOL,
     SampledPlant,
+    bracketing_grid,
     contour_angles,
     golden_max,
 )
@@ -180,8 +181,8 @@ def closed_loop_parts(sp: SampledPlant, dc: DiscreteBatch) -> dict[str, Any]:
 
 def _grid(sp: SampledPlant, dc: DiscreteBatch, cont: LoopBatch,
           extra_rad_s: np.ndarray) -> np.ndarray:
-    """The shared bracketing grid in (0, π/T] (explorer.frequency.sampled._grid over the union of
-    the batch's roots)."""
+    """The shared bracketing grid in (0, π/T]
+    (explorer.frequency.sampled.bracketing_grid over the union of the batch's roots)."""
     T = sp.sample_time_s
     wn = math.pi / T
     roots = np.concatenate([cont.zeros.ravel(), cont.poles.ravel()])
@@ -189,24 +190,13 @@ def _grid(sp: SampledPlant, dc: DiscreteBatch, cont: LoopBatch,
     mags = np.abs(roots[roots != 0])
     ex = extra_rad_s[np.isfinite(extra_rad_s) & (extra_rad_s > 0)]
     lo = min(wn, *(ex.tolist() or [wn]), *(mags.tolist() or [wn])) / 300.0
-    lo = min(lo, wn * 1e-4)
-    n_log = int(math.ceil(math.log10(wn / lo) * 120)) + 2
-    parts = [lo * np.exp(np.log(wn / lo) * np.linspace(0.0, 1.0, n_log)),
-             wn * (1.0 - np.logspace(-9, -1, 40)),
-             np.linspace(0.0, wn, max(400, 16 * (sp.d + 2)) + 1)[1:]]
     droots = np.concatenate([dc.zeros.ravel(), dc.poles.ravel(),
                              np.exp(np.unique(roots) * T)])
     droots = droots[np.isfinite(droots)]
     droots = droots[np.abs(droots) > 0.3]
     if droots.size:
-        droots = np.unique(np.round(droots, 12))
-        theta = np.abs(np.angle(droots)) / T
-        width = np.maximum(np.abs(np.log(np.abs(droots))) / T, wn * 1e-9)
-        offs = np.array([-16, -8, -4, -2, -1, -0.5, -0.2, 0, 0.2, 0.5, 1, 2, 4, 8, 16.0])
-        parts.append((theta[:, None] + width[:, None] * offs[None, :]).ravel())
-    g = np.concatenate(parts)
-    g = g[(g > 0) & (g < wn)]
-    return np.unique(np.concatenate([g, [wn]]))
+        droots = np.unique(np.round(droots, 12))  # many designs share roots
+    return bracketing_grid(T, lo, sp.d, droots)
 
 
 #: The modal form of H(z) is used when the eigenvector matrix of Φ is conditioned better

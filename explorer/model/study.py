@@ -501,15 +501,19 @@ def _check_sampling(search: SearchOptions, plant: Rational, measured: Any,
                                                    "supported")
 
 
+def _check_table_array(value: Any, key: str, most: int) -> None:
+    """``[[key]]`` tables: a list of at most ``most`` entries."""
+    if not isinstance(value, list):
+        raise StudyFileError(key, f"must be written as [[{key}]] tables, got "
+                                  f"{_describe(value)}")
+    if len(value) > most:
+        raise StudyFileError(key, f"has {len(value)} entries; at most {most} are allowed")
+
+
 def _compensators(value: Any) -> tuple[NamedCompensator, ...]:
     if value is None:
         return ()
-    if not isinstance(value, list):
-        raise StudyFileError("compensator", "must be written as [[compensator]] tables, "
-                                            f"got {_describe(value)}")
-    if len(value) > MAX_COMPENSATORS:
-        raise StudyFileError("compensator", f"has {len(value)} entries; at most "
-                                            f"{MAX_COMPENSATORS} are allowed")
+    _check_table_array(value, "compensator", MAX_COMPENSATORS)
     out: list[NamedCompensator] = []
     seen: dict[str, int] = {}
     for i, entry in enumerate(value):
@@ -594,12 +598,7 @@ def _variation(tab: Mapping[str, Any], plant: Rational) -> Variation:
                                   r / f)
     members: list[Rational] = []
     raw = tab.get("member", [])
-    if not isinstance(raw, list):
-        raise StudyFileError("variation.member", "must be written as [[variation.member]] "
-                                                 f"tables, got {_describe(raw)}")
-    if len(raw) > MAX_MEMBERS:
-        raise StudyFileError("variation.member", f"has {len(raw)} entries; at most "
-                                                 f"{MAX_MEMBERS} are allowed")
+    _check_table_array(raw, "variation.member", MAX_MEMBERS)
 
     for i, entry in enumerate(raw):
         where = f"variation.member[{i}]"

@@ -25,7 +25,7 @@ from __future__ import annotations
 import json
 import math
 import warnings
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal, cast
@@ -106,7 +106,7 @@ _W = 400  # width of one chart (px)
 # ------------------------------------------------------------------------------------
 # designs: parsing, styles, selection
 # ------------------------------------------------------------------------------------
-def _comp(d: dict[str, Any]) -> Rational:
+def _comp(d: Mapping[str, Any]) -> Rational:
     try:
         c = d["compensator"]
         return Rational(
@@ -127,7 +127,8 @@ def _num(v: Any) -> float:
 
 def _check_designs(designs: Sequence[Any]) -> None:
     for d in designs:
-        if not isinstance(d, dict) or "name" not in d or not isinstance(d.get("metrics"), dict):
+        if (not isinstance(d, Mapping) or "name" not in d
+                or not isinstance(d.get("metrics"), Mapping)):
             raise LoopscoutError("every design needs at least 'name' and 'metrics'")
 
 
@@ -140,7 +141,7 @@ class DesignStyle:
     shape: str
 
 
-def design_styles(designs: Sequence[dict[str, Any]]) -> dict[str, DesignStyle]:
+def design_styles(designs: Sequence[Mapping[str, Any]]) -> dict[str, DesignStyle]:
     """One distinct style per design name, in the given (rank) order: colour by
     position, dash by origin (hand-style designs dashed), and the next dash whenever a
     (colour, dash) pair is already taken — no two designs share a look."""
@@ -165,7 +166,7 @@ def design_styles(designs: Sequence[dict[str, Any]]) -> dict[str, DesignStyle]:
 
 
 def recommended_name(
-    designs: Sequence[dict[str, Any]], answer: dict[str, Any] | None = None
+    designs: Sequence[Mapping[str, Any]], answer: dict[str, Any] | None = None
 ) -> str | None:
     """The recommended design: ``answer["design"]`` when an answer is given (None
     stays None), else the lowest-order design meeting every target, lowest Ms first
@@ -186,7 +187,7 @@ def recommended_name(
 
 
 def design_frame(
-    designs: Sequence[dict[str, Any]], recommended: str | None = None
+    designs: Sequence[Mapping[str, Any]], recommended: str | None = None
 ) -> pd.DataFrame:
     """One row per design: name, origin, structure, order, meets, pareto, hand, key metrics."""
     _check_designs(designs)
@@ -218,8 +219,8 @@ def design_frame(
 
 
 def response_designs(
-    designs: Sequence[dict[str, Any]], recommended: str | None = None
-) -> list[dict[str, Any]]:
+    designs: Sequence[Mapping[str, Any]], recommended: str | None = None
+) -> list[Mapping[str, Any]]:
     """At most MAX_RESPONSE_DESIGNS, in the given order: the recommended design, the
     Pareto and hand designs, then (when fewer than three of those) the rest."""
     first = [
@@ -238,7 +239,7 @@ def response_designs(
 # ------------------------------------------------------------------------------------
 # tidy frames
 # ------------------------------------------------------------------------------------
-def _grid(study: Study, designs: Sequence[dict[str, Any]]) -> np.ndarray:
+def _grid(study: Study, designs: Sequence[Mapping[str, Any]]) -> np.ndarray:
     wcs = [_num(d["metrics"].get("crossover_rad_s")) for d in designs]
     tc = study.targets.crossover_rad_s
     if isinstance(tc, tuple):
@@ -281,7 +282,7 @@ def _family_plants(study: Study) -> list[tuple[str, Rational]]:
     return out
 
 
-def family_frame(study: Study, design: dict[str, Any]) -> pd.DataFrame:
+def family_frame(study: Study, design: Mapping[str, Any]) -> pd.DataFrame:
     """Bands over the plant family for one design, per ω: ``mag_lo/mag_hi`` (dB) and
     ``phase_lo/phase_hi`` (deg) of the loop over the sampled members (the nominal
     plant, every gain and delay end at five time scales, the listed members: the gain
@@ -331,7 +332,7 @@ def family_frame(study: Study, design: dict[str, Any]) -> pd.DataFrame:
         })
 
 
-def family_step_frame(study: Study, design: dict[str, Any], n_points: int = 400
+def family_step_frame(study: Study, design: Mapping[str, Any], n_points: int = 400
                       ) -> pd.DataFrame:
     """Long frame: member, t_s, y (unit reference step) of the design on the nominal
     plant, every corner of the box, the listed members and its worst-Ms member
@@ -435,7 +436,7 @@ def family_charts(fb: pd.DataFrame, st: pd.DataFrame, name: str) -> tuple[Any, A
     return bands, steps
 
 
-def frequency_frame(study: Study, designs: Sequence[dict[str, Any]]) -> pd.DataFrame:
+def frequency_frame(study: Study, designs: Sequence[Mapping[str, Any]]) -> pd.DataFrame:
     """Long frame: name, omega_rad_s, mag_db, phase_deg, S_db, T_db per design and frequency."""
     w = _grid(study, designs)
     parts = []
@@ -462,7 +463,7 @@ def frequency_frame(study: Study, designs: Sequence[dict[str, Any]]) -> pd.DataF
     )
 
 
-def plant_frame(study: Study, designs: Sequence[dict[str, Any]] = ()) -> pd.DataFrame:
+def plant_frame(study: Study, designs: Sequence[Mapping[str, Any]] = ()) -> pd.DataFrame:
     """The plant's own frequency response: omega_rad_s, mag_db, phase_deg (delay
     included, continuous phase), on the same grid as the loops."""
     w = _grid(study, designs)
@@ -485,7 +486,7 @@ def _last_outside(t: np.ndarray, y: np.ndarray, centre: float, half: float) -> f
 
 def step_frame(
     study: Study,
-    designs: Sequence[dict[str, Any]],
+    designs: Sequence[Mapping[str, Any]],
     n_points: int = 400,
     focus: Sequence[str] | None = None,
 ) -> pd.DataFrame:
@@ -992,10 +993,7 @@ def nichols_chart(
     """Gain-phase chart: loops, labelled |T| contours and the Ms locus."""
     styles = styles or design_styles([{"name": n} for n in dict.fromkeys(fr["name"])])
     sub = fr[(fr["mag_db"] > _GP_MAG[0]) & (fr["mag_db"] < _GP_MAG[1])]
-    x = alt.X("phase_deg:Q", title="phase of L (deg)",
-              scale=alt.Scale(domain=list(_GP_PHASE), nice=False),
-              axis=alt.Axis(values=list(range(-360, 1, 45))))
-    y = alt.Y("mag_db:Q", title="|L| (dB)", scale=alt.Scale(domain=list(_GP_MAG)))
+    x, y = _gain_phase_axes()
     cf = m_contour_frame()
     cont = (
         alt.Chart(cf)
@@ -1202,10 +1200,7 @@ def sampled_nichols_chart(
     design of ``sf`` (explorer.outputs.report_sampled.sampled_loop_frame), on the |T| contours
     and the Ms locus of the gain-phase chart."""
     sub = sf[(sf["mag_db"] > _GP_MAG[0]) & (sf["mag_db"] < _GP_MAG[1])]
-    x = alt.X("phase_deg:Q", title="phase of L (deg)",
-              scale=alt.Scale(domain=list(_GP_PHASE), nice=False),
-              axis=alt.Axis(values=list(range(-360, 1, 45))))
-    y = alt.Y("mag_db:Q", title="|L| (dB)", scale=alt.Scale(domain=list(_GP_MAG)))
+    x, y = _gain_phase_axes()
     cf = m_contour_frame()
     cont = alt.Chart(cf).mark_line(color="#9aa7a3", strokeWidth=0.8, clip=True).encode(
         x=x, y=y, detail="curve:N", order="k:Q", tooltip=["label:N"])
@@ -1293,7 +1288,7 @@ def _ms(study: Study) -> float:
 
 
 def _charts(
-    study: Study, designs: Sequence[dict[str, Any]], recommended: str | None
+    study: Study, designs: Sequence[Mapping[str, Any]], recommended: str | None
 ) -> tuple[dict[str, Any], list[str]]:
     """The charts that have something to show, by name, and a note for each left out."""
     _check_designs(designs)
@@ -1375,8 +1370,8 @@ def _charts(
     return out, notes
 
 
-def _sampled_charts(study: Study, designs: Sequence[dict[str, Any]],
-                    sel: Sequence[dict[str, Any]], recommended: str | None,
+def _sampled_charts(study: Study, designs: Sequence[Mapping[str, Any]],
+                    sel: Sequence[Mapping[str, Any]], recommended: str | None,
                     styles: dict[str, DesignStyle], pick: alt.Parameter,
                     out: dict[str, Any], notes: list[str]) -> None:
     """With a sample time (the study's ``[search] sample_time``, or the designs'):
@@ -1407,8 +1402,8 @@ def _sampled_charts(study: Study, designs: Sequence[dict[str, Any]],
                  "continuous charts above show the designs C(s)·P(s).")
 
 
-def _family_design(study: Study, designs: Sequence[dict[str, Any]],
-                   recommended: str | None) -> dict[str, Any] | None:
+def _family_design(study: Study, designs: Sequence[Mapping[str, Any]],
+                   recommended: str | None) -> Mapping[str, Any] | None:
     """The design whose family bands are drawn: the recommended one, else the first
     stable one; None without a plant family."""
     if getattr(study, "variation", None) is None:
@@ -1421,7 +1416,7 @@ def _family_design(study: Study, designs: Sequence[dict[str, Any]],
 
 
 def chart_specs(
-    study: Study, designs: Sequence[dict[str, Any]], answer: dict[str, Any] | None = None
+    study: Study, designs: Sequence[Mapping[str, Any]], answer: dict[str, Any] | None = None
 ) -> dict[str, alt.TopLevelMixin]:
     """Every chart that has something to show, by name, each standalone and sharing
     the ``pick`` parameter definition: ``plant`` always; ``pareto_hf``/``pareto_iae``
@@ -1465,7 +1460,7 @@ def _drop_legends(spec: Any) -> Any:
 
 
 def dashboard(
-    study: Study, designs: Sequence[dict[str, Any]], answer: dict[str, Any] | None = None
+    study: Study, designs: Sequence[Mapping[str, Any]], answer: dict[str, Any] | None = None
 ) -> alt.TopLevelMixin:
     """All charts in one concatenated, themed chart with one shared ``pick`` selection."""
     charts = list(_charts(study, designs, recommended_name(designs, answer))[0].values())
@@ -1478,7 +1473,7 @@ def dashboard(
 
 def export_charts(
     study: Study,
-    designs: Sequence[dict[str, Any]],
+    designs: Sequence[Mapping[str, Any]],
     out_dir: Path,
     formats: Sequence[str] = ("png", "svg"),
     answer: dict[str, Any] | None = None,
@@ -1512,7 +1507,7 @@ def export_charts(
 # ------------------------------------------------------------------------------------
 # HTML
 # ------------------------------------------------------------------------------------
-def lowest_order_meeting(designs: Sequence[dict[str, Any]]) -> int | None:
+def lowest_order_meeting(designs: Sequence[Mapping[str, Any]]) -> int | None:
     """Smallest compensator order among designs with meets_targets true (None: none)."""
     orders = [int(d.get("order", 0)) for d in designs if d.get("meets_targets")]
     return min(orders) if orders else None
@@ -1520,7 +1515,7 @@ def lowest_order_meeting(designs: Sequence[dict[str, Any]]) -> int | None:
 
 def write_report(
     study: Study,
-    designs: Sequence[dict[str, Any]],
+    designs: Sequence[Mapping[str, Any]],
     path: Path,
     *,
     answer: dict[str, Any] | None = None,
@@ -1573,3 +1568,12 @@ def write_report(
 def _vl_version() -> str:
     """vl-convert's name of the Vega-Lite version Altair writes: 'v6.4.1' → 'v6_4'."""
     return "_".join(alt.SCHEMA_VERSION.split(".")[:2])
+
+
+def _gain_phase_axes() -> tuple[alt.X, alt.Y]:
+    """The gain-phase chart's axes: phase of L (deg) every 45°, |L| (dB)."""
+    x = alt.X("phase_deg:Q", title="phase of L (deg)",
+              scale=alt.Scale(domain=list(_GP_PHASE), nice=False),
+              axis=alt.Axis(values=list(range(-360, 1, 45))))
+    y = alt.Y("mag_db:Q", title="|L| (dB)", scale=alt.Scale(domain=list(_GP_MAG)))
+    return x, y

@@ -14,7 +14,7 @@ import html
 import json
 import math
 import re
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -147,7 +147,7 @@ def plant_factored(study: Study) -> str:
     return txt
 
 
-def _data_assumptions(study: Study, designs: Sequence[dict[str, Any]]) -> str:
+def _data_assumptions(study: Study, designs: Sequence[Mapping[str, Any]]) -> str:
     """A measured plant's assumptions as list items (docs/measured-data.md): where the
     figures come from, and what the data cannot show (from the first design that
     lists them; the Nyquist count, per design, is left out). Empty for a model."""
@@ -224,14 +224,14 @@ def _c(r: complex) -> str:
 class _Row:
     requirement: str
     target: str
-    check: Callable[[dict[str, Any]], tuple[str, bool | None]]
+    check: Callable[[Mapping[str, Any]], tuple[str, bool | None]]
 
 
-def _val(d: dict[str, Any], key: str, *, worst: bool = False) -> Any:
-    if worst and isinstance(d.get("worst"), dict) and key in d["worst"]:
+def _val(d: Mapping[str, Any], key: str, *, worst: bool = False) -> Any:
+    if worst and isinstance(d.get("worst"), Mapping) and key in d["worst"]:
         return d["worst"][key]
     # a sampled controller is judged on its sampled loop ([search] sample_time)
-    if isinstance(d.get("sampled_metrics"), dict) and key in d["sampled_metrics"]:
+    if isinstance(d.get("sampled_metrics"), Mapping) and key in d["sampled_metrics"]:
         return d["sampled_metrics"][key]
     return d.get("metrics", {}).get(key)
 
@@ -248,7 +248,7 @@ def _g(v: Any, digits: int = 4) -> str:
     return f"{f:.{digits}g}" if math.isfinite(f) else "∞"
 
 
-def _comp_integrators(d: dict[str, Any]) -> int:
+def _comp_integrators(d: Mapping[str, Any]) -> int:
     c = d.get("compensator", {})
     return sum(1 for p in c.get("poles", []) if abs(compensator_root(p)) == 0) - sum(
         1 for z in c.get("zeros", []) if abs(compensator_root(z)) == 0
@@ -262,15 +262,15 @@ def requirement_rows(study: Study) -> list[_Row]:
     rows: list[_Row] = []
 
     def upper(key: str, bound: float, tol_abs: float = 0.0, tol_rel: float = 0.0,
-              worst: bool = False) -> Callable[[dict[str, Any]], tuple[str, bool | None]]:
-        def f(d: dict[str, Any]) -> tuple[str, bool | None]:
+              worst: bool = False) -> Callable[[Mapping[str, Any]], tuple[str, bool | None]]:
+        def f(d: Mapping[str, Any]) -> tuple[str, bool | None]:
             v = _val(d, key, worst=worst)
             return _g(v), (v is not None and float(v) <= bound * (1 + tol_rel) + tol_abs)
         return f
 
     def lower(key: str, bound: float, tol_abs: float = 0.0, worst: bool = False,
-              none_holds: bool = True) -> Callable[[dict[str, Any]], tuple[str, bool | None]]:
-        def f(d: dict[str, Any]) -> tuple[str, bool | None]:
+              none_holds: bool = True) -> Callable[[Mapping[str, Any]], tuple[str, bool | None]]:
+        def f(d: Mapping[str, Any]) -> tuple[str, bool | None]:
             v = _val(d, key, worst=worst)
             if v is None:
                 return ("none (∞)" if none_holds else "none"), none_holds
@@ -302,7 +302,7 @@ def requirement_rows(study: Study) -> list[_Row]:
     if isinstance(wc, (int, float)):
         w0 = float(wc)
 
-        def xo(d: dict[str, Any]) -> tuple[str, bool | None]:
+        def xo(d: Mapping[str, Any]) -> tuple[str, bool | None]:
             xs = [float(x) for x in (_val(d, "crossovers_rad_s") or [])]
             hit = [x for x in xs if abs(x / w0 - 1.0) <= tol]
             shown = hit[0] if hit else _val(d, "crossover_rad_s")
@@ -314,7 +314,7 @@ def requirement_rows(study: Study) -> list[_Row]:
     elif isinstance(wc, tuple):
         lo, hi = float(wc[0]), float(wc[1])
 
-        def xr(d: dict[str, Any]) -> tuple[str, bool | None]:
+        def xr(d: Mapping[str, Any]) -> tuple[str, bool | None]:
             c = _val(d, "crossover_rad_s")
             return _g(c), c is not None and lo <= float(c) <= hi
 
@@ -352,7 +352,7 @@ def requirement_rows(study: Study) -> list[_Row]:
     return rows
 
 
-def _requirements_html(study: Study, designs: Sequence[dict[str, Any]], rec: str | None) -> str:
+def _requirements_html(study: Study, designs: Sequence[Mapping[str, Any]], rec: str | None) -> str:
     rows = requirement_rows(study)
     heads = "".join(
         f"<th class='{'rec' if str(d['name']) == rec else ''}'>"
@@ -375,7 +375,7 @@ def _requirements_html(study: Study, designs: Sequence[dict[str, Any]], rec: str
     derived = "".join(f"<li>{html.escape(s)}</li>" for s in study.targets.derived_from)
     how = (f"<details><summary>How the loop targets were derived</summary><ul class='sub'>"
            f"{derived}</ul></details>") if derived else ""
-    worst = any(isinstance(d.get("worst"), dict) for d in designs)
+    worst = any(isinstance(d.get("worst"), Mapping) for d in designs)
     worst_txt = (
         "<p class='sub'>Limits and stability are checked at the worst plant of the "
         "family ([variation]); the other rows at the nominal plant.</p>" if worst else ""
@@ -442,7 +442,7 @@ def _fmt(v: Any, fmt: str) -> str:
         return html.escape(str(v))
 
 
-def _figures(d: dict[str, Any], ref: dict[str, Any] | None = None) -> str:
+def _figures(d: Mapping[str, Any], ref: Mapping[str, Any] | None = None) -> str:
     rows = []
     for key, label, fmt in _KEY_FIGS:
         v = d["metrics"].get(key)
@@ -453,13 +453,13 @@ def _figures(d: dict[str, Any], ref: dict[str, Any] | None = None) -> str:
                 diff = f" <span class='diff'>({dv:+.3g})</span>"
         rows.append(f"<tr><th>{label}</th><td>{_fmt(v, fmt)}{diff}</td></tr>")
     sm = d.get("sampled_metrics")
-    if isinstance(sm, dict):  # the loop that runs ([search] sample_time)
+    if isinstance(sm, Mapping):  # the loop that runs ([search] sample_time)
         for key, label, fmt in _KEY_FIGS[:4] + _KEY_FIGS[6:8]:
             rows.append(f"<tr><th>sampled {label}</th><td>{_fmt(sm.get(key), fmt)}</td></tr>")
     return f"<table class='figs'>{''.join(rows)}</table>"
 
 
-def _design_head(d: dict[str, Any]) -> str:
+def _design_head(d: Mapping[str, Any]) -> str:
     return (
         f"<div class='sub'>{html.escape(str(d.get('origin', '')))} · "
         f"{html.escape(str(d.get('structure', '')))} · order {int(d.get('order', 0))}</div>"
@@ -467,7 +467,7 @@ def _design_head(d: dict[str, Any]) -> str:
     )
 
 
-def _misses(d: dict[str, Any]) -> str:
+def _misses(d: Mapping[str, Any]) -> str:
     why = d.get("misses") or []
     if not why:
         return "" if d.get("meets_targets") else "<p class='miss'>misses the targets</p>"
@@ -476,7 +476,7 @@ def _misses(d: dict[str, Any]) -> str:
 
 
 def _answer_html(
-    designs: Sequence[dict[str, Any]],
+    designs: Sequence[Mapping[str, Any]],
     answer: dict[str, Any] | None,
     summary: list[str] | None,
     rec: str | None,
@@ -567,7 +567,7 @@ def _cell(v: Any, fmt: str) -> str:
 
 
 def _ranked_html(
-    designs: Sequence[dict[str, Any]],
+    designs: Sequence[Mapping[str, Any]],
     rec: str | None,
     styles: dict[str, _Style],
     in_responses: set[str],
@@ -692,7 +692,7 @@ Promise.all(keys.map(function(k){
 
 def page(
     study: Study,
-    designs: Sequence[dict[str, Any]],
+    designs: Sequence[Mapping[str, Any]],
     *,
     specs: dict[str, Any],
     notes: Sequence[str],
@@ -714,7 +714,6 @@ def page(
                      "designs leave an offset under a constant load at the plant input")
     fold_txt = ""
     if study.plant.delay_s > 0:
-
         w_far = fold_threshold_rad_s(study.plant.delay_s)
         fold_txt = (
             f"; stable roots above {w_far:.3g} rad/s may be folded into the delay there "

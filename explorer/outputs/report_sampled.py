@@ -13,7 +13,7 @@ explorer.time_domain.sampled_step (exact at and between the samples).
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -31,7 +31,7 @@ __all__ = ["sample_time_of", "sampled_loop_frame", "sampled_step_frames", "N_SAM
 N_SAMPLED_FREQ = 400
 
 
-def sample_time_of(study: Any, designs: Sequence[dict[str, Any]]) -> tuple[float, float] | None:
+def sample_time_of(study: Any, designs: Sequence[Mapping[str, Any]]) -> tuple[float, float] | None:
     """(T, τc) of the report: the study's ``[search] sample_time`` and
     ``compute_delay``, else the ``sample_time_s`` the designs were explored with; None
     for a continuous study."""
@@ -44,14 +44,14 @@ def sample_time_of(study: Any, designs: Sequence[dict[str, Any]]) -> tuple[float
     return None
 
 
-def _comp(d: dict[str, Any]) -> Rational:
+def _comp(d: Mapping[str, Any]) -> Rational:
     c = d["compensator"]
     return Rational(gain=float(c["gain"]),
                     zeros=tuple(compensator_root(z) for z in c.get("zeros", [])),
                     poles=tuple(compensator_root(p) for p in c.get("poles", [])))
 
 
-def _discrete(d: dict[str, Any], T: float) -> DiscreteCompensator | None:
+def _discrete(d: Mapping[str, Any], T: float) -> DiscreteCompensator | None:
     """C(z) of a design (None when it cannot be sampled at T: improper, or its
     crossover at or above π/T)."""
     comp = _comp(d)
@@ -66,7 +66,7 @@ def _discrete(d: dict[str, Any], T: float) -> DiscreteCompensator | None:
         return None
 
 
-def sampled_loop_frame(study: Any, designs: Sequence[dict[str, Any]], T: float,
+def sampled_loop_frame(study: Any, designs: Sequence[Mapping[str, Any]], T: float,
                        tc: float) -> pd.DataFrame:
     """Long frame: name, loop ("continuous" C(s)·P(s) / "sampled" C(z)·H(z) with the
     hold and the computation delay), omega_rad_s, mag_db, phase_deg (continuous phase;
@@ -101,7 +101,7 @@ def sampled_loop_frame(study: Any, designs: Sequence[dict[str, Any]], T: float,
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=cols)
 
 
-def sampled_step_frames(study: Any, designs: Sequence[dict[str, Any]], T: float, tc: float,
+def sampled_step_frames(study: Any, designs: Sequence[Mapping[str, Any]], T: float, tc: float,
                         *, per_sample: int = 8) -> tuple[pd.DataFrame, pd.DataFrame]:
     """(y frame: name, t_s, y — the plant output of the unit reference step between
     samples too; u frame: name, t_s, u — the controller output u[k], held from t_k) of

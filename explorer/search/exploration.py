@@ -24,6 +24,7 @@ from explorer.core.json_text import json_text
 from explorer.core.loop import Rational, root_from_json
 from explorer.design.sampled_design import judged_metrics
 from explorer.design.structures import Structure, candidate_structures
+from explorer.evaluation.design_record import DesignRecord
 from explorer.evaluation.records import evaluated_record, given_designs
 from explorer.model.study import LIMIT_KEYS, MAX_SEARCH_ORDER, Study, load_study
 from explorer.outputs.report import write_report
@@ -51,7 +52,7 @@ class ExploreResult:
     """``designs``: interface DESIGN dicts; ``frame``: the ranked table (pandas);
     ``summary``: text lines, the answer first; ``obj``: the designs.json object."""
 
-    designs: list[dict[str, Any]]
+    designs: list[DesignRecord]
     frame: Any
     summary: list[str]
     obj: dict[str, Any] = field(repr=False)
@@ -368,7 +369,6 @@ def _hand_designs(study: Study) -> list[Any]:
     if not isinstance(t.crossover_rad_s, (int, float)) or t.phase_margin_deg is None:
         return []
     try:
-
         hp, _ = hand_plant(study.plant, study.measured, float(t.crossover_rad_s))
         hds = hand_designs(hp, t, cancel_lightly_damped=study.search.cancel_lightly_damped)
     except Exception:  # the hand baselines are references; the exploration stands without them
@@ -376,7 +376,7 @@ def _hand_designs(study: Study) -> list[Any]:
     return [hd for hd in hds if hd.compensator is not None]
 
 
-def _hand_records(study: Study, hds: list[Any]) -> list[dict[str, Any]]:
+def _hand_records(study: Study, hds: list[Any]) -> list[DesignRecord]:
     out = []
     for hd in hds:
         if hd.compensator is None:
@@ -435,7 +435,7 @@ def explore(
         records = tune.load_records(studies, n_trials)
     hand = _hand_designs(study)
     polish = _hand_structures(study, structures, hand)
-    designs: list[dict[str, Any]] = []
+    designs: list[DesignRecord] = []
     why: dict[str, str] = {}
     for si, s in enumerate(structures + polish):
         tick = None
@@ -482,17 +482,17 @@ def explore(
     answer, answer_lines = recommend(
         designs, max_pole_ratio=study.search.max_pole_ratio, searched_wc=problem.searched_wc
     )
-    for d in designs:
-        d["practical_misses"] = practical_misses(d, study.search.max_pole_ratio)
+    designs = [d.with_changes(extras={"practical_misses": practical_misses(
+        d, study.search.max_pole_ratio)}) for d in designs]
     # a sampled controller is ranked on its sampled loop (designs.csv shows those figures)
     frame = rank_designs([{**d, "metrics": judged_metrics(d["metrics"], d.get("sampled_metrics"))}
                           for d in designs])
     pareto = dict(zip(frame["name"], frame["pareto"], strict=True)) if len(frame) else {}
     doms = dict(zip(frame["name"], frame["dominates_hand"], strict=True)) if len(frame) else {}
-    for d in designs:
-        d["pareto"] = bool(pareto.get(d["name"], False))
-        if d["origin"] == "optimized":
-            d["dominates"] = list(doms.get(d["name"], []))
+    designs = [d.with_changes(
+        pareto=bool(pareto.get(d.name, False)),
+        extras={"dominates": list(doms.get(d.name, []))} if d.origin == "optimized" else None,
+    ) for d in designs]
     order = {n: i for i, n in enumerate(frame["name"])} if len(frame) else {}
     designs.sort(key=lambda d: (d["name"] != answer["design"], order.get(d["name"], 10**6)))
     summary = _summary(study, structures, designs, why, n_trials, answer_lines)
@@ -510,7 +510,7 @@ def explore(
 def _summary(
     study: Study,
     structures: list[Structure],
-    designs: list[dict[str, Any]],
+    designs: list[DesignRecord],
     why: dict[str, str],
     n_trials: int,
     answer_lines: list[str],
@@ -584,7 +584,6 @@ def _relax_hint(study: Study, structures: list[Structure], why: dict[str, str]) 
 
 
 def _study_header(study: Study) -> dict[str, Any]:
-
     return study_header(study)
 
 

@@ -26,7 +26,10 @@ once (:func:`drop_near_duplicates`).
 from __future__ import annotations
 
 import math
-from typing import Any
+from collections.abc import Mapping, Sequence
+from typing import Any, TypeVar
+
+_R = TypeVar("_R", bound=Mapping[str, Any])
 
 __all__ = ["W_MS", "W_NOISE", "W_IAE", "W_SETTLE", "W_SPEED", "cost", "recommend",
            "drop_near_duplicates", "practical_misses", "sampled_phrase"]
@@ -40,7 +43,7 @@ W_SPEED = 1.0
 _MISSING = math.log(10.0)
 
 
-def practical_misses(d: dict[str, Any], max_pole_ratio: float) -> list[str]:
+def practical_misses(d: Mapping[str, Any], max_pole_ratio: float) -> list[str]:
     """Why a design breaks the practical limits (empty when it keeps them)."""
     r = d["metrics"].get("pole_ratio")
     if r is not None and r > max_pole_ratio * (1.0 + 1e-9):
@@ -49,7 +52,7 @@ def practical_misses(d: dict[str, Any], max_pole_ratio: float) -> list[str]:
     return []
 
 
-def _fig(d: dict[str, Any]) -> dict[str, Any]:
+def _fig(d: Mapping[str, Any]) -> Mapping[str, Any]:
     """The figures a design is judged by: its metrics, with the sampled loop's in place
     when the controller is sampled (DESIGN ``sampled_metrics``, ``[search]
     sample_time``) and the worst over the plant family where it has one (``worst``)."""
@@ -61,7 +64,7 @@ def _fig(d: dict[str, Any]) -> dict[str, Any]:
     return m if not w else {**m, **w}
 
 
-def sampled_phrase(d: dict[str, Any]) -> str | None:
+def sampled_phrase(d: Mapping[str, Any]) -> str | None:
     """"sampled at T = 0.1 s (computation delay 0.02 s): PM 58.6°, GM 11.2 dB, Ms 1.56"
     for a design judged on its sampled loop; None otherwise."""
     s = d.get("sampled_metrics")
@@ -86,7 +89,7 @@ def _ln(v: Any) -> float | None:
     return math.log(v) if isinstance(v, (int, float)) and v > 0 and math.isfinite(v) else None
 
 
-def cost(designs: list[dict[str, Any]], searched_wc: bool) -> list[float]:
+def cost(designs: Sequence[Mapping[str, Any]], searched_wc: bool) -> list[float]:
     """The balance cost of each design (lower is better), comparable within the list:
     a missing figure costs ln 10 more than the list's worst."""
     terms: list[tuple[str, float]] = [
@@ -105,7 +108,7 @@ def cost(designs: list[dict[str, Any]], searched_wc: bool) -> list[float]:
     return out
 
 
-def drop_near_duplicates(designs: list[dict[str, Any]]) -> list[dict[str, Any]]:
+def drop_near_duplicates(designs: Sequence[_R]) -> list[_R]:
     """The optimized designs without near-copies of an earlier one in the list (same
     order and verdict; Ms, crossover within 0.2 %; noise gain, load IAE, settling
     within 3 % — two structures can converge on one design, e.g. a PID·filter whose
@@ -113,7 +116,7 @@ def drop_near_duplicates(designs: list[dict[str, Any]]) -> list[dict[str, Any]]:
     are named references)."""
     tol = {"sensitivity_peak": 2e-3, "crossover_rad_s": 2e-3, "noise_gain": 3e-2,
            "iae_load": 3e-2, "settling_time_s": 3e-2}
-    kept: list[dict[str, Any]] = []
+    kept: list[_R] = []
     for d in designs:
         if d["origin"] == "optimized" and any(
             k["origin"] == "optimized" and k["order"] == d["order"]
@@ -172,7 +175,7 @@ def _change(key: str, a: float, b: float, sense: int) -> str:
     return f"{pct:.2g} % {word} {noun}"
 
 
-def _tradeoff(ans: dict[str, Any], alt: dict[str, Any], key: str, sense: int,
+def _tradeoff(ans: Mapping[str, Any], alt: Mapping[str, Any], key: str, sense: int,
               searched_wc: bool) -> str:
     gain = _change(key, _fig(ans)[key], _fig(alt)[key], sense)
     costs = []
@@ -197,7 +200,7 @@ def _tradeoff(ans: dict[str, Any], alt: dict[str, Any], key: str, sense: int,
 
 
 def recommend(
-    designs: list[dict[str, Any]], *, max_pole_ratio: float, searched_wc: bool
+    designs: Sequence[Mapping[str, Any]], *, max_pole_ratio: float, searched_wc: bool
 ) -> tuple[dict[str, Any], list[str]]:
     """The interface ``answer`` object and the lines that explain it (the first is the
     answer line; then one per alternative that is best at something)."""

@@ -371,7 +371,6 @@ def open_storage(storage: str | None, out_dir: Path) -> optuna.storages.BaseStor
     """The default journal file ``out_dir/explore.journal``, or an RDB URL."""
     try:
         if storage is None:
-
             out_dir.mkdir(parents=True, exist_ok=True)
             journal = out_dir / "explore.journal"
             clear_stale_journal_lock(journal)
@@ -431,7 +430,6 @@ def _with_driver(url: str) -> str:
     """``postgresql://`` means psycopg (3) to SQLAlchemy 2.1; fall back to psycopg2
     when only that driver is installed."""
     if url.startswith("postgresql://"):
-
         if (
             importlib.util.find_spec("psycopg") is None
             and importlib.util.find_spec("psycopg2") is not None

@@ -32,7 +32,7 @@ from typing import Any
 import numpy as np
 
 from explorer.core.loop import Rational
-from explorer.frequency.sampled import SampledPlant, phi_gamma, realize, sample_plant
+from explorer.frequency.sampled import SampledPlant, phi_gamma, realize, sample_plant, split_delay
 from explorer.frequency.sampled_batch import DiscreteBatch, closed_loop_parts, poly_rows
 
 __all__ = ["SampledSteps", "simulate_sampled", "sampled_step_metrics", "STEP_KEYS"]
@@ -159,12 +159,7 @@ def simulate_sampled(plant: Rational, dc: DiscreteBatch, compute_delay_s: float,
     a, Cc, b0 = _controller(dc)
     nc = a.shape[1] - 1
     tau_u = plant.delay_s + compute_delay_s  # u[k] reaches the plant at kT + tau_u
-    du = int(math.floor(tau_u / T + 1e-12))
-    eu = tau_u - du * T
-    if eu < 1e-12 * T:
-        eu = 0.0
-    if eu >= T * (1 - 1e-12):
-        du, eu = du + 1, 0.0
+    du, eu = split_delay(tau_u, T)
     tau_l = plant.delay_s  # the load reaches the plant at tau_l
     dp = float(D[0, 0])
     c = C[0]
