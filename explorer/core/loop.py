@@ -32,6 +32,8 @@ __all__ = [
     "hidden_unstable_mask",
     "ROOT_TOL",
     "root_from_json",
+    "root_to_json",
+    "angle_terms",
 ]
 
 #: Two roots closer than this (relative to their size) count as equal; a root whose
@@ -246,7 +248,7 @@ def _count_at_origin(roots: Sequence[complex]) -> int:
     return sum(1 for r in roots if abs(r) == 0.0)
 
 
-def _angle_terms(roots: np.ndarray, omega: np.ndarray) -> np.ndarray:
+def angle_terms(roots: np.ndarray, omega: np.ndarray) -> np.ndarray:
     """Continuous angle of (jω − r) for each root (broadcast), on the natural branch."""
     re = roots.real
     dy = omega - roots.imag
@@ -336,6 +338,14 @@ class LoopBatch:
         """Per design: poles at s = 0 minus zeros at s = 0 (integrators of the loop)."""
         return np.sum(self.poles == 0, axis=1) - np.sum(self.zeros == 0, axis=1)
 
+    def dc_gain(self) -> np.ndarray:
+        """Per design: the value at s = 0 with poles and zeros at the origin removed
+        (real); :meth:`Rational.dc_gain` for one loop. L(0) itself when the loop has no
+        net integrator."""
+        z = np.where(self.zeros == 0, 1.0, -self.zeros)
+        p = np.where(self.poles == 0, 1.0, -self.poles)
+        return (self.gain * np.prod(z, axis=1) / np.prod(p, axis=1)).real
+
     def n_rhp_poles(self) -> np.ndarray:
         """Per design: open-loop poles with Re > 0 (strictly), counted with multiplicity."""
         tol = ROOT_TOL * np.maximum(np.abs(self.poles), 1e-300)
@@ -396,8 +406,8 @@ class LoopBatch:
     def phase_at(self, rows: np.ndarray, omega: np.ndarray) -> np.ndarray:
         """Continuous phase (rad) at points ``(rows[i], omega[i])`` (see module doc)."""
         w = omega[:, None]
-        ph = np.sum(_angle_terms(self.zeros[rows], w), axis=1)
-        ph -= np.sum(_angle_terms(self.poles[rows], w), axis=1)
+        ph = np.sum(angle_terms(self.zeros[rows], w), axis=1)
+        ph -= np.sum(angle_terms(self.poles[rows], w), axis=1)
         ph -= omega * self.delay_s[rows]
         ph = np.where(self.gain[rows] < 0, ph - np.pi, ph)
         return ph

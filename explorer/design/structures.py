@@ -18,13 +18,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from explorer.core.loop import Rational, feedback_sign
+from explorer.core.loop import Rational, angle_terms, feedback_sign
 from explorer.model.study import SearchOptions, Targets
 
 __all__ = [
     "Structure",
     "RootStructure",
-    "Balance",
+    "BalancedRoots",
     "candidate_structures",
     "balance",
     "loop_phase_target_deg",
@@ -208,7 +208,7 @@ def locate(
 
 
 @dataclass(frozen=True, kw_only=True)
-class Balance:
+class BalancedRoots:
     """Result of balancing a batch: full roots, gain, and the phase shortfall (deg,
     0 where feasible)."""
 
@@ -219,10 +219,11 @@ class Balance:
 
 
 def _phase_deg(roots: np.ndarray, w: np.ndarray) -> np.ndarray:
-    """Sum of angle(jω − r) over a row's roots (continuous for roots with Re ≤ 0)."""
+    """Sum of angle(jω − r) (deg) over a row's roots, on the natural branch
+    (:func:`explorer.core.loop.angle_terms`)."""
     if roots.shape[1] == 0:
         return np.zeros(w.shape[0])
-    return np.degrees(np.angle(1j * w[:, None] - roots)).sum(axis=1)
+    return np.degrees(angle_terms(roots, w[:, None])).sum(axis=1)
 
 
 def _log_mag(roots: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -241,7 +242,7 @@ def balance(
     params: dict[str, np.ndarray],
     wc_rad_s: np.ndarray,
     pm_deg: float | np.ndarray,
-) -> Balance:
+) -> BalancedRoots:
     """Solve the balancing root from ∠L(jωc) = −180° + PM (mod 360°) and the gain
     from |L(jωc)| = 1, for a batch. Infeasible rows get the shortfall in degrees
     (distance of the needed phase from what the balancing root can give within its
@@ -274,7 +275,7 @@ def balance(
     plant_lm = np.log(np.abs(plant.freqresp(wc)))
     lm = plant_lm + _log_mag(z, wc) - _log_mag(p, wc)
     gain = np.where(ok, sign * np.exp(-lm), np.nan)
-    return Balance(gain=gain, zeros=z, poles=p, shortfall_deg=short)
+    return BalancedRoots(gain=gain, zeros=z, poles=p, shortfall_deg=short)
 
 
 def _slow_stable_real_poles(plant: Rational, wc: float | None) -> list[float]:

@@ -202,7 +202,9 @@ def _peak_refine(
 # the grid
 # --------------------------------------------------------------------------------------
 def _asymptote_scales(loops: LoopBatch) -> tuple[np.ndarray, np.ndarray]:
-    """Frequencies where the low- and high-frequency asymptotes of |L| cross 1."""
+    """Frequencies where the low- and high-frequency asymptotes of |L| cross 1 (in
+    logarithms, so a gain of 1e300 or roots spanning 1e±8 do not overflow; the plain
+    value L(0) is :meth:`LoopBatch.dc_gain`)."""
     zm = np.abs(loops.zeros)
     pm = np.abs(loops.poles)
     with np.errstate(divide="ignore"):
@@ -569,7 +571,7 @@ def loop_metrics_batch(loops: LoopBatch) -> dict[str, np.ndarray]:
     with np.errstate(divide="ignore", invalid="ignore"):
         mt, mt_w = _peak(loops, grid, x, np.abs(1.0 + 1.0 / lval), extra, inverse=True)
     # limits ω → 0 and ω → ∞
-    l0 = np.where(m0 > 0, np.inf, np.where(m0 < 0, 0.0, _k0(loops)))
+    l0 = np.where(m0 > 0, np.inf, np.where(m0 < 0, 0.0, loops.dc_gain()))
     with np.errstate(divide="ignore", invalid="ignore"):
         s0 = np.where(np.isinf(l0), 0.0, 1.0 / np.abs(1.0 + l0))
         t0 = np.where(np.isinf(l0), 1.0, np.abs(l0) / np.abs(1.0 + l0))
@@ -686,13 +688,6 @@ def _hidden_pairs(
     ve = np.log(np.abs(val)) if part == "real" else np.angle(-val)
     hit = np.sign(ve) != np.sign(vals[r, k])
     return r[hit], k[hit], xe[hit], ve[hit]
-
-
-def _k0(loops: LoopBatch) -> np.ndarray:
-    """L(0) of a loop with no net pole or zero at the origin (real)."""
-    z = np.where(loops.zeros == 0, 1.0, -loops.zeros)
-    p = np.where(loops.poles == 0, 1.0, -loops.poles)
-    return (loops.gain * np.prod(z, axis=1) / np.prod(p, axis=1)).real
 
 
 def _peak(
