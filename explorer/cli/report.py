@@ -173,12 +173,7 @@ def register(sub: Any, caution: str) -> None:
         + caution,
         **common,
     )
-    rep.add_argument("study", metavar="STUDY", help="study file (TOML)")
-    rep.add_argument(
-        "--designs",
-        metavar="JSON",
-        help="designs.json from explore (default: the study's [[compensator]] entries)",
-    )
+    _design_source_arguments(rep)
     rep.add_argument("--out", required=True, metavar="HTML", help="report file to write")
     rep.add_argument(
         "--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS
@@ -193,12 +188,7 @@ def register(sub: Any, caution: str) -> None:
         + caution,
         **common,
     )
-    ch.add_argument("study", metavar="STUDY", help="study file (TOML)")
-    ch.add_argument(
-        "--designs",
-        metavar="JSON",
-        help="designs.json from explore (default: the study's [[compensator]] entries)",
-    )
+    _design_source_arguments(ch)
     ch.add_argument("--out", required=True, metavar="DIR", help="folder for the image files")
     ch.add_argument(
         "--format", nargs="+", default=["png", "svg"], choices=["png", "svg"], help="image formats"
@@ -207,3 +197,13 @@ def register(sub: Any, caution: str) -> None:
         "--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS
     )
     ch.set_defaults(run=_cmd_charts)
+
+
+def _design_source_arguments(p: argparse.ArgumentParser) -> None:
+    """STUDY and --designs, shared by ``report`` and ``charts``."""
+    p.add_argument("study", metavar="STUDY", help="study file (TOML)")
+    p.add_argument(
+        "--designs",
+        metavar="JSON",
+        help="designs.json from explore (default: the study's [[compensator]] entries)",
+    )
