@@ -27,6 +27,7 @@ from explorer import metric_registry as _registry
 from explorer import specs
 from explorer.errors import StudyFileError
 from explorer.loop import Rational, roots_from_coefficients
+from explorer.phase_domain import check_phase_reach
 
 __all__ = [
     "Targets",
@@ -986,6 +987,9 @@ def _check_domain(
                          f"1e±{round(MAGNITUDE_DECADES)} (fewer roots far from 1 rad/s, or "
                          "another time unit, e.g. ms or h)"
                 )
+    # ω·τ at the given compensators' crossovers (explorer/phase_domain.py)
+    check_phase_reach(plant, [c.compensator for c in compensators],
+                      [f"compensator[{i}]" for i in range(len(compensators))], _fmt)
 
 
 # -- scalar validators --------------------------------------------------------------------
