@@ -37,7 +37,7 @@ _COND_MAX = 1e8
 _EPS = np.finfo(float).eps
 
 
-def hermite_bound(x: np.ndarray) -> np.ndarray:
+def hermite_bound(x: np.ndarray | float) -> np.ndarray:
     """B(x): bound of |f − H| / max|f| for f = e^{λt}, x = |λ|·h (module docstring)."""
     x = np.asarray(x, dtype=float)
     return np.minimum(x**4 / 384.0, 3.0 + 8.0 * x / 27.0)

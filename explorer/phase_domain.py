@@ -59,7 +59,7 @@ def check_phase_reach(plant: Rational, comps: Sequence[Rational], keys: Sequence
     tau = plant.delay_s
     if not (tau > 0 and math.isfinite(tau)):
         return
-    for comp, key in zip(comps, keys):
+    for comp, key in zip(comps, keys, strict=True):
         wc = highest_crossover_rad_s(plant, comp)
         if wc is None or wc * tau <= PHASE_REACH_RAD:
             continue

@@ -885,6 +885,8 @@ class _Sim:
     peak, in every design of the chunk. A fixed step (``dt_s``) never changes.
     """
 
+    amp: np.ndarray | None  # mode amplitudes (explorer.modal_step), delay-free only
+
     def __init__(self, plan: _Plan, idx: np.ndarray) -> None:
         self.tau = plan.tau
         self.uniform = plan.uniform
@@ -929,7 +931,7 @@ class _Sim:
         n = a.shape[1]
         self.amp = None
         self.scale = np.zeros((self.bsz, 3))
-        if n == 0:
+        if n == 0 or self.z is None:
             return
         o = self.maps[0].o[:, 0]
         ok = np.all(self.g[:, :n, n:] == 0.0, axis=(1, 2))  # deviation form (_deviation)

@@ -27,10 +27,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from hostile_corpus import _time_scaled  # noqa: E402
 from test_timeresp import _scipy_metrics  # noqa: E402
 
-from explorer.metrics import frequency_metrics  # noqa: E402
 from explorer.loop import Rational  # noqa: E402
+from explorer.metrics import frequency_metrics  # noqa: E402
 from explorer.modal_step import hermite_bound, modal_amplitudes, switch_time  # noqa: E402
-from explorer.timeresp import step_metrics_batch, step_metrics  # noqa: E402
+from explorer.timeresp import step_metrics, step_metrics_batch  # noqa: E402
 
 PLANT = Rational(gain=1e10, poles=[-0.5e3 + 1e5j, -0.5e3 - 1e5j, -1e2])
 # designs an exploration of this plant produced (explore --trials 4 --seed 1)
@@ -103,7 +103,7 @@ def test_modal_amplitudes_are_the_partial_fraction_residues():
         # the amplitude of e^{λt}
         num, den = signal.ss2tf(a, xi0[:, [exp]], out[[row]], np.zeros((1, 1)))
         res, poles, _ = signal.residue(num[0], den)
-        for lam_i, r_i in zip(poles, res):
+        for lam_i, r_i in zip(poles, res, strict=True):
             i = int(np.argmin(np.abs(got_lam[0] - lam_i)))
             assert amp[0, i, j] == pytest.approx(abs(r_i), rel=1e-6, abs=1e-9)
 
