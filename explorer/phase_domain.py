@@ -53,9 +53,9 @@ def highest_crossover_rad_s(plant: Rational, comp: Rational) -> float | None:
 
 
 def check_phase_reach(plant: Rational, comps: Sequence[Rational], keys: Sequence[str],
-                      fmt=lambda x: f"{x:.6g}") -> None:
+                      fmt=lambda x: f"{x:.6g}", on: str = "the plant's") -> None:
     """StudyFileError naming the first compensator whose highest crossover has ω·τ above
-    PHASE_REACH_RAD behind the plant's delay."""
+    PHASE_REACH_RAD behind the plant's delay (``on`` names the plant in the message)."""
     tau = plant.delay_s
     if not (tau > 0 and math.isfinite(tau)):
         return
@@ -65,8 +65,29 @@ def check_phase_reach(plant: Rational, comps: Sequence[Rational], keys: Sequence
             continue
         err_deg = math.degrees(wc * tau * PHASE_ROUNDING)
         raise StudyFileError(
-            key, f"crosses over at {fmt(wc)} rad/s behind the plant's {fmt(tau)} s delay: "
+            key, f"crosses over at {fmt(wc)} rad/s behind {on} {fmt(tau)} s delay: "
                  f"ω·τ = {fmt(wc * tau)} rad, beyond the numerical domain's "
                  f"{fmt(PHASE_REACH_RAD)} rad (the delay's phase there is rounded by up to "
                  f"{fmt(err_deg)}°); lower its gain"
         )
+
+
+def family_plants(plant: Rational, variation) -> list[tuple[Rational, str]]:
+    """Plants of a family (explorer.study.Variation) the ω·τ rule is checked on: every
+    listed member, and g·P(σs)·e^(−sτ) at the largest gain and delay with σ at both
+    ends of its range (the highest crossover cannot fall as g grows; in σ it is checked
+    at the ends only). Each with the words that name it in a refusal."""
+    out: list[tuple[Rational, str]] = []
+    if variation.gain or variation.delay_s or variation.time_scale:
+        g = variation.gain[1] if variation.gain else 1.0
+        tau = variation.delay_s[1] if variation.delay_s else plant.delay_s
+        k = len(plant.zeros) - len(plant.poles)
+        for sigma in sorted(set(variation.time_scale or (1.0,))):
+            p = Rational(gain=plant.gain * g * sigma**k,
+                         zeros=tuple(z / sigma for z in plant.zeros),
+                         poles=tuple(q / sigma for q in plant.poles), delay_s=tau)
+            out.append((p, f"the family's plant at gain × {g:.6g} and time scale {sigma:.6g} "
+                           "(`variation`), its"))
+    for j, m in enumerate(variation.members):
+        out.append((m, f"`variation.member[{j}]`, its"))
+    return out

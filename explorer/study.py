@@ -27,7 +27,7 @@ from explorer import metric_registry as _registry
 from explorer import specs
 from explorer.errors import StudyFileError
 from explorer.loop import Rational, roots_from_coefficients
-from explorer.phase_domain import check_phase_reach
+from explorer.phase_domain import check_phase_reach, family_plants
 
 __all__ = [
     "Targets",
@@ -353,6 +353,9 @@ def parse_study(data: dict[str, Any], source: str = "<study>") -> Study:
     variation = None
     if "variation" in data:
         variation = _variation(_table(data, "variation", "", required=True), plant)
+        for fam_plant, on in family_plants(plant, variation):  # explorer/phase_domain.py
+            check_phase_reach(fam_plant, [c.compensator for c in compensators],
+                              [f"compensator[{i}]" for i in range(len(compensators))], _fmt, on)
     return Study(
         name=name,
         source=source,

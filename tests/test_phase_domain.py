@@ -92,3 +92,29 @@ def test_limit_only_applies_behind_a_delay(tmp_path):
 @pytest.mark.parametrize("gain", [1e-3, 1.0, 1e6])
 def test_ordinary_loops_pass(tmp_path, gain):
     assert load_study(_study(tmp_path, gain)).compensators[0].name == "A"
+
+
+def _family_study(tmp_path, gain: float, variation: str) -> str:
+    p = tmp_path / "fam.toml"
+    p.write_text(f'[plant]\ngain = {gain!r}\npoles = [0, -10]\ndelay = 0.01\n'
+                 f'[targets]\nintegrators = 1\n[variation]\n{variation}'
+                 f'[[compensator]]\nname = "A"\ngain = 1.0\n')
+    return str(p)
+
+
+@pytest.mark.parametrize("variation", [
+    "gain = [0.5, 2.0]\n",  # 2·8.1e19: ωc ≈ 1.27e10 rad/s, ωc·τ ≈ 1.27e8 rad
+    "delay = [0.005, 0.02]\n",  # ωc ≈ 9e9 rad/s behind 0.02 s: 1.8e8 rad
+    "[[variation.member]]\ngain = 8.1e19\npoles = [0, -10]\ndelay = 0.015\n",
+])
+def test_family_plants_past_the_limit_are_refused(tmp_path, capsys, variation):
+    assert main(["check", _family_study(tmp_path, 8.1e19, variation)]) == 2
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert len(lines) == 1 and "`compensator[0]`" in lines[0] and "1e+08 rad" in lines[0]
+
+
+def test_family_inside_the_limit_passes(tmp_path):
+    # ωc ≈ √(8.1e19·1.1) = 9.4e9 rad/s at σ = 1; slower at σ = 1.2
+    text = "gain = [0.5, 1.1]\ntime_scale = [1.0, 1.2]\n"
+    study = load_study(_family_study(tmp_path, 8.1e19, text))
+    assert study.variation is not None
