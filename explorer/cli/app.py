@@ -19,13 +19,14 @@ from explorer.cli import implement as implement_cmd
 from explorer.cli import report as report_cmd
 from explorer.cli.output import design_table, print_data_notes, print_json, print_study, safe
 from explorer.core.errors import LoopscoutError
+from explorer.evaluation.phase_domain import load_checked_study
 from explorer.model.text_file import one_line
 
 __all__ = ["main", "build_parser"]
 
 from explorer.core.caution import CAUTION  # noqa: E402  (one text for CLI, README, report)
 from explorer.evaluation.records import given_designs, study_header
-from explorer.model.study import MAX_SEED, MAX_TRIALS, load_study
+from explorer.model.study import MAX_SEED, MAX_TRIALS
 
 _EXAMPLES = """\
 examples:
@@ -87,7 +88,7 @@ _COMMAND_MODULES = (balance_cmd, explore_cmd, report_cmd, implement_cmd)
 # commands
 # --------------------------------------------------------------------------------------
 def _cmd_check(args: argparse.Namespace) -> int:
-    study = load_study(args.study)
+    study = load_checked_study(args.study)
     if not study.compensators:
         raise LoopscoutError(f"{study.source}: no [[compensator]] entries to check")
     designs = given_designs(study)

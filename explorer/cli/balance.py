@@ -20,9 +20,9 @@ from explorer.cli.output import (
 from explorer.core.errors import LoopscoutError
 from explorer.design.hand_designs import hand_designs, trim_gain_for_overshoot
 from explorer.evaluation.design_record import DesignRecord
+from explorer.evaluation.phase_domain import load_checked_study
 from explorer.evaluation.plant_source import hand_plant
 from explorer.evaluation.records import evaluated_record, study_header
-from explorer.model.study import load_study
 
 __all__ = ["register"]
 
@@ -63,7 +63,7 @@ def register(sub: Any, caution: str) -> None:
 
 
 def _run(args: argparse.Namespace) -> int:
-    study = load_study(args.study)
+    study = load_checked_study(args.study)
     t = study.targets
     # a crossover range, a free crossover or a missing phase margin is not bad input:
     # each hand method refuses with its reason (docs/balance.md, "Errors")

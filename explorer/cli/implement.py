@@ -23,6 +23,7 @@ from typing import Any
 from explorer.cli.output import factored, print_json, safe
 from explorer.core.errors import DesignError, LoopscoutError, StudyFileError
 from explorer.core.loop import Rational, root_to_json
+from explorer.evaluation.phase_domain import load_checked_study
 from explorer.evaluation.records import describe_structure, design_metrics, study_header
 from explorer.frequency.sampled import (
     METHODS,
@@ -35,7 +36,7 @@ from explorer.frequency.sampled import (
     sample_plant,
     sampled_loop_metrics,
 )
-from explorer.model.study import FREQ_MAX, FREQ_MIN, load_study
+from explorer.model.study import FREQ_MAX, FREQ_MIN
 from explorer.model.text_file import read_text_file
 
 __all__ = ["register", "implementation", "NOT_MODELLED", "SECTIONS_NOTE"]
@@ -225,7 +226,7 @@ def _compensator(obj: Any, where: str) -> Any:
 
 # -- the command ---------------------------------------------------------------------------
 def _run(args: argparse.Namespace) -> int:
-    study = load_study(args.study)
+    study = load_checked_study(args.study)
     if args.from_file is not None:
         comp = _design_from_file(args.from_file, args.design)
     else:

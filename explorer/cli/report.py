@@ -16,7 +16,7 @@ from typing import Any
 
 from explorer.core.errors import LoopscoutError, StudyFileError
 from explorer.evaluation import records as evaluate
-from explorer.model.study import load_study
+from explorer.evaluation.phase_domain import load_checked_study
 from explorer.model.text_file import read_text_file
 from explorer.outputs.report import export_charts, write_report
 
@@ -128,7 +128,7 @@ def _inputs(
     args: argparse.Namespace,
 ) -> tuple[Any, Sequence[Mapping[str, Any]], dict[str, Any] | None, list[str] | None]:
 
-    study = load_study(args.study)
+    study = load_checked_study(args.study)
     if args.designs:
         return (study, *load_exploration(args.designs))
     return study, given_designs(study), None, None

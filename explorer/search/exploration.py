@@ -25,8 +25,9 @@ from explorer.core.loop import Rational, root_from_json
 from explorer.design.sampled_design import judged_metrics
 from explorer.design.structures import Structure, candidate_structures
 from explorer.evaluation.design_record import DesignRecord
+from explorer.evaluation.phase_domain import check_study, load_checked_study
 from explorer.evaluation.records import evaluated_record, given_designs
-from explorer.model.study import LIMIT_KEYS, MAX_SEARCH_ORDER, Study, load_study
+from explorer.model.study import LIMIT_KEYS, MAX_SEARCH_ORDER, Study
 from explorer.outputs.report import write_report
 from explorer.search.recommend import drop_near_duplicates, practical_misses, recommend
 
@@ -404,7 +405,8 @@ def explore(
     ``progress`` receives one message per step (None or False: silent); if it has a
     ``close()``, that is called at the end of each stage."""
 
-    study = study_or_path if isinstance(study_or_path, Study) else load_study(study_or_path)
+    study = (check_study(study_or_path) if isinstance(study_or_path, Study)
+             else load_checked_study(study_or_path))
     out = Path(out_dir)
     if out.exists() and not out.is_dir():
         raise LoopscoutError(f"--out {str(out)!r} is not a folder")

@@ -54,6 +54,7 @@ import numpy as np
 from explorer.core.errors import DesignError
 from explorer.core.loop import LoopBatch, Rational
 from explorer.time_domain.farroots import ModelGroup, fold_far_roots
+from explorer.time_domain.modal_step import modal_amplitudes, switch_time
 
 __all__ = [
     "METRIC_KEYS",
@@ -884,6 +885,8 @@ class _Sim:
     peak, in every design of the chunk. A fixed step (``dt_s``) never changes.
     """
 
+    amp: np.ndarray | None  # mode amplitudes (explorer.time_domain.modal_step), delay-free only
+
     def __init__(self, plan: _Plan, idx: np.ndarray) -> None:
         self.tau = plan.tau
         self.uniform = plan.uniform
@@ -911,18 +914,38 @@ class _Sim:
             mp, self.z = _deviation(self.maps[0], self.P, self.C, rows.yf, rows.uss, rows.lss)
             self.maps = {0: mp}
             self.g = mp.g
+            self._modes(rows)
         self.t0: list[np.ndarray] = []
         self.hk: list[np.ndarray] = []
         self.parts: dict[str, list[list[np.ndarray]]] = {n: [[], [], [], []] for n, _, _ in _NAMES}
         self.finite = np.ones(self.bsz, dtype=bool)
-        self.scale = np.zeros((self.bsz, 3))
+        if self.tau > 0 or self.uniform:
+            self.amp = None
+            self.scale = np.zeros((self.bsz, 3))
         self.k = 0
+
+    def _modes(self, rows: _Rows) -> None:
+        """Mode amplitudes for the step rule (explorer.time_domain.modal_step); the signals' sizes
+        start at their final values."""
+        a = _loop_free(self.P, self.C)[0]
+        n = a.shape[1]
+        self.amp = None
+        self.scale = np.zeros((self.bsz, 3))
+        if n == 0 or self.z is None:
+            return
+        o = self.maps[0].o[:, 0]
+        ok = np.all(self.g[:, :n, n:] == 0.0, axis=(1, 2))  # deviation form (_deviation)
+        lam, amp = modal_amplitudes(a, o[:, [0, 2], :n], self.z[:, :n, :], ok)
+        self.lam, self.amp = lam, amp
+        self.scale = np.abs(np.stack([rows.yf, rows.uss, rows.lss], axis=1))
+        self.scale = np.where(np.isfinite(self.scale), self.scale, 0.0)
 
     # -- bookkeeping ----------------------------------------------------------------
     def take(self, rows: np.ndarray) -> _Sim:
         new = object.__new__(_Sim)
         new.__dict__.update(self.__dict__)
         new.P, new.C, new.lam = self.P.take(rows), self.C.take(rows), self.lam[rows]
+        new.amp = None if self.amp is None else self.amp[rows]
         new.bsz = rows.size
         new.maps = {k: m.take(rows) for k, m in self.maps.items()}
         new.g = self.g[rows]
@@ -971,12 +994,7 @@ class _Sim:
     def _switch_time(self, h_next: float) -> float:
         if self.uniform:
             return math.inf
-        lam = self.lam.ravel()
-        under = np.abs(lam) * h_next > _HW_FREE
-        t_modes = 0.0
-        if np.any(under):
-            sg = -lam.real[under]
-            t_modes = math.inf if np.any(sg <= 0) else float(np.max(23.0 / sg))
+        t_modes = switch_time(self.lam, self.amp, self.scale, h_next, _HW_FREE)
         return max(16.0 * h_next, t_modes)
 
     def _advance_free(self, t_target: float) -> None:
@@ -994,7 +1012,10 @@ class _Sim:
             n = min(n, _MAX_INTERVALS - self.k)  # the working set stays bounded
             zz = _trajectory(self.g, n + 1, self.z)
             with np.errstate(over="ignore", invalid="ignore"):
-                out = np.einsum("bod,bkde->bkoe", o0, zz)
+                # (B,4,D) @ (B,D,K·2): one batched product (einsum did not use BLAS)
+                bsz, kk, dd = zz.shape[0], zz.shape[1], zz.shape[2]
+                zt = zz.transpose(0, 2, 1, 3).reshape(bsz, dd, kk * 2)
+                out = (o0 @ zt).reshape(bsz, 4, kk, 2).transpose(0, 2, 1, 3)
             self._append(self.t + hs * np.arange(n), hs, out[:, None], n)
             self.z = zz[:, -1]
             self.t += n * hs
