@@ -107,3 +107,35 @@ def test_bundled_check_records_validate_against_the_check_schema() -> None:
     obj = json.loads(json_text({"designs": designs, "study": study_header(study),
                                 "caution": CAUTION}))
     jsonschema.validate(obj, schema)
+
+
+# -- the answer object (explorer/search/recommend.py) ------------------------------------
+def test_the_answer_is_frozen_and_reads_like_the_interface_object() -> None:
+    from explorer.search.recommend import Alternative, Answer
+
+    alt = Alternative(criterion="lowest noise gain", design="PI #3", trade_off="less noise")
+    a = Answer(design="PID #1", order=2, why="order 2 is the lowest", alternatives=(alt,))
+    # docs/interface.md: answer = {design, order, why} (+ the project's alternatives)
+    assert list(a) == ["design", "order", "why", "alternatives"]
+    assert a == {"design": "PID #1", "order": 2, "why": "order 2 is the lowest",
+                 "alternatives": [{"criterion": "lowest noise gain", "design": "PI #3",
+                                   "trade_off": "less noise"}]}
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        a.design = "other"  # type: ignore[misc]
+    with pytest.raises(TypeError):
+        a["alternatives"][0]["design"] = "x"
+    none = Answer(design=None, order=None, why="no design meets the targets")
+    assert json.loads(json_text(none)) == {"design": None, "order": None,
+                                           "why": "no design meets the targets"}
+
+
+def test_an_explorations_answer_validates_against_the_explore_schema(tmp_path) -> None:
+    jsonschema = pytest.importorskip("jsonschema")
+    from explorer.search.recommend import Answer, recommend
+
+    study = load_study(ROOT / "studies" / "kiln_damper.toml")
+    answer, lines = recommend(given_designs(study), max_pole_ratio=20.0, searched_wc=False)
+    assert isinstance(answer, Answer) and lines[0].startswith("answer:")
+    schema = json.loads((ROOT / "explorer" / "schemas" / "explore.json").read_text())
+    jsonschema.validate(json.loads(json_text(answer)),
+                        {**schema["$defs"]["answer"], "$defs": schema["$defs"]})

@@ -7,7 +7,8 @@ band, the trial number...). It cannot be changed after it is made; a later stage
 adds to it (the Pareto flag, the practical misses) makes a new one with
 :meth:`DesignRecord.with_changes`.
 
-It reads like the JSON object it stands for: ``record["metrics"]["phase_margin_deg"]``,
+It is a :class:`explorer.core.frozen.JsonView`: it reads like the JSON object it
+stands for: ``record["metrics"]["phase_margin_deg"]``,
 ``record.get("worst")``, ``dict(record)``. Those reads are read-only views: the
 metrics and every nested object are immutable mappings and tuples. :meth:`to_json`
 is the one serializer; :func:`explorer.core.json_text.json_text` writes a record
@@ -18,15 +19,14 @@ in the order they were added.
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
-from functools import cached_property
-from types import MappingProxyType
 from typing import Any
 
+from explorer.core.frozen import JsonView, ReadOnlyList, frozen_view
 from explorer.core.loop import Rational
 
-__all__ = ["DesignRecord", "ReadOnlyList", "frozen_view", "CORE_KEYS"]
+__all__ = ["DesignRecord", "CORE_KEYS"]
 
 #: The interface's DESIGN keys in their order (docs/interface.md); ``misses`` is a
 #: project extension that sits with them.
@@ -34,35 +34,8 @@ CORE_KEYS = ("name", "origin", "structure", "order", "compensator", "meets_targe
              "pareto", "metrics", "margins_valid", "misses")
 
 
-class ReadOnlyList(tuple):
-    """A JSON array that cannot be changed: a tuple that compares equal to the list
-    with the same items (so a record equals its JSON object read back)."""
-
-    __slots__ = ()
-
-    def __eq__(self, other: object) -> bool:
-        if isinstance(other, list):
-            return list(self) == other
-        return tuple.__eq__(self, other)
-
-    def __ne__(self, other: object) -> bool:
-        return not self == other
-
-    __hash__ = tuple.__hash__
-
-
-def frozen_view(value: Any) -> Any:
-    """``value`` made read-only all the way down: dicts become immutable mappings,
-    lists :class:`ReadOnlyList`; other values as they are."""
-    if isinstance(value, Mapping):
-        return MappingProxyType({k: frozen_view(v) for k, v in value.items()})
-    if isinstance(value, (list, tuple)):
-        return ReadOnlyList(frozen_view(v) for v in value)
-    return value
-
-
 @dataclass(frozen=True, kw_only=True, eq=False)
-class DesignRecord(Mapping[str, Any]):
+class DesignRecord(JsonView):
     """One judged design (docs/interface.md, DESIGN)."""
 
     name: str
@@ -104,46 +77,25 @@ class DesignRecord(Mapping[str, Any]):
         return replace(self, **changes)
 
     # -- the JSON object ---------------------------------------------------------------
-    @cached_property
-    def _view(self) -> Mapping[str, Any]:
-        view: dict[str, Any] = {
+    def _json_items(self) -> dict[str, Any]:
+        items: dict[str, Any] = {
             "name": self.name,
             "origin": self.origin,
             "structure": self.structure,
             "order": self.order,
-            "compensator": frozen_view(self.compensator.to_dict()),
+            "compensator": self.compensator.to_dict(),
             "meets_targets": self.meets_targets,
             "pareto": self.pareto,
             "metrics": self.metrics,
             "margins_valid": self.margins_valid,
         }
         if self.misses is not None:
-            view["misses"] = self.misses
-        view.update(self.extras)
-        return MappingProxyType(view)
-
-    def to_json(self) -> dict[str, Any]:
-        """The DESIGN object as plain dicts and lists (the one serializer)."""
-        return _plain(self._view)
-
-    def __getitem__(self, key: str) -> Any:
-        return self._view[key]
-
-    def __iter__(self) -> Iterator[str]:
-        return iter(self._view)
-
-    def __len__(self) -> int:
-        return len(self._view)
+            items["misses"] = self.misses
+        items.update(self.extras)
+        return items
 
     def __repr__(self) -> str:
         return (f"DesignRecord(name={self.name!r}, origin={self.origin!r}, "
                 f"structure={self.structure!r}, order={self.order}, "
                 f"meets_targets={self.meets_targets!r})")
 
-
-def _plain(value: Any) -> Any:
-    if isinstance(value, Mapping):
-        return {k: _plain(v) for k, v in value.items()}
-    if isinstance(value, tuple):
-        return [_plain(v) for v in value]
-    return value

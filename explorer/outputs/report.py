@@ -1532,7 +1532,7 @@ def write_report(
 
     designs = list(designs)
     _check_designs(designs)
-    if answer is not None and not isinstance(answer, dict):
+    if answer is not None and not isinstance(answer, Mapping):
         raise LoopscoutError("answer must be an object with 'design', 'order' and 'why'")
     path = Path(path)
     rec = recommended_name(designs, answer)

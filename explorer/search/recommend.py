@@ -27,11 +27,15 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any, TypeVar
+
+from explorer.core.frozen import JsonView
 
 _R = TypeVar("_R", bound=Mapping[str, Any])
 
-__all__ = ["W_MS", "W_NOISE", "W_IAE", "W_SETTLE", "W_SPEED", "cost", "recommend",
+__all__ = ["Answer", "Alternative", "W_MS", "W_NOISE", "W_IAE", "W_SETTLE", "W_SPEED",
+           "cost", "recommend",
            "drop_near_duplicates", "practical_misses", "sampled_phrase"]
 
 W_MS = 15.0
@@ -41,6 +45,40 @@ W_SETTLE = 1.0
 W_SPEED = 1.0
 #: ln-penalty for a figure that is missing (null): as if 10× the worst present.
 _MISSING = math.log(10.0)
+
+
+@dataclass(frozen=True, kw_only=True, eq=False)
+class Alternative(JsonView):
+    """A design best at one criterion, beside the answer (docs/interface.md, extension)."""
+
+    criterion: str
+    design: str
+    trade_off: str
+
+    def _json_items(self) -> dict[str, Any]:
+        return {"criterion": self.criterion, "design": self.design,
+                "trade_off": self.trade_off}
+
+
+@dataclass(frozen=True, kw_only=True, eq=False)
+class Answer(JsonView):
+    """The exploration's ``answer`` (docs/interface.md), typed and frozen: the design
+    (None when nothing meets), its order, why, the alternatives best at something, and
+    the worst member of a family."""
+
+    design: str | None
+    order: int | None
+    why: str
+    alternatives: tuple[Alternative, ...] | None = None
+    worst_member: Mapping[str, Any] | None = None
+
+    def _json_items(self) -> dict[str, Any]:
+        items: dict[str, Any] = {"design": self.design, "order": self.order, "why": self.why}
+        if self.alternatives is not None:
+            items["alternatives"] = self.alternatives
+        if self.worst_member is not None:
+            items["worst_member"] = self.worst_member
+        return items
 
 
 def practical_misses(d: Mapping[str, Any], max_pole_ratio: float) -> list[str]:
@@ -201,13 +239,13 @@ def _tradeoff(ans: Mapping[str, Any], alt: Mapping[str, Any], key: str, sense: i
 
 def recommend(
     designs: Sequence[Mapping[str, Any]], *, max_pole_ratio: float, searched_wc: bool
-) -> tuple[dict[str, Any], list[str]]:
+) -> tuple[Answer, list[str]]:
     """The interface ``answer`` object and the lines that explain it (the first is the
     answer line; then one per alternative that is best at something)."""
     ok = [d for d in designs if d.get("meets_targets")]
     if not ok:
-        return {"design": None, "order": None, "why": "no design meets the targets, "
-                "requirements and limits"}, []
+        return Answer(design=None, order=None, why="no design meets the targets, "
+                      "requirements and limits"), []
     practical = [d for d in ok if not practical_misses(d, max_pole_ratio)]
     pool = practical or ok
     rejecting = [d for d in pool if _fig(d).get("iae_load") is not None]
@@ -257,7 +295,7 @@ def recommend(
     lines = [f"answer: order {low} suffices — {best['name']}{whose} is recommended",
              f"  why: {why}"]
     seen = {best["name"]}
-    alternatives: list[dict[str, str]] = []
+    alternatives: list[Alternative] = []
     for phrase, key, sense in _CRITERIA:
         have = [d for d in ok if _fig(d).get(key) is not None]
         if not have or _fig(best).get(key) is None:
@@ -269,9 +307,7 @@ def recommend(
         seen.add(alt["name"])
         trade = _tradeoff(best, alt, key, sense, searched_wc)
         lines.append(f"  {phrase}: {alt['name']} — {trade}")
-        alternatives.append({"criterion": phrase, "design": alt["name"], "trade_off": trade})
-    answer: dict[str, Any] = {"design": best["name"], "order": low, "why": why,
-                              "alternatives": alternatives}
-    if wm:
-        answer["worst_member"] = wm
+        alternatives.append(Alternative(criterion=phrase, design=alt["name"], trade_off=trade))
+    answer = Answer(design=best["name"], order=low, why=why, alternatives=tuple(alternatives),
+                    worst_member=wm or None)
     return answer, lines
