@@ -15,7 +15,7 @@ from typing import Any
 
 from explorer.cli.output import print_json
 from explorer.cli.progress import ProgressLine
-from explorer.core.metric_registry import RANKED_COLUMNS
+from explorer.core.metric_registry import RANKED_COLUMNS, ranked_cell
 from explorer.design.sampled_design import judged_metrics
 from explorer.search.exploration import explore
 
@@ -72,17 +72,6 @@ def register(sub: Any, caution: str) -> None:
     p.set_defaults(run=_run, caution=caution)
 
 
-def _cell(v: Any, fmt: str) -> str:
-    if v is None:
-        return "-"
-    if isinstance(v, bool):
-        return "yes" if v else "no"
-    try:
-        return fmt.format(v)
-    except (ValueError, TypeError):
-        return str(v)
-
-
 def ranked_table(designs: Sequence[Mapping[str, Any]]) -> str:
     """One row per design (ranked), metrics with units in the header. With a sample
     time the loop figures are the sampled loop's, the ones the ranking used."""
@@ -95,9 +84,9 @@ def ranked_table(designs: Sequence[Mapping[str, Any]]) -> str:
                 d["name"],
                 d["origin"],
                 d["structure"],
-                *[_cell(m.get(k), f) for k, _, f in _COLUMNS],
-                _cell(d["meets_targets"], ""),
-                _cell(d["pareto"], ""),
+                *[ranked_cell(m.get(k), f) for k, _, f in _COLUMNS],
+                ranked_cell(d["meets_targets"], ""),
+                ranked_cell(d["pareto"], ""),
             ]
         )
     widths = [max(len(str(r[i])) for r in [head, *rows]) for i in range(len(head))]

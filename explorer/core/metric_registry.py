@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 __all__ = [
     "OVERSHOOT_TOL_PCT",
@@ -32,6 +33,7 @@ __all__ = [
     "WORST_KEYS",
     "WORST_TIME_KEYS",
     "RANKED_COLUMNS",
+    "ranked_cell",
 ]
 
 
@@ -175,3 +177,16 @@ OVERSHOOT_TOL_PCT = 0.2
 SETTLING_REL_TOL = 0.01
 #: docs/interface.md: the phase-margin target is met down to target − 0.05°.
 PHASE_MARGIN_TOL_DEG = 0.05
+
+
+def ranked_cell(value: Any, fmt: str, *, none: str = "-") -> str:
+    """A ranked table's cell (terminal and report): ``none`` for null, yes/no for a
+    flag, else ``fmt`` (one of RANKED_COLUMNS' formats), or the value as text."""
+    if value is None:
+        return none
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    try:
+        return fmt.format(value)
+    except (ValueError, TypeError):
+        return str(value)

@@ -23,6 +23,7 @@ from explorer.core.errors import LoopscoutError
 from explorer.core.factored import factored as factored_text
 from explorer.core.loop import root_from_json
 from explorer.core.metric_registry import RANKED_COLUMNS as TERMINAL_COLUMNS
+from explorer.core.metric_registry import ranked_cell
 from explorer.design.sampled_design import judged_metrics
 from explorer.evaluation.records import CROSSOVER_REL_TOL, METRIC_UNITS, PHASE_MARGIN_TOL_DEG
 from explorer.model.study import LIMIT_KEYS, Study
@@ -555,15 +556,9 @@ def _answer_html(
 
 
 def _cell(v: Any, fmt: str) -> str:
-    """The terminal table's cell text (explorer.cli.explore)."""
-    if v is None:
-        return "—"
-    if isinstance(v, bool):
-        return "yes" if v else "no"
-    try:
-        return fmt.format(v)
-    except (ValueError, TypeError):
-        return html.escape(str(v))
+    """The terminal table's cell text (explorer.core.metric_registry.ranked_cell), an
+    em dash for null, escaped for HTML."""
+    return html.escape(ranked_cell(v, fmt, none="—"))
 
 
 def _ranked_html(
