@@ -326,7 +326,7 @@ def _family_into(
 ) -> None:
     """Worst values over the plant family into ``metrics`` rows ``idx``: frequency
     figures over the whole family (explorer.evaluation.family.family_worst_batch, box geometry
-    plus the listed members); step figures over explorer.evaluation.family.search_time_members
+    plus the listed members); step figures over explorer.model.family_members.search_time_members
     (nominal, the corners at the largest delay, the listed members)."""
 
     v = problem.variation
