@@ -3,8 +3,10 @@
 Each subpackage of ``explorer`` is a layer; a module may import its own layer and the
 layers below it, never one above: the numerical core never imports the search or the
 outputs. Every package import is at module top (the graph is visible), the one
-exception being the command's edge (``explorer/cli/__init__.py``), which imports the
-rest lazily so that a missing dependency is one line. No module imports another
+exception being the command's edge: ``explorer/cli/__init__.py`` imports the
+application inside ``main()``, and ``explorer/cli/app.py`` loads a command's module by
+name, only the one a command needs, so a missing dependency is one line and the loop
+checks run with numpy and scipy alone. No module imports another
 module's private (``_name``) names, and every module says what it offers in
 ``__all__``.
 """
@@ -122,3 +124,42 @@ def test_the_rule_catches_an_upward_import(tmp_path: Path) -> None:
     assert LAYERS.index("search") > LAYERS.index(_layer_of_path(fake))
     inner = ast.parse("def f():\n    from explorer.core.loop import Rational\n")
     assert any(isinstance(n, ast.ImportFrom) and n not in inner.body for n in ast.walk(inner))
+
+
+_BLOCK = ("import sys\n"
+          "for m in ('altair', 'optuna', 'pandas', 'vl_convert'):\n"
+          "    sys.modules[m] = None  # importing it now raises ImportError\n"
+          "from explorer.cli import main\n"
+          "sys.exit(main(sys.argv[1:]))\n")
+
+
+@pytest.mark.parametrize("argv", [
+    ["check", "studies/balance_platform.toml", "--json"],
+    ["balance", "studies/balance_platform.toml", "--json"],
+    ["implement", "studies/conveyor_plc.toml", "--design", "PI", "--json"],
+])
+def test_checks_need_only_numpy_and_scipy(argv) -> None:
+    """The command modules are loaded at the edge, only the one a command needs: the
+    loop checks run where Optuna, pandas and Altair are not installed."""
+    import json
+    import subprocess
+    import sys
+
+    root = PACKAGE.parent
+    r = subprocess.run([sys.executable, "-c", _BLOCK, *argv], cwd=root,
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0, r.stderr[-400:]
+    assert "caution" in json.loads(r.stdout)
+
+
+def test_a_command_missing_its_library_says_so_in_one_line(tmp_path) -> None:
+    import subprocess
+    import sys
+
+    root = PACKAGE.parent
+    r = subprocess.run([sys.executable, "-c", _BLOCK, "explore", "studies/kiln_damper.toml",
+                        "--out", str(tmp_path / "x")], cwd=root, capture_output=True,
+                       text=True, timeout=120)
+    assert r.returncode == 1 and r.stdout == ""
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "is not installed" in lines[0], r.stderr[-400:]

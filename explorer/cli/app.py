@@ -7,26 +7,34 @@ traceback); ``--json`` prints exactly one JSON object on stdout.
 from __future__ import annotations
 
 import argparse
+import importlib
 import os
 import sys
 import traceback
 from collections.abc import Callable, Sequence
 from typing import NoReturn
 
-from explorer.cli import balance as balance_cmd
-from explorer.cli import explore as explore_cmd
-from explorer.cli import implement as implement_cmd
-from explorer.cli import report as report_cmd
+from explorer.cli import missing_package
 from explorer.cli.output import design_table, print_data_notes, print_json, print_study, safe
+from explorer.core.caution import CAUTION
 from explorer.core.errors import LoopscoutError
 from explorer.evaluation.phase_domain import load_checked_study
+from explorer.evaluation.records import given_designs, study_header
+from explorer.model.study import MAX_SEED, MAX_TRIALS
 from explorer.model.text_file import one_line
 
 __all__ = ["main", "build_parser"]
 
-from explorer.core.caution import CAUTION  # noqa: E402  (one text for CLI, README, report)
-from explorer.evaluation.records import given_designs, study_header
-from explorer.model.study import MAX_SEED, MAX_TRIALS
+#: Modules adding commands (``register(sub, caution)``), in --help order, and the
+#: commands each adds. They are loaded by name, at this edge, and only the one a
+#: command needs: ``check`` (and ``balance``, ``implement``) need numpy and scipy only,
+#: while ``explore``, ``report`` and ``charts`` need Optuna, pandas and Altair.
+_COMMAND_MODULES: dict[str, tuple[str, ...]] = {
+    "explorer.cli.balance": ("balance",),
+    "explorer.cli.explore": ("explore",),
+    "explorer.cli.report": ("report", "charts"),
+    "explorer.cli.implement": ("implement",),
+}
 
 _EXAMPLES = """\
 examples:
@@ -42,7 +50,19 @@ class _OneLineParser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _modules_for(argv: Sequence[str] | None) -> list[str]:
+    """The command modules to load for ``argv``: none for ``check``, the one module of
+    another named command, every module otherwise (help, no or an unknown command)."""
+    words = [a for a in (sys.argv[1:] if argv is None else argv) if not a.startswith("-")]
+    if words and words[0] == "check":
+        return []
+    named = [m for m, commands in _COMMAND_MODULES.items() if words and words[0] in commands]
+    return named or list(_COMMAND_MODULES)
+
+
+def build_parser(argv: Sequence[str] | None = None) -> argparse.ArgumentParser:
+    """The parser; with ``argv``, holding only the command modules it needs (the
+    others may need libraries that a check does not)."""
     parser = _OneLineParser(
         prog="loopscout",
         description=(
@@ -75,13 +95,9 @@ def build_parser() -> argparse.ArgumentParser:
     # commands that live in their own modules register themselves here; each module
     # exposes ``register(sub, caution)`` adding a subparser whose ``run`` default
     # returns an exit status (and raises LoopscoutError on bad input)
-    for module in _COMMAND_MODULES:
-        module.register(sub, CAUTION)
+    for name in _modules_for(argv) if argv is not None else list(_COMMAND_MODULES):
+        importlib.import_module(name).register(sub, CAUTION)
     return parser
-
-
-#: Modules adding commands (``register(sub, caution)``), in --help order.
-_COMMAND_MODULES = (balance_cmd, explore_cmd, report_cmd, implement_cmd)
 
 
 # --------------------------------------------------------------------------------------
@@ -123,7 +139,10 @@ def _tolerant_streams() -> None:
 
 def main(argv: Sequence[str] | None = None) -> int:
     _tolerant_streams()
-    parser = build_parser()
+    try:
+        parser = build_parser(sys.argv[1:] if argv is None else argv)
+    except ModuleNotFoundError as exc:  # an incomplete install, not a defect
+        return missing_package(exc)
     args = parser.parse_args(argv)
     if not getattr(args, "command", None):
         parser.print_help(sys.stderr)
@@ -146,12 +165,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     except ModuleNotFoundError as exc:  # an incomplete install, not a defect
         if args.debug:
             traceback.print_exc()
-        print(
-            f"loopscout: the required package {exc.name!r} is not installed in this Python "
-            "environment; install loopscout with its dependencies (README: pip install -e .)",
-            file=sys.stderr,
-        )
-        return 1
+        return missing_package(exc)
     except Exception as exc:  # a defect: still one line unless --debug
         if args.debug:
             traceback.print_exc()
