@@ -58,8 +58,26 @@ def test_the_package_lists_come_from_the_registry() -> None:
     assert evaluate.METRIC_UNITS == metric_registry.METRIC_UNITS
     assert study.LIMIT_KEYS == metric_registry.LIMIT_KEYS
     assert set(tune.TIME_KEYS) == set(metric_registry.TIME_KEYS)
-    assert cli._MARGIN_KEYS == metric_registry.MARGIN_KEYS
     assert tuple(family.WORST_KEYS) == metric_registry.WORST_KEYS
+
+
+def test_the_design_table_stars_exactly_the_registry_margins_of_an_unstable_loop() -> None:
+    """An unstable loop's margins are not robustness margins: the terminal table marks
+    the rows of the registry's MARGIN_KEYS, and no other."""
+    from explorer.core.loop import Rational
+    from explorer.evaluation.design_record import DesignRecord
+
+    metrics = {k: 1.0 for k in metric_registry.METRIC_KEYS}
+    metrics["closed_loop_stable"] = False
+    rec = DesignRecord(name="u", origin="given", structure="P", compensator=Rational(gain=1.0),
+                       meets_targets=False, metrics=metrics)
+    starred = {line.split("  ")[0].strip() for line in cli.design_table([rec]).splitlines()
+               if line.endswith(" *")}
+    labels = {}
+    for k in metric_registry.MARGIN_KEYS:
+        label, unit = metric_registry.METRIC_UNITS[k]
+        labels[k] = f"{label} [{unit}]" if unit and unit != "-" else label
+    assert starred == {labels[k] for k in metric_registry.MARGIN_KEYS if k in metrics}
 
 
 def test_the_schemas_agree_with_the_registry() -> None:

@@ -143,8 +143,6 @@ def _table_rows() -> tuple[str, ...]:
 _TABLE_ROWS = _table_rows()
 
 
-#: Figures that read as robustness margins only when the closed loop is stable.
-_MARGIN_KEYS = MARGIN_KEYS
 #: Rows of the sampled loop in a design table (a study with [search] sample_time).
 _SAMPLED_ROWS = ("crossover_rad_s", "phase_margin_deg", "gain_margin_db", "delay_margin_s",
                  "sensitivity_peak", "closed_loop_stable", "overshoot_pct", "settling_time_s",
@@ -169,7 +167,7 @@ def design_table(designs: Sequence[Mapping[str, Any]]) -> str:
         name = f"{label} [{unit}]" if unit and unit != "-" else label
         rows.append([name, *[
             fmt_value(key, d["metrics"].get(key))
-            + (" *" if bad and key in _MARGIN_KEYS and d["metrics"].get(key) is not None else "")
+            + (" *" if bad and key in MARGIN_KEYS and d["metrics"].get(key) is not None else "")
             for d, bad in zip(designs, unstable, strict=True)
         ]])
     if any("worst" in d for d in designs):

@@ -3,7 +3,8 @@
 :func:`design_metrics` joins the frequency metrics (:mod:`explorer.frequency.metrics`) and the
 step metrics (:mod:`explorer.time_domain.timeresp`); :func:`meets_targets` applies the reading
 of docs/interface.md ("meets_targets is true when ...") and says why a design misses;
-:func:`design_record` builds the JSON DESIGN object.
+:func:`evaluated_record` builds the DESIGN record
+(:class:`explorer.evaluation.design_record.DesignRecord`).
 """
 
 from __future__ import annotations
@@ -28,11 +29,9 @@ __all__ = [
     "METRIC_KEYS",
     "METRIC_UNITS",
     "CROSSOVER_REL_TOL",
-    "PHASE_MARGIN_TOL_DEG",
     "design_metrics",
     "meets_targets",
     "describe_structure",
-    "design_record",
     "given_designs",
     "study_header",
 ]
@@ -45,10 +44,6 @@ METRIC_UNITS = _registry.METRIC_UNITS
 #: docs/interface.md: a numeric target crossover must be a gain crossover within this
 #: (the default of ``targets.crossover_tolerance``).
 CROSSOVER_REL_TOL = DEFAULT_CROSSOVER_TOLERANCE
-#: How closely targets and requirements must be met (explorer.core.metric_registry).
-OVERSHOOT_TOL_PCT = _registry.OVERSHOOT_TOL_PCT
-SETTLING_REL_TOL = _registry.SETTLING_REL_TOL
-PHASE_MARGIN_TOL_DEG = _registry.PHASE_MARGIN_TOL_DEG
 
 _TIME_KEYS = _registry.TIME_KEYS
 
@@ -135,14 +130,15 @@ def meets_targets(
     pm_t = targets.phase_margin_deg
     if pm_t is not None:
         pm = metrics.get("phase_margin_deg")
-        if pm is None or pm < pm_t - PHASE_MARGIN_TOL_DEG:
+        if pm is None or pm < pm_t - _registry.PHASE_MARGIN_TOL_DEG:
             why.append(
                 f"phase margin {'none' if pm is None else f'{pm:.2f}'} deg "
                 f"< target {pm_t:.2f} deg" + because("phase_margin_deg")
             )
     for key, req in targets.requirements.items():
         value = metrics.get(key)
-        slack = OVERSHOOT_TOL_PCT if key == "overshoot_pct" else SETTLING_REL_TOL * req
+        slack = (_registry.OVERSHOOT_TOL_PCT if key == "overshoot_pct"
+                 else _registry.SETTLING_REL_TOL * req)
         if value is None or value > req + slack:
             unit = METRIC_UNITS[key][1]
             why.append(f"{key} {_fmt(value)} > required {req:g} {unit}" + because(key))
@@ -187,25 +183,6 @@ def describe_structure(comp: Rational) -> str:
     return " + ".join(parts)
 
 
-def design_record(
-    *,
-    name: str,
-    origin: str,
-    structure: str,
-    comp: Rational,
-    metrics: dict[str, Any],
-    meets: bool | None,
-    pareto: bool | None = None,
-    reasons: list[str] | None = None,
-    extra: dict[str, Any] | None = None,
-) -> DesignRecord:
-    """The docs/interface.md DESIGN object (plus ``misses``: the reasons, and extras)."""
-    return DesignRecord(name=name, origin=origin, structure=structure, compensator=comp,
-                        meets_targets=meets, pareto=pareto, metrics=metrics,
-                        misses=None if reasons is None else tuple(reasons),
-                        extras=dict(extra or {}))
-
-
 def evaluated_record(
     study: Study,
     comp: Rational,
@@ -247,10 +224,9 @@ def evaluated_record(
         why = [f"sampled loop: {w}" for w in why]
     if fam:
         extra = {**fam, **(extra or {})}
-    return design_record(
-        name=name, origin=origin, structure=structure, comp=comp, metrics=metrics,
-        meets=ok, reasons=why, extra=extra,
-    )
+    return DesignRecord(name=name, origin=origin, structure=structure, compensator=comp,
+                        meets_targets=ok, metrics=metrics, misses=tuple(why),
+                        extras=dict(extra or {}))
 
 
 def _with_compensator_figures(plant: Rational, comp: Rational,

@@ -22,10 +22,15 @@ from explorer.core.caution import CAUTION
 from explorer.core.errors import LoopscoutError
 from explorer.core.factored import factored as factored_text
 from explorer.core.loop import root_from_json
+from explorer.core.metric_registry import (
+    OVERSHOOT_TOL_PCT,
+    PHASE_MARGIN_TOL_DEG,
+    SETTLING_REL_TOL,
+    ranked_cell,
+)
 from explorer.core.metric_registry import RANKED_COLUMNS as TERMINAL_COLUMNS
-from explorer.core.metric_registry import ranked_cell
 from explorer.design.sampled_design import judged_metrics
-from explorer.evaluation.records import CROSSOVER_REL_TOL, METRIC_UNITS, PHASE_MARGIN_TOL_DEG
+from explorer.evaluation.records import CROSSOVER_REL_TOL, METRIC_UNITS
 from explorer.model.study import LIMIT_KEYS, Study
 from explorer.time_domain.timeresp import fold_threshold_rad_s
 
@@ -39,10 +44,6 @@ __all__ = [
     "requirement_rows",
     "page",
 ]
-
-#: docs/interface.md: overshoot and settling requirements are met within these.
-OVERSHOOT_TOL_PCT = 0.2
-SETTLING_REL_TOL = 0.01
 
 # the order charts appear in on the page, with a one-line caption each
 _CHART_ORDER = {

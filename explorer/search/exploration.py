@@ -501,7 +501,7 @@ def explore(
     obj = {
         "answer": answer,
         "designs": designs,
-        "study": _study_header(study),
+        "study": study_header(study),
         "summary": summary,
         "caution": CAUTION,
     }
@@ -583,10 +583,6 @@ def _relax_hint(study: Study, structures: list[Structure], why: dict[str, str]) 
     if "max_pole_ratio" in text:
         hints.append(f"raise search.max_pole_ratio (now {study.search.max_pole_ratio:g})")
     return "try: " + "; or ".join(hints) if hints else "no single change is indicated"
-
-
-def _study_header(study: Study) -> dict[str, Any]:
-    return study_header(study)
 
 
 def _write(out: Path, study: Study, obj: dict[str, Any], frame: Any) -> None:

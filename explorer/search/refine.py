@@ -27,8 +27,8 @@ import numpy as np
 from scipy.optimize import minimize
 
 from explorer.core.loop import Rational
+from explorer.core.metric_registry import PHASE_MARGIN_TOL_DEG
 from explorer.design.structures import Structure
-from explorer.evaluation.records import PHASE_MARGIN_TOL_DEG
 from explorer.model.study import LIMIT_KEYS
 from explorer.search.tune import TIME_KEYS, Problem, evaluate_batch
 

@@ -38,11 +38,12 @@ from optuna.trial import TrialState
 from explorer.core import metric_registry as _registry
 from explorer.core.errors import LoopscoutError
 from explorer.core.loop import Rational, hidden_unstable_mask, root_from_json, root_to_json
+from explorer.core.metric_registry import PHASE_MARGIN_TOL_DEG
 from explorer.design.sampled_design import sampled_balance, sampled_readings
 from explorer.design.structures import Structure, balance
 from explorer.evaluation.family import family_worst_batch
 from explorer.evaluation.plant_source import balance_plant, frequency_batch
-from explorer.evaluation.records import CROSSOVER_REL_TOL, PHASE_MARGIN_TOL_DEG
+from explorer.evaluation.records import CROSSOVER_REL_TOL
 from explorer.model.family_members import sampled_members, search_time_members
 from explorer.model.study import LIMIT_KEYS, Targets, Variation
 from explorer.time_domain.timeresp import step_metrics_batch
